@@ -1,0 +1,5 @@
+"""Allow ``python -m logger``."""
+
+from logger.cli import main
+
+raise SystemExit(main())
