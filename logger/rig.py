@@ -1,0 +1,190 @@
+"""The rig file (TOML): which device input is which rail, how counts become volts and amps, what is nominal.
+
+Errors always name the file, the key and what was expected, because a rig file is written by hand.
+"""
+
+from __future__ import annotations
+
+import math
+import re
+import tomllib
+from dataclasses import dataclass, field
+from importlib import resources
+from pathlib import Path
+from typing import Any
+
+ROLES = ("volts", "amps", "aux")
+UNITS = {"volts": "V", "amps": "A"}
+_NAME = re.compile(r"^[a-z][a-z0-9_]{0,23}$")
+
+
+class RigError(ValueError):
+    """A rig file is missing, unreadable or wrong; the message names the file and key."""
+
+
+@dataclass(frozen=True)
+class Channel:
+    """One measured quantity and how to get it from raw ADC counts."""
+
+    name: str
+    role: str
+    input: int
+    """Position of this channel's counts in the device's data lines (0-based)."""
+    divider: float = 1.0
+    """Volts at the rail per volt at the ADC pin (volts and aux)."""
+    shunt_ohm: float = 0.0
+    gain: float = 1.0
+    """Amplifier gain between shunt and ADC pin (amps)."""
+    negative: bool = False
+    """A negative rail: the tap sees its magnitude, the value is reported below zero."""
+    offset_counts: float = 0.0
+    nominal: float | None = None
+    low: float | None = None
+    high: float | None = None
+    unit: str = ""
+
+    def units_per_pin_volt(self) -> float:
+        """Calibrated units per volt at the ADC pin, sign included."""
+        per_volt = 1.0 / (self.shunt_ohm * self.gain) if self.role == "amps" else self.divider
+        return -per_volt if self.negative else per_volt
+
+
+@dataclass(frozen=True)
+class Device:
+    port: str | None = None
+    baud: int = 921600
+    adc_bits: int | None = None
+    vref_mv: int | None = None
+
+
+@dataclass(frozen=True)
+class Rig:
+    name: str
+    channels: tuple[Channel, ...]
+    device: Device = field(default_factory=Device)
+    source: str = ""
+    """Where it was read from, for messages and metadata."""
+    text: str = ""
+    """The file as written, stored with every run."""
+
+    def channel(self, name: str) -> Channel:
+        for ch in self.channels:
+            if ch.name == name:
+                return ch
+        raise KeyError(name)
+
+
+def load_rig(path: str | Path) -> Rig:
+    """Read and check a rig file."""
+    path = Path(path)
+    try:
+        text = path.read_text(encoding="utf-8")
+    except FileNotFoundError:
+        raise RigError(f"{path}: no such rig file; write an example with `railtap rig init {path}`") from None
+    except (OSError, UnicodeDecodeError) as exc:
+        raise RigError(f"{path}: cannot read rig file ({exc})") from None
+    return parse_rig(text, str(path))
+
+
+def demo_rig_text() -> str:
+    """The commented example rig, which also describes the built-in simulated rig."""
+    return resources.files("logger").joinpath("templates/rig.toml").read_text(encoding="utf-8")
+
+
+def parse_rig(text: str, source: str = "<rig>") -> Rig:
+    """Parse rig TOML text; ``source`` names it in errors."""
+    try:
+        doc = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        raise RigError(f"{source}: not valid TOML ({exc})") from None
+    checker = _Checker(source)
+    name = checker.get(doc, "name", str, "rig")
+    device = _device(checker, doc.get("device", {}))
+    raw_channels = doc.get("channel")
+    if not isinstance(raw_channels, list) or not raw_channels:
+        raise RigError(f"{source}: no [[channel]] tables; at least one channel is needed")
+    channels = tuple(_channel(checker, i, t) for i, t in enumerate(raw_channels))
+    _check_unique(source, channels)
+    return Rig(name=name, channels=channels, device=device, source=source, text=text)
+
+
+class _Checker:
+    def __init__(self, source: str) -> None:
+        self.source = source
+
+    def fail(self, key: str, expected: str) -> RigError:
+        return RigError(f"{self.source}: {key}: expected {expected}")
+
+    def get(self, table: dict[str, Any], key: str, kind: type, default: Any = None, where: str = "") -> Any:
+        value = table.get(key, default)
+        label = f"{where}{key}"
+        if value is None:
+            return None
+        if kind is float and isinstance(value, int) and not isinstance(value, bool):
+            value = float(value)
+        if not isinstance(value, kind) or isinstance(value, bool) != (kind is bool):
+            raise self.fail(label, f"a {kind.__name__}, got {value!r}")
+        if kind is float and not math.isfinite(value):
+            raise self.fail(label, "a finite number")
+        return value
+
+
+def _device(c: _Checker, table: dict[str, Any]) -> Device:
+    w = "device."
+    baud = c.get(table, "baud", int, 921600, w)
+    bits = c.get(table, "adc_bits", int, None, w)
+    if baud <= 0:
+        raise c.fail("device.baud", "a positive integer")
+    if bits is not None and not 1 <= bits <= 16:
+        raise c.fail("device.adc_bits", "1 to 16")
+    return Device(port=c.get(table, "port", str, None, w), baud=baud, adc_bits=bits,
+                  vref_mv=c.get(table, "vref_mv", int, None, w))
+
+
+def _channel(c: _Checker, index: int, table: dict[str, Any]) -> Channel:
+    w = f"channel[{index}]."
+    name = c.get(table, "name", str, None, w)
+    if name is None or not _NAME.match(name):
+        raise c.fail(f"{w}name", "a lower-case name such as out_v (letters, digits, _; up to 24)")
+    w = f"channel {name!r}: "
+    role = c.get(table, "role", str, None, w)
+    if role not in ROLES:
+        raise c.fail(f"{w}role", f"one of {', '.join(ROLES)}")
+    numbers = {k: c.get(table, k, float, None, w) for k in
+               ("divider", "shunt_ohm", "gain", "offset_counts", "nominal", "low", "high")}
+    if role == "amps" and not (numbers["shunt_ohm"] or 0) > 0:
+        raise c.fail(f"{w}shunt_ohm", "a positive resistance in ohms for an amps channel")
+    for key in ("divider", "gain"):
+        if numbers[key] is not None and numbers[key] <= 0:
+            raise c.fail(f"{w}{key}", "a positive number")
+    low, high = numbers["low"], numbers["high"]
+    if low is not None and high is not None and low >= high:
+        raise c.fail(f"{w}low", f"less than high ({high})")
+    given = {k: v for k, v in numbers.items() if v is not None}
+    return Channel(
+        name=name,
+        role=role,
+        input=_input(c, table, w),
+        negative=c.get(table, "negative", bool, False, w),
+        unit=c.get(table, "unit", str, UNITS.get(role, ""), w),
+        **given,
+    )
+
+
+def _input(c: _Checker, table: dict[str, Any], where: str) -> int:
+    value = c.get(table, "input", int, None, where)
+    if value is None or not 0 <= value < 8:
+        raise c.fail(f"{where}input", "the channel's position in the data line, 0 to 7")
+    return value
+
+
+def _check_unique(source: str, channels: tuple[Channel, ...]) -> None:
+    seen_names: set[str] = set()
+    seen_inputs: dict[int, str] = {}
+    for ch in channels:
+        if ch.name in seen_names:
+            raise RigError(f"{source}: channel {ch.name!r}: name used twice")
+        if ch.input in seen_inputs:
+            raise RigError(f"{source}: channel {ch.name!r}: input {ch.input} already used by {seen_inputs[ch.input]!r}")
+        seen_names.add(ch.name)
+        seen_inputs[ch.input] = ch.name
