@@ -1,0 +1,380 @@
+"""RunWriter: record one run into its folder, crash-safe, in bounded memory.
+
+Samples arrive as Arrow record batches. They are buffered and, at least every ``flush_seconds`` of wall
+clock, written as one batch to the journal of the current part and fsynced, so ``kill -9`` or a power cut
+loses at most about that much. Parts rotate on *data* time (the ``utc`` column): part k holds the rows whose
+``utc`` falls in ``[t0 + k * part_seconds, t0 + (k + 1) * part_seconds)``, t0 being the run's first sample,
+so a simulated day replayed faster than real time still makes hourly parts. A finished part's journal is
+sealed into Parquet at once. A long gap in the data skips slots, but part files stay numbered 0, 1, 2...
+
+The writer is single-threaded: give it its own thread. When no samples come for a while, call :meth:`tick`
+so buffered rows still reach the disk on time.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import errno
+import itertools
+import socket
+import time
+from collections.abc import Callable, Iterator
+from pathlib import Path
+from types import TracebackType
+from typing import Any, NoReturn
+
+import numpy as np
+import pyarrow as pa
+
+from logger import __version__
+from logger.store.files import (
+    RUN_JSON,
+    RunLock,
+    StoreError,
+    os_error_text,
+    utc_now,
+    utc_text,
+    write_json_atomic,
+)
+from logger.store.journal import JournalWriter
+from logger.store.layout import EVENTS_JOURNAL, EVENTS_PARQUET, journal_name, part_name
+from logger.store.meta import STORE_KEYS, finished_metadata, start_metadata
+from logger.store.schema import channels_of, event_batch, event_schema
+from logger.store.seal import event_parquet_options, seal_journal, temp_name, write_empty
+
+MAX_BUFFER_ROWS = 1 << 16
+
+
+class RunWriter:
+    """Writes one run folder: journals, sealed Parquet parts, events and ``_run.json``.
+
+    Args:
+        folder: The run folder; created if missing. It must not already hold files.
+        schema: Sample schema from :func:`logger.store.schema.sample_schema`.
+        metadata: Everything known at start (rig, device header, sources, calibration...). JSON-able;
+            datetimes and paths are written as text. ``start_utc``, ``host`` and ``software_version`` are
+            filled in when absent.
+        part_seconds: Data time covered by one part.
+        flush_seconds: Longest wall-clock time rows stay buffered in memory before the journal gets them.
+        clock: Monotonic clock in seconds (injectable for tests).
+
+    Raises:
+        ValueError: The schema is not a sample schema, an option is out of range, or ``metadata`` uses a key
+            the writer owns.
+        StoreError: The folder holds files already, cannot be written, or is open in another process.
+    """
+
+    def __init__(
+        self,
+        folder: Path,
+        schema: pa.Schema,
+        metadata: dict[str, Any],
+        *,
+        part_seconds: float = 3600.0,
+        flush_seconds: float = 0.5,
+        clock: Callable[[], float] = time.monotonic,
+    ) -> None:
+        channels_of(schema)
+        if part_seconds <= 0 or flush_seconds < 0:
+            raise ValueError("part_seconds must be > 0 and flush_seconds >= 0")
+        clash = sorted(set(metadata) & set(STORE_KEYS))
+        if clash:
+            raise ValueError(f"metadata keys {clash} are written by the store itself")
+        self.folder = Path(folder)
+        self.schema = schema
+        self._part_us = max(1, round(part_seconds * 1e6))
+        self._flush_s = flush_seconds
+        self._clock = clock
+        self._buffer: list[pa.RecordBatch] = []
+        self._buffered_rows = 0
+        self._rows = 0
+        self._durable_rows = 0
+        self._safe_until_us: int | None = None
+        self._t0_us: int | None = None
+        self._slot: int | None = None
+        self._part_index = 0
+        self._parts: list[dict[str, Any]] = []
+        self._event_count = 0
+        self._events: JournalWriter | None = None
+        self._error: StoreError | None = None
+        self._final: dict[str, Any] | None = None
+        _prepare_folder(self.folder)
+        self._lock = RunLock(self.folder)
+        self._lock.acquire("record")
+        defaults = {
+            "start_utc": utc_text(utc_now()),
+            "host": socket.gethostname(),
+            "software_version": __version__,
+        }
+        self._start = start_metadata({**defaults, **metadata}, schema, part_seconds)
+        self._metadata: dict[str, Any] = {**self._start, "status": "recording"}
+        self._journal: JournalWriter | None = None
+        try:
+            write_json_atomic(self.folder / RUN_JSON, self._metadata)
+            self._journal = JournalWriter(self.folder / journal_name(0), schema)
+        except OSError as exc:
+            self._lock.release()
+            raise StoreError(f"{os_error_text(exc, self.folder)}; choose a folder you can write to") from None
+        self._last_flush = clock()
+
+    # ------------------------------------------------------------------ recording
+
+    def append(self, batch: pa.RecordBatch) -> None:
+        """Take a batch of samples; write the buffer to the journal when ``flush_seconds`` have passed.
+
+        Raises:
+            ValueError: The batch does not match the schema (missing, extra or uncastable columns, nulls).
+            StoreError: The run cannot be written (disk full...); the writer is then failed and unlocked.
+        """
+        self._check_usable()
+        batch = self._conform(batch)
+        if batch.num_rows == 0:
+            return
+        for slot, piece in self._split_by_part(batch):
+            if self._slot is None:
+                self._slot = slot
+            elif slot != self._slot:
+                self._rotate(slot)
+            self._buffer.append(piece)
+            self._buffered_rows += piece.num_rows
+            self._rows += piece.num_rows
+        self._flush_if_due()
+
+    def tick(self) -> None:
+        """Flush buffered rows if they have waited ``flush_seconds``; call it when no samples arrive."""
+        self._check_usable()
+        self._flush_if_due()
+
+    def flush(self) -> None:
+        """Write buffered rows to the journal as one record batch and fsync it, now.
+
+        Raises:
+            StoreError: As for :meth:`append`.
+        """
+        self._check_usable()
+        self._last_flush = self._clock()
+        if not self._buffer:
+            return
+        batch = pa.concat_batches(self._buffer) if len(self._buffer) > 1 else self._buffer[0]
+        assert self._journal is not None
+        try:
+            self._journal.write(batch)
+        except OSError as exc:
+            self._fail(exc, self._journal.path)
+        self._buffer.clear()
+        self._buffered_rows = 0
+        self._durable_rows += batch.num_rows
+        last = batch.column("utc")[-1].cast(pa.int64()).as_py()
+        self._safe_until_us = last if self._safe_until_us is None else max(self._safe_until_us, last)
+
+    def add_event(self, row: dict[str, Any]) -> None:
+        """Record one event (brownout, dropout, mark...) in ``_events.arrows``, durable on return.
+
+        Args:
+            row: Values by column of :func:`logger.store.schema.event_schema`; ``kind`` and ``start`` are
+                required, missing optional columns are null.
+
+        Raises:
+            ValueError: Unknown column, missing ``kind`` or ``start``, or a value of the wrong type.
+            StoreError: As for :meth:`append`.
+        """
+        self._check_usable()
+        batch = event_batch(row)
+        path = self.folder / EVENTS_JOURNAL
+        try:
+            if self._events is None:
+                self._events = JournalWriter(path, event_schema())
+            self._events.write(batch)
+        except OSError as exc:
+            self._fail(exc, path)
+        self._event_count += 1
+
+    def close(self, reason: str) -> dict[str, Any]:
+        """Finish the run: flush, seal the open part, write ``_events.parquet`` and the final ``_run.json``.
+
+        Args:
+            reason: Why recording stopped, in words for people ("user stop", "duration reached").
+
+        Returns:
+            The final run metadata (as in ``_run.json``). After a failure it is the failed metadata, and
+            nothing more is written. Calling close again returns the same dict.
+
+        Raises:
+            StoreError: Sealing or writing failed; the journal stays for ``railtap recover``.
+        """
+        if self._final is not None:
+            return self._final
+        if self._error is not None:
+            return self._metadata
+        self.flush()
+        self._finish_part()
+        self._finish_events()
+        last = utc_text(self._safe_until_us)
+        self._metadata = finished_metadata(
+            self._start, "complete", reason, utc_text(utc_now()), last, self._parts, self._event_count
+        )
+        try:
+            write_json_atomic(self.folder / RUN_JSON, self._metadata)
+        except OSError as exc:
+            self._fail(exc, self.folder / RUN_JSON)
+        self._lock.release()
+        self._final = self._metadata
+        return self._final
+
+    # ------------------------------------------------------------------ state
+
+    @property
+    def rows(self) -> int:
+        """Rows taken so far (buffered or on disk)."""
+        return self._rows
+
+    @property
+    def durable_rows(self) -> int:
+        """Rows fsynced to a journal or sealed in a part: what survives ``kill -9`` now."""
+        return self._durable_rows
+
+    @property
+    def part_index(self) -> int:
+        """Number of the part being recorded."""
+        return self._part_index
+
+    @property
+    def error(self) -> StoreError | None:
+        """The error that stopped this writer, if any."""
+        return self._error
+
+    def __enter__(self) -> RunWriter:
+        return self
+
+    def __exit__(
+        self, kind: type[BaseException] | None, exc: BaseException | None, tb: TracebackType | None
+    ) -> None:
+        self.close("finished" if exc is None else f"stopped by {kind.__name__ if kind else 'error'}: {exc}")
+
+    # ------------------------------------------------------------------ internals
+
+    def _check_usable(self) -> None:
+        if self._error is not None:
+            raise self._error
+        if self._final is not None:
+            raise ValueError(f"run {self.folder} is closed")
+
+    def _conform(self, batch: pa.RecordBatch) -> pa.RecordBatch:
+        """The batch in exactly the writer's schema (columns reordered, safely cast), or ValueError."""
+        if batch.schema.equals(self.schema):
+            return batch
+        extra = sorted(set(batch.schema.names) - set(self.schema.names))
+        if extra:
+            raise ValueError(f"batch has columns the run does not record: {extra}")
+        columns = []
+        for field in self.schema:
+            if field.name not in batch.schema.names:
+                raise ValueError(f"batch lacks column {field.name!r}")
+            column = batch.column(field.name)
+            if column.null_count:
+                raise ValueError(f"column {field.name!r} has nulls; samples must be complete")
+            try:
+                columns.append(column.cast(field.type) if column.type != field.type else column)
+            except (pa.ArrowInvalid, pa.ArrowNotImplementedError) as exc:
+                problem = f"cannot store {column.type} as {field.type}: {exc}"
+                raise ValueError(f"column {field.name!r}: {problem}") from None
+        return pa.RecordBatch.from_arrays(columns, schema=self.schema)
+
+    def _split_by_part(self, batch: pa.RecordBatch) -> Iterator[tuple[int, pa.RecordBatch]]:
+        """Pieces of ``batch`` by part slot. Slots never go back: a late row stays in the current part."""
+        utc = batch.column("utc").cast(pa.int64()).to_numpy()
+        if self._t0_us is None:
+            self._t0_us = int(utc[0])
+        slots = (utc - self._t0_us) // self._part_us
+        slots = np.maximum.accumulate(np.maximum(slots, self._slot or 0))
+        edges = [0, *(np.flatnonzero(np.diff(slots)) + 1).tolist(), len(slots)]
+        for start, stop in itertools.pairwise(edges):
+            yield int(slots[start]), batch.slice(start, stop - start)
+
+    def _flush_if_due(self) -> None:
+        due = self._clock() - self._last_flush >= self._flush_s
+        if self._buffer and (due or self._buffered_rows >= MAX_BUFFER_ROWS):
+            self.flush()
+
+    def _rotate(self, slot: int) -> None:
+        """Close and seal the current part, then start the next one."""
+        self.flush()
+        self._finish_part()
+        self._part_index += 1
+        self._slot = slot
+        path = self.folder / journal_name(self._part_index)
+        try:
+            self._journal = JournalWriter(path, self.schema)
+        except OSError as exc:
+            self._fail(exc, path)
+
+    def _finish_part(self) -> None:
+        assert self._journal is not None
+        journal, target = self._journal.path, self.folder / part_name(self._part_index)
+        try:
+            self._journal.close()
+            sealed = seal_journal(
+                journal, target, run_metadata=self._start, part_index=self._part_index, time_column="utc"
+            )
+        except (OSError, pa.ArrowException) as exc:
+            self._fail(exc, temp_name(target))
+        if sealed is not None:
+            self._parts.append(sealed.as_dict())
+
+    def _finish_events(self) -> None:
+        target = self.folder / EVENTS_PARQUET
+        try:
+            sealed = None
+            if self._events is not None:
+                self._events.close()
+                sealed = seal_journal(
+                    self._events.path,
+                    target,
+                    run_metadata=self._start,
+                    part_index=None,
+                    time_column="start",
+                    options_for=event_parquet_options,
+                )
+            if sealed is None:
+                write_empty(
+                    target,
+                    event_schema(),
+                    run_metadata=self._start,
+                    part_index=None,
+                    options_for=event_parquet_options,
+                )
+        except (OSError, pa.ArrowException) as exc:
+            self._fail(exc, temp_name(target))
+
+    def _fail(self, exc: BaseException, path: Path) -> NoReturn:
+        """Stop for good: close files without writing more, mark the run failed, unlock, raise StoreError."""
+        what = os_error_text(exc, path) if isinstance(exc, OSError) else f"{exc} writing {path}"
+        code = exc.errno if isinstance(exc, OSError) else None
+        fix = "free space" if code in (errno.ENOSPC, errno.EDQUOT) else "fix the cause"
+        if code in (errno.EACCES, errno.EPERM, errno.EROFS):
+            fix = "make the folder writable"
+        if self._safe_until_us is None:
+            safe = "no samples had reached the disk yet"
+        else:
+            until = (utc_text(self._safe_until_us) or "")[:19].replace("T", " ")
+            safe = f"samples up to {until} UTC are safe on disk"
+        self._error = StoreError(f"{what}; {fix}, then run `railtap recover {self.folder}`; {safe}")
+        for journal in (self._journal, self._events):
+            if journal is not None:
+                journal.abandon()
+        self._metadata = {**self._metadata, "status": "failed", "error": str(self._error)}
+        with contextlib.suppress(OSError):
+            write_json_atomic(self.folder / RUN_JSON, self._metadata)
+        self._lock.release()
+        raise self._error from None
+
+
+def _prepare_folder(folder: Path) -> None:
+    """Create the run folder, refusing one that already holds files (a run is never overwritten)."""
+    try:
+        folder.mkdir(parents=True, exist_ok=True)
+        occupied = any(folder.iterdir())
+    except OSError as exc:
+        raise StoreError(f"{os_error_text(exc, folder)}; choose a folder you can write to") from None
+    if occupied:
+        raise StoreError(f"{folder} already exists and holds files; a new run needs a new, empty folder")
