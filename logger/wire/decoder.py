@@ -97,11 +97,12 @@ class Decoder:
         ends = newlines.copy()
         if was_skipping:  # the rest of an overlong line, already counted
             starts, ends = starts[1:], ends[1:]
+        overlong = ends - starts >= MAX_LINE  # the limit counts the whole line, CR and LF included
         has_cr = (ends > starts) & (arr[np.maximum(ends - 1, 0)] == _CR)
         ends[has_cr] -= 1
         lengths = ends - starts
         keep = lengths > 0
-        return self._decode_lines(buf, arr, starts[keep], lengths[keep])
+        return self._decode_lines(buf, arr, starts[keep], lengths[keep], overlong[keep])
 
     def _hold(self, tail: bytes) -> None:
         """Keep an incomplete line; one that is already too long is counted once and skipped."""
@@ -121,11 +122,12 @@ class Decoder:
         c.overlong += overlong
         c.rejected += bad_crc + malformed + overlong
 
-    def _decode_lines(self, buf: bytes, arr: np.ndarray, starts: np.ndarray, lengths: np.ndarray) -> list[Item]:
+    def _decode_lines(
+        self, buf: bytes, arr: np.ndarray, starts: np.ndarray, lengths: np.ndarray, overlong: np.ndarray
+    ) -> list[Item]:
         n = len(starts)
         self.counters.lines += n
         kind = np.zeros(n, dtype=np.int8)  # 0 rejected, 1..8 data with that many channels, -1 text item
-        overlong = lengths >= MAX_LINE
         first = np.where(overlong, 0, arr[starts])
         bad_crc = 0
         for length, channels in _DATA_LENGTHS.items():
@@ -135,7 +137,7 @@ class Decoder:
                 kind[rows[layout_ok & crc_ok]] = channels
                 bad_crc += int((layout_ok & ~crc_ok).sum())
         parsed: dict[int, DeviceHeader | Answer] = {}
-        for row in np.flatnonzero((first == _H) | (first == _A)):
+        for row in np.flatnonzero(((first == _H) | (first == _A)) & ~overlong):
             item = self._parse_text(buf[starts[row] : starts[row] + lengths[row]])
             if isinstance(item, str):
                 bad_crc += item == "crc"

@@ -12,6 +12,7 @@ four upper-case hex digits. The first byte of the body says what the line is:
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 
 import numpy as np
@@ -70,7 +71,7 @@ class DeviceHeader:
 
     def body(self) -> str:
         """The header line's body, as a device sends it."""
-        rate = f"{self.rate_hz:g}"
+        rate = f"{self.rate_hz:.10g}"
         fields = [
             f"fw={self.firmware}",
             f"ver={self.version}",
@@ -86,20 +87,24 @@ class DeviceHeader:
     @classmethod
     def parse(cls, body: str) -> DeviceHeader:
         """Read a header body; raises ValueError naming the missing or bad field."""
+        if not body.startswith("H "):
+            raise ValueError("header body must start with 'H '")
         fields: dict[str, str] = {}
         for token in body.split()[1:]:
             key, sep, value = token.partition("=")
             if not sep or not key:
                 raise ValueError(f"header field {token!r} is not key=value")
+            if key in fields:
+                raise ValueError(f"header repeats {key!r}")
             fields[key] = value
         missing = [key for key in cls.REQUIRED if key not in fields]
         if missing:
             raise ValueError(f"header lacks {', '.join(missing)}")
         channels = tuple(fields["ch"].split(","))
         bits, vref_mv, rate_hz = int(fields["bits"]), int(fields["vref_mv"]), float(fields["rate_hz"])
-        if not 1 <= len(channels) <= MAX_CHANNELS or not all(channels):
-            raise ValueError(f"header names {len(channels)} channels; 1 to {MAX_CHANNELS} expected")
-        if not 1 <= bits <= 16 or vref_mv <= 0 or rate_hz <= 0:
+        if not 1 <= len(channels) <= MAX_CHANNELS or not all(channels) or len(set(channels)) != len(channels):
+            raise ValueError(f"header channels {fields['ch']!r}: 1 to {MAX_CHANNELS} distinct names expected")
+        if not 1 <= bits <= 16 or vref_mv <= 0 or not 0 < rate_hz < math.inf:
             raise ValueError("header bits, vref_mv or rate_hz out of range")
         known = {*cls.REQUIRED, "why"}
         extra = tuple((k, v) for k, v in fields.items() if k not in known)
@@ -124,7 +129,9 @@ class Answer:
 
     @classmethod
     def parse(cls, body: str) -> Answer:
-        _, _, rest = body.partition(" ")
+        if not body.startswith("A "):
+            raise ValueError("answer body must start with 'A '")
+        rest = body[2:]
         word, _, text = rest.partition(" ")
         if not word:
             raise ValueError("answer without a word")
