@@ -64,30 +64,40 @@ def test_clock_drift_sequence_and_wrap() -> None:
 
 
 def test_commands_are_answered() -> None:
+    # Commands, answers and error cases as firmware_notes/PROTOCOL.md section 5 lays them down.
     device = SimDevice(seed=4)
     device.generate(1.0)
-    device.write(encode_line("?P 7f3a") + encode_line("?H"))
-    device.write(b"?P no-crc\n" + b"?P 1*0000\n" + encode_line("?Z") + encode_line("!R 99999"))
-    device.write(encode_line("!R abc") + encode_line("!R 500")[:5])
+    device.write(encode_line("?P 7f3a") + encode_line("?H") + b"\n")
+    device.write(b"?P nocrc\n" + b"?P 1*0000\n" + encode_line("?Z") + encode_line("?P bad-token"))
+    device.write(encode_line("?P " + "x" * 40) + encode_line("!R 99999") + encode_line("!R 12.5"))
+    device.write(encode_line("!R 500")[:5])
     device.write(encode_line("!R 500")[5:])
     items = decode(device.generate(1.1))[0]
     texts = texts_of(items)
     assert texts[0] == Answer("pong", "7f3a")
     assert isinstance(texts[1], DeviceHeader) and texts[1].reason == "ask"
-    assert texts[2:6] == [Answer("err", "crc"), Answer("err", "crc"), Answer("err", "cmd"), Answer("err", "rate")]
-    assert texts[6:8] == [Answer("err", "rate"), Answer("rate", "500")]
-    assert isinstance(texts[8], DeviceHeader) and (texts[8].reason, texts[8].rate_hz) == ("rate", 500.0)
-    assert not any(isinstance(x, FrameBatch) for x in items[:9])  # answers come ahead of later data
+    err = [Answer("err", w) for w in ("crc", "crc", "cmd", "cmd", "cmd", "rate", "rate")]
+    assert texts[2:9] == err
+    assert texts[9] == Answer("rate", "500")
+    assert isinstance(texts[10], DeviceHeader) and (texts[10].reason, texts[10].rate_hz) == ("rate", 500.0)
+    assert len(texts) == 11
+    assert not any(isinstance(x, FrameBatch) for x in items[:11])  # answers come ahead of later data
     frames = frames_of(items)
     assert 49 <= len(frames) <= 51
     assert np.all(np.diff(frames.device_us.astype(np.int64)) == 2000)
+    assert frames.seq[0] == 1001  # the sequence runs on across a rate change
 
 
 def test_reset_restarts_sequence_and_sends_boot_header() -> None:
     device = SimDevice(seed=5, clock_start_us=1_000)
-    device.generate(2.0)
+    before = device.generate(2.0)
     device.reset(at_s=3.0)
-    items = decode(device.generate(3.01))[0]
+    after = device.generate(3.01)
+    # A reset cuts the line on its way; the lone newline sent at start-up ends the fragment, so the
+    # boot header survives (firmware_notes/PROTOCOL.md, 6.13).
+    items, decoder = decode(before[:-10] + after)
+    assert decoder.counters.rejected == 1 and decoder.counters.headers == 2
+    items = decode(after)[0]
     assert isinstance(items[0], DeviceHeader) and items[0].reason == "boot"
     frames = frames_of(items)
     assert frames.seq[0] == 0 and frames.device_us[0] == 1_000

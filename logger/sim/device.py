@@ -11,13 +11,14 @@ counters with what really happened.
 from __future__ import annotations
 
 import math
+import re
 from dataclasses import dataclass, replace
 from typing import Protocol
 
 import numpy as np
 
 from logger.sim.simple import SimpleRail
-from logger.wire import MAX_LINE, DeviceHeader, crc16, data_line_length, encode_frames, encode_line
+from logger.wire import DeviceHeader, crc16, data_line_length, encode_frames, encode_line
 
 CLOCK_MODULUS = 1 << 32
 _BLOCK = 1 << 16
@@ -26,6 +27,9 @@ _HEX = np.frombuffer(b"0123456789ABCDEF", dtype=np.uint8)
 _HEX_VALUE = np.zeros(256, dtype=np.int64)
 _HEX_VALUE[_HEX] = np.arange(16)
 _HEX_DIGITS = frozenset(b"0123456789ABCDEFabcdef")
+_TOKEN = re.compile(r"[0-9A-Za-z]{1,8}")
+COMMAND_BUFFER = 32
+"""Receive buffer for one command line, in bytes (the longest command is 17)."""
 
 
 class RigModel(Protocol):
@@ -110,7 +114,7 @@ class SimDevice:
         seed: int | None = 0,
         faults: LinkFaults | None = None,
         header_period_s: float = 10.0,
-        max_rate_hz: float = 2000.0,
+        max_rate_hz: int = 2000,
     ) -> None:
         self.model: RigModel = model if model is not None else SimpleRail(seed=seed)
         self.faults = faults or LinkFaults()
@@ -125,6 +129,7 @@ class SimDevice:
         self._fixed_clock_start = clock_start_us
         self._now_s = 0.0
         self._cmd = bytearray()
+        self._cmd_overflow = False
         self._boot()
 
     # -- state -------------------------------------------------------------------------------------
@@ -138,8 +143,9 @@ class SimDevice:
         self._seq = 0
         self._set_schedule(self.boot_rate_hz, 0.0)
         self._next_header_us = self.header_period_us
-        self._pending: list[bytes] = []
+        self._pending: list[bytes] = [b"\n"]  # ends any line cut short by the restart
         self._cmd.clear()
+        self._cmd_overflow = False
         self._queue_header("boot")
 
     def reset(self, at_s: float | None = None) -> None:
@@ -279,49 +285,51 @@ class SimDevice:
         self._pending.append(self._header_line(reason))
 
     def _answer(self, text: str) -> None:
-        try:
-            line = encode_line(f"A {text}")
-        except ValueError:  # an echoed token too long for one line
-            line = encode_line("A err cmd")
         self.truth.answers += 1
-        self._pending.append(line)
+        self._pending.append(encode_line(f"A {text}"))
 
     # -- input -------------------------------------------------------------------------------------
 
     def write(self, data: bytes) -> None:
-        """Take bytes from the host; each complete command line is answered at the current time."""
+        """Take bytes from the host; each complete command line is answered at the current time.
+
+        Like firmware with a small receive buffer, a line longer than :data:`COMMAND_BUFFER` bytes is
+        discarded up to its newline and answered with ``A err cmd``; empty lines are ignored.
+        """
         self._cmd += data
         while (end := self._cmd.find(b"\n")) >= 0:
             line = bytes(self._cmd[:end]).rstrip(b"\r")
             del self._cmd[: end + 1]
-            if line.strip():
+            overflowed, self._cmd_overflow = self._cmd_overflow or len(line) > COMMAND_BUFFER, False
+            if overflowed:
+                self._answer("err cmd")
+            elif line:
                 self._command(line)
-        if len(self._cmd) >= MAX_LINE:  # junk without a newline: forget it, as firmware would
+        if len(self._cmd) > COMMAND_BUFFER:
             self._cmd.clear()
+            self._cmd_overflow = True
 
     def _command(self, line: bytes) -> None:
         body, star, sent = line.rpartition(b"*")
         if not star or len(sent) != 4 or not set(sent) <= _HEX_DIGITS or crc16(body) != int(sent, 16):
             self._answer("err crc")
             return
-        word, _, arg = body.decode("ascii", "replace").partition(" ")
-        if word == "?H":
+        text = body.decode("ascii", "replace")
+        if text == "?H":
             self._queue_header("ask")
-        elif word == "?P":
-            self._answer(f"pong {arg}".rstrip())
-        elif word == "!R":
-            self._change_rate(arg)
+        elif text.startswith("?P ") and _TOKEN.fullmatch(text[3:]):
+            self._answer(f"pong {text[3:]}")
+        elif text.startswith("!R "):
+            self._change_rate(text[3:])
         else:
             self._answer("err cmd")
 
     def _change_rate(self, arg: str) -> None:
-        try:
-            rate_hz = float(arg)
-        except ValueError:
-            rate_hz = math.nan
-        if not 1.0 <= rate_hz <= self.max_rate_hz:
+        """Accept a decimal integer rate the device can do; the next sample follows one new period on."""
+        if not (arg.isascii() and arg.isdigit()) or not 1 <= int(arg) <= self.max_rate_hz:
             self._answer("err rate")
             return
+        rate_hz = int(arg)
         self._set_schedule(rate_hz, float(self._elapsed_us(self._now_s)) + 1e6 / rate_hz)
-        self._answer(f"rate {rate_hz:g}")
+        self._answer(f"rate {rate_hz}")
         self._queue_header("rate")
