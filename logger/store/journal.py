@@ -121,9 +121,7 @@ def open_journal(path: Path) -> tuple[pa.Schema, Iterator[pa.RecordBatch]] | Non
     if not head:
         return None
     if not head.startswith(_CONTINUATION[: len(head)]):
-        raise StoreError(
-            f"{path} is not a railtap journal (not an Arrow IPC stream); move it out of the run folder"
-        )
+        raise StoreError(f"{path} is not a railtap journal (not an Arrow IPC stream); move it out of the run folder")
     source = pa.OSFile(str(path), "rb")
     try:
         reader = pa.ipc.open_stream(source)
@@ -132,9 +130,7 @@ def open_journal(path: Path) -> tuple[pa.Schema, Iterator[pa.RecordBatch]] | Non
         source.close()
         if len(head) < 8 or size < 8 + int.from_bytes(head[4:8], "little"):
             return None  # cut inside the schema message: nothing was ever recorded in it
-        raise StoreError(
-            f"{path} is a corrupt journal ({one_line(str(exc))}); move it out of the run folder"
-        ) from None
+        raise StoreError(f"{path} is a corrupt journal ({one_line(str(exc))}); move it out of the run folder") from None
     return reader.schema, _batches(reader, source)
 
 

@@ -74,7 +74,9 @@ def find_unfinished(root: Path) -> list[Path]:
     and left its journal) and no live process holds its lock. Folders with an unreadable ``_run.json`` are
     skipped; :func:`recover_run` on them names the problem.
     """
-    found = []
+    found: list[Path] = []
+    if not Path(root).is_dir():
+        return found
     for child in sorted(Path(root).iterdir()):
         if not (child / RUN_JSON).is_file():
             continue
@@ -118,6 +120,7 @@ def _recover_locked(folder: Path, metadata: dict[str, Any]) -> dict[str, Any]:
                 part_index=index,
                 time_column="utc",
                 expect_columns=columns,
+                keep_empty=not parts_in(folder),  # an empty run still gets one (empty) part
             )
         path = folder / EVENTS_PARQUET
         events = _recover_events(folder, start)
@@ -127,9 +130,7 @@ def _recover_locked(folder: Path, metadata: dict[str, Any]) -> dict[str, Any]:
         path = folder / RUN_JSON
         write_json_atomic(path, final)
     except OSError as exc:
-        raise StoreError(
-            f"{os_error_text(exc, path)}; fix that, then run `railtap recover {folder}` again"
-        ) from None
+        raise StoreError(f"{os_error_text(exc, path)}; fix that, then run `railtap recover {folder}` again") from None
     fsync_dir(folder)
     return final
 
@@ -150,9 +151,7 @@ def _recover_events(folder: Path, start: dict[str, Any]) -> int:
                 options_for=event_parquet_options,
             )
     if not target.exists():
-        write_empty(
-            target, event_schema(), run_metadata=start, part_index=None, options_for=event_parquet_options
-        )
+        write_empty(target, event_schema(), run_metadata=start, part_index=None, options_for=event_parquet_options)
     return _read_metadata(target).num_rows
 
 

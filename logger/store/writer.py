@@ -109,12 +109,14 @@ class RunWriter:
         self._start = start_metadata({**defaults, **metadata}, schema, part_seconds)
         self._metadata: dict[str, Any] = {**self._start, "status": "recording"}
         self._journal: JournalWriter | None = None
+        path = self.folder / RUN_JSON
         try:
-            write_json_atomic(self.folder / RUN_JSON, self._metadata)
-            self._journal = JournalWriter(self.folder / journal_name(0), schema)
+            write_json_atomic(path, self._metadata)
+            path = self.folder / journal_name(0)
+            self._journal = JournalWriter(path, schema)
         except OSError as exc:
             self._lock.release()
-            raise StoreError(f"{os_error_text(exc, self.folder)}; choose a folder you can write to") from None
+            raise StoreError(f"{os_error_text(exc, path)}; fix that or choose another folder") from None
         self._last_flush = clock()
 
     # ------------------------------------------------------------------ recording
@@ -221,6 +223,21 @@ class RunWriter:
         self._final = self._metadata
         return self._final
 
+    def abandon(self, reason: str = "abandoned before a clean close") -> None:
+        """Stop without sealing: push buffered rows to the journal if possible, then close every file as it
+        is, mark the run ``failed`` and release the lock, so ``railtap recover`` can seal it later.
+
+        For a caller that must stop after an error of its own. Safe after a failure or a close (no-op).
+        """
+        if self._final is not None or self._error is not None:
+            return
+        with contextlib.suppress(StoreError):
+            self.flush()
+        if self._error is not None:
+            return
+        self._error = StoreError(f"run {self.folder} was abandoned; run `railtap recover {self.folder}`")
+        self._stop_files({"status": "failed", "stop_reason": reason})
+
     # ------------------------------------------------------------------ state
 
     @property
@@ -246,9 +263,7 @@ class RunWriter:
     def __enter__(self) -> RunWriter:
         return self
 
-    def __exit__(
-        self, kind: type[BaseException] | None, exc: BaseException | None, tb: TracebackType | None
-    ) -> None:
+    def __exit__(self, kind: type[BaseException] | None, exc: BaseException | None, tb: TracebackType | None) -> None:
         self.close("finished" if exc is None else f"stopped by {kind.__name__ if kind else 'error'}: {exc}")
 
     # ------------------------------------------------------------------ internals
@@ -314,7 +329,12 @@ class RunWriter:
         try:
             self._journal.close()
             sealed = seal_journal(
-                journal, target, run_metadata=self._start, part_index=self._part_index, time_column="utc"
+                journal,
+                target,
+                run_metadata=self._start,
+                part_index=self._part_index,
+                time_column="utc",
+                keep_empty=not self._parts,
             )
         except (OSError, pa.ArrowException) as exc:
             self._fail(exc, temp_name(target))
@@ -359,14 +379,18 @@ class RunWriter:
             until = (utc_text(self._safe_until_us) or "")[:19].replace("T", " ")
             safe = f"samples up to {until} UTC are safe on disk"
         self._error = StoreError(f"{what}; {fix}, then run `railtap recover {self.folder}`; {safe}")
+        self._stop_files({"status": "failed", "error": str(self._error)})
+        raise self._error from None
+
+    def _stop_files(self, changes: dict[str, Any]) -> None:
+        """Close journals without writing more, note ``changes`` in ``_run.json`` if possible, unlock."""
         for journal in (self._journal, self._events):
             if journal is not None:
                 journal.abandon()
-        self._metadata = {**self._metadata, "status": "failed", "error": str(self._error)}
+        self._metadata = {**self._metadata, **changes}
         with contextlib.suppress(OSError):
             write_json_atomic(self.folder / RUN_JSON, self._metadata)
         self._lock.release()
-        raise self._error from None
 
 
 def _prepare_folder(folder: Path) -> None:
