@@ -565,3 +565,14 @@ def test_find_unfinished_lists_only_recoverable_runs(tmp_path: Path) -> None:
     (tmp_path / "d-not-a-run").mkdir()
     assert find_unfinished(tmp_path) == [tmp_path / "b-crashed"]
     live.close("done")
+
+
+def test_split_by_slot_never_goes_back() -> None:
+    from logger.store.batches import split_by_slot
+
+    utc_ms = [0, 500, 1200, 900, 1500, 2100, 5000]  # 900 is a host clock step back
+    batch = make_batch(0, len(utc_ms)).set_column(
+        0, "utc", pa.array([T0_US + ms * 1000 for ms in utc_ms], pa.timestamp("us", tz="UTC"))
+    )
+    pieces = [(slot, piece.column("seq").to_pylist()) for slot, piece in split_by_slot(batch, T0_US, 1_000_000, 0)]
+    assert pieces == [(0, [0, 1]), (1, [2, 3, 4]), (2, [5]), (5, [6])]

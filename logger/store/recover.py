@@ -72,7 +72,7 @@ def find_unfinished(root: Path) -> list[Path]:
 
     A run needs it when its ``_run.json`` says ``recording`` (or ``failed``: the writer stopped on an error
     and left its journal) and no live process holds its lock. Folders with an unreadable ``_run.json`` are
-    skipped; :func:`recover_run` on them names the problem.
+    skipped (:func:`recover_run` on them names the problem); a missing ``root`` gives an empty list.
     """
     found: list[Path] = []
     if not Path(root).is_dir():

@@ -15,18 +15,17 @@ from __future__ import annotations
 
 import contextlib
 import errno
-import itertools
 import socket
 import time
-from collections.abc import Callable, Iterator
+from collections.abc import Callable
 from pathlib import Path
 from types import TracebackType
 from typing import Any, NoReturn
 
-import numpy as np
 import pyarrow as pa
 
 from logger import __version__
+from logger.store.batches import conform, split_by_slot
 from logger.store.files import (
     RUN_JSON,
     RunLock,
@@ -129,10 +128,12 @@ class RunWriter:
             StoreError: The run cannot be written (disk full...); the writer is then failed and unlocked.
         """
         self._check_usable()
-        batch = self._conform(batch)
+        batch = conform(batch, self.schema)
         if batch.num_rows == 0:
             return
-        for slot, piece in self._split_by_part(batch):
+        if self._t0_us is None:
+            self._t0_us = batch.column("utc")[0].cast(pa.int64()).as_py()
+        for slot, piece in split_by_slot(batch, self._t0_us, self._part_us, self._slot or 0):
             if self._slot is None:
                 self._slot = slot
             elif slot != self._slot:
@@ -273,38 +274,6 @@ class RunWriter:
             raise self._error
         if self._final is not None:
             raise ValueError(f"run {self.folder} is closed")
-
-    def _conform(self, batch: pa.RecordBatch) -> pa.RecordBatch:
-        """The batch in exactly the writer's schema (columns reordered, safely cast), or ValueError."""
-        if batch.schema.equals(self.schema):
-            return batch
-        extra = sorted(set(batch.schema.names) - set(self.schema.names))
-        if extra:
-            raise ValueError(f"batch has columns the run does not record: {extra}")
-        columns = []
-        for field in self.schema:
-            if field.name not in batch.schema.names:
-                raise ValueError(f"batch lacks column {field.name!r}")
-            column = batch.column(field.name)
-            if column.null_count:
-                raise ValueError(f"column {field.name!r} has nulls; samples must be complete")
-            try:
-                columns.append(column.cast(field.type) if column.type != field.type else column)
-            except (pa.ArrowInvalid, pa.ArrowNotImplementedError) as exc:
-                problem = f"cannot store {column.type} as {field.type}: {exc}"
-                raise ValueError(f"column {field.name!r}: {problem}") from None
-        return pa.RecordBatch.from_arrays(columns, schema=self.schema)
-
-    def _split_by_part(self, batch: pa.RecordBatch) -> Iterator[tuple[int, pa.RecordBatch]]:
-        """Pieces of ``batch`` by part slot. Slots never go back: a late row stays in the current part."""
-        utc = batch.column("utc").cast(pa.int64()).to_numpy()
-        if self._t0_us is None:
-            self._t0_us = int(utc[0])
-        slots = (utc - self._t0_us) // self._part_us
-        slots = np.maximum.accumulate(np.maximum(slots, self._slot or 0))
-        edges = [0, *(np.flatnonzero(np.diff(slots)) + 1).tolist(), len(slots)]
-        for start, stop in itertools.pairwise(edges):
-            yield int(slots[start]), batch.slice(start, stop - start)
 
     def _flush_if_due(self) -> None:
         due = self._clock() - self._last_flush >= self._flush_s
