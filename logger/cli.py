@@ -1,0 +1,280 @@
+"""The ``railtap`` command: turns arguments into calls on the parts, and errors into one plain line."""
+
+from __future__ import annotations
+
+import argparse
+import signal
+import sys
+import threading
+import time
+from pathlib import Path
+from typing import Any
+
+from logger import __version__
+from logger.live import Snapshot
+from logger.pipeline import Pipeline, Settings
+from logger.rig import Rig, RigError, demo_rig_text, load_rig, parse_rig
+from logger.sources.base import Source, SourceError
+from logger.store import StoreError
+
+
+class UsageError(Exception):
+    """A command line that cannot work; the message says what to do instead."""
+
+
+def main(argv: list[str] | None = None) -> int:
+    parser = _parser()
+    args = parser.parse_args(argv)
+    if not hasattr(args, "run"):
+        parser.print_help()
+        return 2
+    try:
+        return args.run(args)
+    except (UsageError, RigError, SourceError, StoreError) as exc:
+        print(f"railtap: {exc}", file=sys.stderr)
+        return 2
+    except KeyboardInterrupt:
+        return 130
+
+
+def _parser() -> argparse.ArgumentParser:
+    p = argparse.ArgumentParser(prog="railtap", description="Calibrated, crash-safe logging of DC rails.")
+    p.add_argument("--version", action="version", version=f"railtap {__version__}")
+    sub = p.add_subparsers(title="commands", metavar="COMMAND")
+
+    rec = sub.add_parser("record", help="record a rig to a run folder, without a screen")
+    _source_options(rec)
+    _record_options(rec)
+    rec.set_defaults(run=cmd_record)
+
+    demo = sub.add_parser("demo", help="record the built-in simulated rig (no hardware needed)")
+    _record_options(demo)
+    demo.add_argument("--speed", type=float, default=1.0, help="simulated seconds per real second")
+    demo.add_argument("--seed", type=int, default=1, help="random seed of the simulated rig")
+    demo.set_defaults(run=cmd_demo)
+
+    sim = sub.add_parser("sim", help="serve the simulated rig on a pseudo-terminal for any serial client")
+    sim.add_argument("--pty", action="store_true", required=True, help="serve on a new pseudo-terminal")
+    sim.add_argument("--speed", type=float, default=1.0, help="simulated seconds per real second")
+    sim.add_argument("--seed", type=int, default=1)
+    sim.set_defaults(run=cmd_sim)
+
+    ports = sub.add_parser("ports", help="list serial ports")
+    ports.set_defaults(run=cmd_ports)
+
+    recover = sub.add_parser("recover", help="seal the parts of runs cut short by a crash or power loss")
+    recover.add_argument("paths", nargs="*", type=Path, default=[Path("runs")],
+                         help="run folders, or folders of runs (default: runs)")
+    recover.set_defaults(run=cmd_recover)
+
+    rig = sub.add_parser("rig", help="write or check a rig file")
+    rig_sub = rig.add_subparsers(title="rig commands", metavar="ACTION", required=True)
+    init = rig_sub.add_parser("init", help="write a commented example rig file")
+    init.add_argument("file", type=Path)
+    init.set_defaults(run=cmd_rig_init)
+    check = rig_sub.add_parser("check", help="read a rig file and show what it describes")
+    check.add_argument("file", type=Path)
+    check.set_defaults(run=cmd_rig_check)
+    return p
+
+
+def _source_options(p: argparse.ArgumentParser) -> None:
+    where = p.add_mutually_exclusive_group()
+    where.add_argument("--port", help="serial port or pyserial URL (COM5, /dev/ttyACM0, socket://host:7000)")
+    where.add_argument("--sim", action="store_true", help="the built-in simulated rig")
+    where.add_argument("--replay", type=Path, metavar="FILE", help="a raw capture (_raw.arrows or plain bytes)")
+    p.add_argument("--rig", type=Path, help="rig file (default: the demo rig, which matches --sim)")
+    p.add_argument("--baud", type=int, help="baud rate (default: the rig file's, else 921600)")
+    p.add_argument("--speed", type=float, default=None,
+                   help="for --sim and --replay: simulated seconds per real second (0 = as fast as possible)")
+    p.add_argument("--seed", type=int, default=1, help="random seed of the simulated rig")
+
+
+def _record_options(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--out", type=Path, default=Path("runs"), help="folder that holds run folders (default: runs)")
+    p.add_argument("--label", default="", help="words for the run folder's name (default: the rig's name)")
+    p.add_argument("--duration", type=float, metavar="SECONDS", help="stop after this much device time")
+    p.add_argument("--part-minutes", type=float, default=60.0, help="start a new Parquet part this often")
+    p.add_argument("--keep-raw", action="store_true", help="also keep the raw bytes, for replay")
+    p.add_argument("--quiet", action="store_true", help="no status lines, only the final summary")
+
+
+# -- commands ----------------------------------------------------------------------------------------
+
+
+def cmd_record(args: argparse.Namespace) -> int:
+    rig = _rig(args)
+    return _record(_source(args, rig), rig, args)
+
+
+def cmd_demo(args: argparse.Namespace) -> int:
+    from logger.sources.simulated import SimSource
+
+    rig = parse_rig(demo_rig_text(), "built-in demo rig")
+    print("railtap demo: recording the built-in simulated rig (an invented 12 V bench supply); Ctrl-C stops.",
+          file=sys.stderr)
+    return _record(SimSource(speed=args.speed, seed=args.seed), rig, args)
+
+
+def cmd_sim(args: argparse.Namespace) -> int:
+    from logger.sources.pty_server import serve_on_pty
+
+    stop = threading.Event()
+    _on_signals(lambda: stop.set())
+
+    def ready(path: str) -> None:
+        print(f"simulated rig on {path}; connect with `railtap record --port {path}`; Ctrl-C stops", flush=True)
+
+    try:
+        serve_on_pty(speed=args.speed, seed=args.seed, stop_event=stop, on_ready=ready)
+    except KeyboardInterrupt:
+        stop.set()
+    return 0
+
+
+def cmd_ports(args: argparse.Namespace) -> int:
+    from logger.sources.serial_port import list_ports, no_ports_hint
+
+    found = list_ports()
+    for line in found:
+        print(line)
+    if not found:
+        print(no_ports_hint(), file=sys.stderr)
+    return 0
+
+
+def cmd_recover(args: argparse.Namespace) -> int:
+    from logger.store import find_unfinished, recover_run
+
+    runs: list[Path] = []
+    for path in args.paths:
+        if (path / "_run.json").exists():
+            runs.append(path)
+        elif path.is_dir():
+            runs.extend(find_unfinished(path))
+        else:
+            raise UsageError(f"{path}: not a run folder or a folder of runs")
+    if not runs:
+        print("nothing to recover", file=sys.stderr)
+    for run in runs:
+        meta = recover_run(run)
+        print(f"{run}: {meta.get('status')}, {meta.get('rows', 0)} rows in {len(meta.get('parts', []))} part(s)")
+    return 0
+
+
+def cmd_rig_init(args: argparse.Namespace) -> int:
+    if args.file.exists():
+        raise UsageError(f"{args.file} exists; choose another name or delete it first")
+    args.file.write_text(demo_rig_text(), encoding="utf-8")
+    print(f"wrote {args.file}; edit it to match your wiring, then `railtap rig check {args.file}`")
+    return 0
+
+
+def cmd_rig_check(args: argparse.Namespace) -> int:
+    rig = load_rig(args.file)
+    print(f"{args.file}: rig {rig.name!r}, {len(rig.channels)} channel(s)")
+    for ch in rig.channels:
+        scale = f"shunt {ch.shunt_ohm:g} ohm x gain {ch.gain:g}" if ch.role == "amps" else f"divider {ch.divider:g}"
+        sign = ", negative rail" if ch.negative else ""
+        nominal = f", nominal {ch.nominal:g} {ch.unit}" if ch.nominal is not None else ""
+        print(f"  input {ch.input}: {ch.name} ({ch.role}, {scale}{sign}{nominal})")
+    return 0
+
+
+# -- helpers -----------------------------------------------------------------------------------------
+
+
+def _rig(args: argparse.Namespace) -> Rig:
+    if args.rig is not None:
+        return load_rig(args.rig)
+    if args.port is not None:
+        raise UsageError("--port needs --rig FILE to know what each input measures; "
+                         "write one with `railtap rig init rig.toml`")
+    return parse_rig(demo_rig_text(), "built-in demo rig")
+
+
+def _source(args: argparse.Namespace, rig: Rig) -> Source:
+    if args.replay is not None:
+        from logger.sources.replay import ReplaySource
+
+        return ReplaySource(args.replay, speed=args.speed or 0.0)
+    if args.port is not None or (rig.device.port and not args.sim):
+        from logger.sources.serial_port import SerialSource
+
+        return SerialSource(args.port or rig.device.port, args.baud or rig.device.baud)
+    from logger.sources.simulated import SimSource
+
+    return SimSource(speed=1.0 if args.speed is None else args.speed, seed=args.seed)
+
+
+def _record(source: Source, rig: Rig, args: argparse.Namespace) -> int:
+    _recover_leftovers(args.out)
+    settings = Settings(
+        record_root=args.out,
+        label=args.label,
+        part_seconds=args.part_minutes * 60.0,
+        keep_raw=args.keep_raw,
+        duration_s=args.duration,
+    )
+    pipeline = Pipeline(source, rig, settings)
+    pipeline.start()
+    _on_signals(lambda: pipeline.request_stop("stopped by signal"))
+    every = 2.0 if sys.stderr.isatty() else 10.0
+    try:
+        while not pipeline.wait(every):
+            if not args.quiet:
+                print(status_line(pipeline.snapshot()), file=sys.stderr, flush=True)
+    except KeyboardInterrupt:
+        pipeline.request_stop("stopped by user")
+        pipeline.wait()
+    return _report(pipeline)
+
+
+def _recover_leftovers(root: Path) -> None:
+    from logger.store import find_unfinished, recover_run
+
+    if not root.is_dir():
+        return
+    for run in find_unfinished(root):
+        meta = recover_run(run)
+        print(f"railtap: recovered {run} ({meta.get('rows', 0)} rows) left by an unclean stop", file=sys.stderr)
+
+
+def _report(pipeline: Pipeline) -> int:
+    snap = pipeline.snapshot()
+    final: dict[str, Any] | None = pipeline.final
+    if final is not None:
+        print(f"{final.get('folder', pipeline.recorder.folder)}: {final.get('rows', 0)} rows, "
+              f"{len(final.get('parts', []))} part(s); {final.get('stop_reason', pipeline.stop_reason)}")
+    link = snap.link
+    print(f"frames {link.frames}, lost {link.lost}, rejected lines {link.rejected} (bad CRC {link.bad_crc}), "
+          f"device resets {link.resets}, reconnects {link.reconnects}, clock drift {link.drift_ppm:+.1f} ppm")
+    if pipeline.error:
+        print(f"railtap: {pipeline.error}", file=sys.stderr)
+        return 1
+    return 0
+
+
+def status_line(snap: Snapshot) -> str:
+    """One line for a terminal or a log: time, values, link and recording state."""
+    parts = [time.strftime("%H:%M:%S")]
+    if snap.latest is not None:
+        parts.append("  ".join(f"{n} {v:8.3f} {u}" for n, v, u in zip(snap.channels, snap.latest, snap.units,
+                                                                    strict=True)))
+    link = snap.link
+    parts.append(f"{link.rate_hz:6.0f} frames/s, lost {link.lost}, rejected {link.rejected}")
+    if snap.recording is not None:
+        parts.append(f"{snap.recording.rows} rows, {snap.recording.bytes_on_disk / 1e6:.1f} MB")
+    if snap.state != "running":
+        parts.append(snap.message)
+    return " | ".join(parts)
+
+
+def _on_signals(handler: Any) -> None:
+    """SIGTERM and SIGHUP stop as cleanly as Ctrl-C (an unattended run gets parts sealed either way)."""
+    if threading.current_thread() is not threading.main_thread():
+        return
+    for name in ("SIGTERM", "SIGHUP"):
+        sig = getattr(signal, name, None)
+        if sig is not None:
+            signal.signal(sig, lambda *_: handler())

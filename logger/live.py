@@ -1,0 +1,88 @@
+"""Live state shared between the ingest thread and whoever watches: a ring of recent samples and a snapshot.
+
+The ingest thread appends whole batches under a short lock; readers copy what they need under the same lock
+and get immutable objects, so the screen never slows ingest and never sees a half-written batch.
+"""
+
+from __future__ import annotations
+
+import threading
+from dataclasses import dataclass, field
+
+import numpy as np
+
+
+class Ring:
+    """The most recent ``capacity`` samples: UTC microseconds and one float32 column per channel."""
+
+    def __init__(self, capacity: int, width: int) -> None:
+        self.capacity = capacity
+        self.utc_us = np.zeros(capacity, dtype=np.int64)
+        self.values = np.zeros((capacity, width), dtype=np.float32)
+        self.written = 0
+        self._lock = threading.Lock()
+
+    def extend(self, utc_us: np.ndarray, values: np.ndarray) -> None:
+        """Append a batch, keeping only the newest ``capacity`` rows."""
+        n = len(utc_us)
+        if n > self.capacity:
+            utc_us, values = utc_us[-self.capacity :], values[-self.capacity :]
+            self.written += n - self.capacity
+            n = self.capacity
+        pos = np.arange(self.written, self.written + n) % self.capacity
+        with self._lock:
+            self.utc_us[pos] = utc_us
+            self.values[pos] = values
+            self.written += n
+
+    def latest(self, count: int) -> tuple[np.ndarray, np.ndarray]:
+        """Copies of the newest ``count`` rows (or fewer), oldest first."""
+        with self._lock:
+            count = min(count, self.written, self.capacity)
+            pos = np.arange(self.written - count, self.written) % self.capacity
+            return self.utc_us[pos], self.values[pos]
+
+
+@dataclass(frozen=True)
+class LinkHealth:
+    """How well bytes are turning into samples."""
+
+    source: str
+    connected: bool
+    frames: int
+    rate_hz: float
+    lost: int
+    rejected: int
+    bad_crc: int
+    resets: int
+    reconnects: int
+    drift_ppm: float
+    decoder: dict[str, int] = field(default_factory=dict)
+
+
+@dataclass(frozen=True)
+class RecordingState:
+    folder: str | None
+    rows: int
+    bytes_on_disk: int
+    elapsed_s: float
+    journal_lag_rows: int
+    """Rows taken but not yet safe on disk."""
+    error: str | None = None
+
+
+@dataclass(frozen=True)
+class Snapshot:
+    """Everything a screen or a status line shows, frozen at one moment."""
+
+    state: str
+    """waiting, running, reconnecting, stopped or failed."""
+    message: str
+    channels: tuple[str, ...]
+    units: tuple[str, ...]
+    latest: np.ndarray | None
+    minimum: np.ndarray | None
+    maximum: np.ndarray | None
+    link: LinkHealth
+    recording: RecordingState | None
+    events: tuple[dict, ...] = ()

@@ -1,0 +1,421 @@
+"""Wires a source to the decoder, clock, calibrator, recorder and live state, in one ingest thread.
+
+The ingest thread reads in bulk, decodes, stamps and calibrates whole batches, hands them to the recorder's
+queue and the live ring, and goes back to the port. Anyone watching calls :meth:`Pipeline.snapshot`.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import threading
+import time
+from collections import deque
+from dataclasses import dataclass
+from datetime import UTC, datetime, timedelta
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pyarrow as pa
+
+from logger import __version__
+from logger.calibration import Calibrator
+from logger.clock import ClockFit, Unwrapper
+from logger.live import LinkHealth, RecordingState, Ring, Snapshot
+from logger.recording import Recorder
+from logger.rig import Rig, RigError
+from logger.sources.base import Chunk, LinkLost, Source, SourceError
+from logger.store import sample_schema
+from logger.wire import Answer, Decoder, DeviceHeader, FrameBatch, encode_line
+
+ASK_HEADER = encode_line("?H")
+
+
+@dataclass(frozen=True)
+class Settings:
+    """How a pipeline runs; everything has a default a user would expect."""
+
+    record_root: Path | None = Path("runs")
+    label: str = ""
+    part_seconds: float = 3600.0
+    keep_raw: bool = False
+    duration_s: float | None = None
+    live_seconds: float = 60.0
+    gap_event_s: float = 0.05
+    header_wait_s: float = 10.0
+    retry_s: float = 1.0
+
+
+class Pipeline:
+    """One run: from the first byte to sealed parts. Start it, watch snapshots, stop it."""
+
+    def __init__(self, source: Source, rig: Rig, settings: Settings | None = None) -> None:
+        self.source = source
+        self.rig = rig
+        self.settings = settings or Settings()
+        self.decoder = Decoder()
+        self.unwrapper = Unwrapper()
+        self.clock = ClockFit()
+        self.header: DeviceHeader | None = None
+        self.calibrator: Calibrator | None = None
+        self.recorder: Recorder | None = None
+        self.ring: Ring | None = None
+        self.state = "waiting"
+        self.message = f"opening {source.name}"
+        self.error: str | None = None
+        self.stop_reason = "stopped by user"
+        self.final: dict[str, Any] | None = None
+        self.answers: deque[Answer] = deque(maxlen=20)
+        self.reconnects = 0
+        self._names = tuple(ch.name for ch in rig.channels)
+        self._schema = sample_schema(self._names)
+        self._pending: list[tuple[FrameBatch, float]] = []
+        self._pending_raw: list[Chunk] = []
+        self._events: deque[dict[str, Any]] = deque(maxlen=200)
+        self._minmax: tuple[np.ndarray, np.ndarray] | None = None
+        self._rate_marks: deque[tuple[float, int]] = deque(maxlen=64)
+        self._first_us: int | None = None
+        self._last_us: int | None = None
+        self._last_utc_us: int | None = None
+        self._stop = threading.Event()
+        self._thread = threading.Thread(target=self._run, name="railtap-ingest", daemon=True)
+
+    # -- control ---------------------------------------------------------------------------------
+
+    def start(self) -> None:
+        """Open the source (raises :class:`SourceError` at once if it cannot) and start ingesting."""
+        self.source.open()
+        self._send(ASK_HEADER)
+        self._asked_at = time.monotonic()
+        self._started_at = time.monotonic()
+        self.state, self.message = "waiting", f"connected to {self.source.name}; waiting for the device header"
+        self._thread.start()
+
+    def request_stop(self, reason: str = "stopped by user") -> None:
+        self.stop_reason = reason
+        self._stop.set()
+
+    def wait(self, timeout: float | None = None) -> bool:
+        """Block until the run has ended; True if it has."""
+        self._thread.join(timeout)
+        return not self._thread.is_alive()
+
+    def stop(self, reason: str = "stopped by user") -> dict[str, Any] | None:
+        """Stop, seal everything and return the run's final metadata (None if nothing was recorded)."""
+        self.request_stop(reason)
+        self.wait()
+        return self.final
+
+    # -- ingest thread ---------------------------------------------------------------------------
+
+    def _run(self) -> None:
+        try:
+            while not self._stop.is_set():
+                if not self._step():
+                    break
+                if self.recorder is not None and not self.recorder.alive:
+                    self._fail(self.recorder.error or "recorder stopped")
+                    break
+        except (RigError, SourceError) as exc:
+            self._fail(str(exc))
+        finally:
+            self._finish()
+
+    def _step(self) -> bool:
+        try:
+            chunk = self.source.read()
+        except LinkLost as exc:
+            return self._reconnect(str(exc))
+        if chunk is None:
+            self.stop_reason = "source ended"
+            return False
+        if chunk.data:
+            self._ingest(chunk)
+        self._watch_header()
+        return not self._duration_reached()
+
+    def _ingest(self, chunk: Chunk) -> None:
+        if self.recorder is not None:
+            self.recorder.add_raw(chunk)
+        elif self.settings.keep_raw:
+            self._pending_raw.append(chunk)
+        for item in self.decoder.feed(chunk.data):
+            if isinstance(item, FrameBatch):
+                if self.calibrator is None:
+                    self._pending.append((item, chunk.host_time))
+                else:
+                    self._emit(item, chunk.host_time)
+            elif isinstance(item, DeviceHeader):
+                self._on_header(item)
+            else:
+                self.answers.append(item)
+        self._rate_marks.append((time.monotonic(), self.decoder.counters.frames))
+
+    def _on_header(self, header: DeviceHeader) -> None:
+        first = self.header is None
+        if header.reason == "boot" and not first:
+            self.unwrapper.restart()
+        self.unwrapper.set_rate(header.rate_hz)
+        if first or header.channels != self.header.channels or header.adc_bits != self.header.adc_bits \
+                or header.vref_mv != self.header.vref_mv:
+            self.calibrator = Calibrator(self.rig, header)
+        self.header = header
+        if first:
+            self._begin(header)
+
+    def _begin(self, header: DeviceHeader) -> None:
+        """First header: size the live ring, open the run folder, then flush what waited for the header."""
+        capacity = max(1024, int(self.settings.live_seconds * header.rate_hz))
+        self.ring = Ring(capacity, len(self._names))
+        if self.settings.record_root is not None:
+            self._open_recorder(header)
+        self.state, self.message = "running", f"receiving from {self.source.name}"
+        pending, self._pending = self._pending, []
+        for batch, host_time in pending:
+            self._emit(batch, host_time)
+
+    def _open_recorder(self, header: DeviceHeader) -> None:
+        metadata = {
+            "software": f"railtap {__version__}",
+            "source": self.source.name,
+            "rig_name": self.rig.name,
+            "rig_file": self.rig.source,
+            "rig": self.rig.text,
+            "device_header": header.body(),
+            "channels_info": [
+                {"name": ch.name, "role": ch.role, "unit": ch.unit, "nominal": ch.nominal, "input": ch.input}
+                for ch in self.rig.channels
+            ],
+        }
+        self.recorder = Recorder(
+            self.settings.record_root,
+            self.settings.label or self.rig.name,
+            self._schema,
+            metadata,
+            part_seconds=self.settings.part_seconds,
+            keep_raw=self.settings.keep_raw,
+        )
+        for chunk in self._pending_raw:
+            self.recorder.add_raw(chunk)
+        self._pending_raw = []
+
+    def _emit(self, batch: FrameBatch, host_time: float) -> None:
+        u = self.unwrapper.feed(batch.seq, batch.device_us, host_time)
+        if len(u.seq) == 0 or self._duration_reached():
+            return
+        if self._first_us is None:
+            self._first_us = int(u.device_us[0])
+        self.clock.observe(int(u.device_us[-1]), host_time)
+        within = self._within_duration(u.device_us)
+        device_us, seq, raw = u.device_us[within], u.seq[within], batch.counts[u.keep][within]
+        utc = self.clock.to_utc_us(device_us)
+        counts = self.calibrator.select(raw)
+        values = self.calibrator.apply(raw)
+        self._link_events(u.gaps, u.resets, utc)
+        self._track(utc, values, device_us)
+        if self.recorder is not None:
+            self.recorder.add_batch(self._record_batch(utc, device_us, seq, values, counts))
+
+    def _within_duration(self, device_us: np.ndarray) -> slice:
+        """Rows up to the end of ``--duration`` (measured on the device clock from the first sample)."""
+        if self.settings.duration_s is None:
+            return slice(None)
+        end_us = self._first_us + int(round(self.settings.duration_s * 1e6))
+        return slice(0, int(np.searchsorted(device_us, end_us, side="left")))
+
+    def _record_batch(
+        self, utc: np.ndarray, device_us: np.ndarray, seq: np.ndarray, values: np.ndarray, counts: np.ndarray
+    ) -> pa.RecordBatch:
+        columns: list[pa.Array] = [
+            pa.array(utc, type=pa.timestamp("us", tz="UTC")),
+            pa.array(device_us, type=pa.int64()),
+            pa.array(seq, type=pa.int64()),
+        ]
+        for k in range(len(self._names)):
+            columns.append(pa.array(values[:, k], type=pa.float32()))
+            columns.append(pa.array(counts[:, k], type=pa.uint16()))
+        return pa.RecordBatch.from_arrays(columns, schema=self._schema)
+
+    def _track(self, utc: np.ndarray, values: np.ndarray, device_us: np.ndarray) -> None:
+        if len(utc) == 0:
+            return
+        self.ring.extend(utc, values)
+        lo, hi = values.min(axis=0), values.max(axis=0)
+        if self._minmax is not None:
+            lo, hi = np.minimum(lo, self._minmax[0]), np.maximum(hi, self._minmax[1])
+        self._minmax = (lo, hi)
+        if len(utc):
+            self._last_us = int(device_us[-1])
+            self._last_utc_us = int(utc[-1])
+
+    def _link_events(self, gaps: list[tuple[int, int]], resets: list[int], utc: np.ndarray) -> None:
+        rate = self.header.rate_hz if self.header else 1000.0
+        for row, lost in gaps:
+            if lost / rate >= self.settings.gap_event_s:
+                before = utc[row - 1] if row > 0 else (self._last_utc_us or utc[row])
+                self._event("frame_gap", before, utc[row], value=float(lost), detail=f"{lost} frames lost")
+        for row in resets:
+            self._event("device_reset", utc[row], None, detail="device restarted; counters began again")
+
+    def _event(
+        self, kind: str, start_us: int, end_us: int | None, value: float | None = None, detail: str = ""
+    ) -> None:
+        row = {
+            "kind": kind,
+            "channel": None,
+            "start": _stamp(start_us),
+            "end": None if end_us is None else _stamp(end_us),
+            "duration_s": None if end_us is None else (end_us - start_us) / 1e6,
+            "value": value,
+            "depth_pct": None,
+            "detail": detail,
+        }
+        self._events.appendleft(row)
+        if self.recorder is not None:
+            self.recorder.add_event(row)
+
+    def _reconnect(self, why: str) -> bool:
+        """Wait out an unplug: retry the source every ``retry_s`` until it is back or the run is stopped."""
+        lost_at = time.time()
+        self.state, self.message = "reconnecting", f"link lost ({why}); retrying every {self.settings.retry_s:g} s"
+        self.source.close()
+        while not self._stop.wait(self.settings.retry_s):
+            try:
+                self.source.open()
+            except SourceError as exc:
+                self.message = f"link lost; still retrying: {exc}"
+                continue
+            self.reconnects += 1
+            back = time.time()
+            self._event("link_lost", int(lost_at * 1e6), int(back * 1e6), detail=why)
+            self._send(ASK_HEADER)
+            self.state, self.message = "running", f"reconnected to {self.source.name} after {back - lost_at:.1f} s"
+            return True
+        return False
+
+    def _watch_header(self) -> None:
+        if self.header is not None:
+            return
+        now = time.monotonic()
+        if now - self._asked_at >= 2.0:
+            self._send(ASK_HEADER)
+            self._asked_at = now
+        waited = now - self._started_at
+        if waited >= self.settings.header_wait_s:
+            fallback = self._header_from_rig()
+            if fallback is not None:
+                self._on_header(fallback)
+                return
+            got = self.decoder.counters
+            self.message = (
+                f"no header from the device after {waited:.0f} s ({got.frames} frames, {got.rejected} rejected "
+                "lines): check the baud rate and firmware, or set device.adc_bits and device.vref_mv in the rig"
+            )
+
+    def _header_from_rig(self) -> DeviceHeader | None:
+        """Stand-in header from the rig's device settings, for firmware that never sends one."""
+        dev = self.rig.device
+        if dev.adc_bits is None or dev.vref_mv is None or not self._pending:
+            return None
+        batch = self._pending[-1][0]
+        steps = np.diff(batch.device_us.astype(np.int64)) % (1 << 32)
+        rate = 1e6 / float(np.median(steps)) if len(steps) else 1000.0
+        names = tuple(f"in{k}" for k in range(batch.channels))
+        return DeviceHeader("unknown", "?", dev.adc_bits, dev.vref_mv, round(rate, 3), names, "rig")
+
+    def _duration_reached(self) -> bool:
+        limit = self.settings.duration_s
+        if limit is None or self._first_us is None or self._last_us is None:
+            return False
+        if self._last_us - self._first_us >= round(limit * 1e6) - self._period_us():
+            self.stop_reason = f"duration of {limit:g} s reached"
+            return True
+        return False
+
+    def _period_us(self) -> int:
+        return round(1e6 / self.header.rate_hz) if self.header else 1
+
+    def _send(self, line: bytes) -> None:
+        with contextlib.suppress(SourceError):  # a lost link shows up on the next read
+            self.source.write(line)
+
+    def _fail(self, message: str) -> None:
+        self.error = message
+        self.state, self.message = "failed", message
+        self.stop_reason = f"failed: {message}"
+
+    def _finish(self) -> None:
+        self.source.close()
+        if self.recorder is not None:
+            self.final = self.recorder.stop(self.stop_reason)
+            if self.recorder.error and not self.error:
+                self._fail(self.recorder.error)
+        if self.state != "failed":
+            self.state, self.message = "stopped", self.stop_reason
+
+    # -- watching ----------------------------------------------------------------------------------
+
+    def snapshot(self) -> Snapshot:
+        """An immutable picture of the run right now."""
+        latest = None
+        if self.ring is not None and self.ring.written:
+            latest = self.ring.latest(1)[1][0]
+        lo, hi = self._minmax if self._minmax is not None else (None, None)
+        return Snapshot(
+            state=self.state,
+            message=self.message,
+            channels=self._names,
+            units=tuple(ch.unit for ch in self.rig.channels),
+            latest=latest,
+            minimum=lo,
+            maximum=hi,
+            link=self._link_health(),
+            recording=self._recording_state(),
+            events=tuple(list(self._events)[:50]),
+        )
+
+    def reset_minmax(self) -> None:
+        self._minmax = None
+
+    def _link_health(self) -> LinkHealth:
+        c = self.decoder.counters
+        return LinkHealth(
+            source=self.source.name,
+            connected=self.state in ("running", "waiting"),
+            frames=c.frames,
+            rate_hz=self._measured_rate(),
+            lost=self.unwrapper.lost,
+            rejected=c.rejected,
+            bad_crc=c.bad_crc,
+            resets=self.unwrapper.resets,
+            reconnects=self.reconnects,
+            drift_ppm=self.clock.drift_ppm,
+            decoder=c.as_dict(),
+        )
+
+    def _measured_rate(self) -> float:
+        marks = list(self._rate_marks)
+        if len(marks) < 2 or marks[-1][0] - marks[0][0] <= 0:
+            return 0.0
+        return (marks[-1][1] - marks[0][1]) / (marks[-1][0] - marks[0][0])
+
+    def _recording_state(self) -> RecordingState | None:
+        rec = self.recorder
+        if rec is None:
+            return None
+        size = sum(p.stat().st_size for p in rec.folder.glob("*") if p.is_file()) if rec.folder.exists() else 0
+        return RecordingState(
+            folder=str(rec.folder),
+            rows=rec.rows,
+            bytes_on_disk=size,
+            elapsed_s=time.monotonic() - rec.started,
+            journal_lag_rows=rec.rows - rec.durable_rows,
+            error=rec.error,
+        )
+
+
+_EPOCH = datetime(1970, 1, 1, tzinfo=UTC)
+
+
+def _stamp(utc_us: int) -> datetime:
+    return _EPOCH + timedelta(microseconds=int(utc_us))

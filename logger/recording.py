@@ -1,0 +1,119 @@
+"""The recorder thread: the one consumer that must never lose data, so it fails loudly.
+
+The ingest thread hands it record batches, events and raw chunks through a queue and goes straight back to
+the port; slow disks, fsyncs and sealing of parts all happen here. A store failure stops the run with the
+store's one-line message; whatever reached the journal stays there for ``railtap recover``.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import queue
+import threading
+import time
+from pathlib import Path
+from typing import Any
+
+import pyarrow as pa
+
+from logger.sources.base import Chunk
+from logger.sources.replay import RawCaptureWriter
+from logger.store import StoreError, new_run
+
+_STOP = object()
+
+
+class Recorder:
+    """Runs a :class:`RunWriter` on its own thread."""
+
+    def __init__(
+        self,
+        root: Path,
+        label: str,
+        schema: pa.Schema,
+        metadata: dict[str, Any],
+        *,
+        part_seconds: float = 3600.0,
+        keep_raw: bool = False,
+    ) -> None:
+        self.error: str | None = None
+        self.final: dict[str, Any] | None = None
+        self.started = time.monotonic()
+        self._queue: queue.SimpleQueue[Any] = queue.SimpleQueue()
+        self._writer = new_run(root, label, schema, metadata, part_seconds=part_seconds)
+        self.folder: Path = self._writer.folder
+        self._raw = RawCaptureWriter(self.folder / "_raw.arrows") if keep_raw else None
+        self._stop_reason = "stopped"
+        self._thread = threading.Thread(target=self._run, name="railtap-recorder", daemon=True)
+        self._thread.start()
+
+    def add_batch(self, batch: pa.RecordBatch) -> None:
+        self._queue.put(("batch", batch))
+
+    def add_event(self, row: dict[str, Any]) -> None:
+        self._queue.put(("event", row))
+
+    def add_raw(self, chunk: Chunk) -> None:
+        if self._raw is not None:
+            self._queue.put(("raw", chunk))
+
+    @property
+    def alive(self) -> bool:
+        return self._thread.is_alive()
+
+    @property
+    def rows(self) -> int:
+        """Rows handed to the store so far."""
+        return self._writer.rows
+
+    @property
+    def durable_rows(self) -> int:
+        """Rows that would survive a crash right now."""
+        return self._writer.durable_rows
+
+    def stop(self, reason: str, timeout: float | None = None) -> dict[str, Any] | None:
+        """Drain the queue, seal the parts and return the run's final metadata (None if it failed)."""
+        self._stop_reason = reason
+        self._queue.put(_STOP)
+        self._thread.join(timeout)
+        return self.final
+
+    def _run(self) -> None:
+        try:
+            while True:
+                try:
+                    item = self._queue.get(timeout=0.25)
+                except queue.Empty:
+                    self._writer.tick()  # buffered rows still reach the journal when the stream pauses
+                    continue
+                if item is _STOP:
+                    break
+                self._handle(*item)
+            self._close(self._stop_reason)
+        except (StoreError, OSError) as exc:
+            self.error = str(exc) if isinstance(exc, StoreError) else f"recording failed: {exc}"
+            self._abandon()
+
+    def _handle(self, kind: str, item: Any) -> None:
+        if kind == "batch":
+            self._writer.append(item)
+        elif kind == "event":
+            self._writer.add_event(item)
+        elif self._raw is not None:
+            self._raw.write(item)
+
+    def _close(self, reason: str) -> None:
+        if self._raw is not None:
+            self._raw.close()
+        self.final = self._writer.close(reason)
+
+    def _abandon(self) -> None:
+        """After a failure keep every journal as it is; drain the queue so producers never block."""
+        with contextlib.suppress(Exception):  # the original error is the one worth reporting
+            self._writer.abandon(f"failed: {self.error}")
+        while True:
+            try:
+                if self._queue.get_nowait() is _STOP:
+                    break
+            except queue.Empty:
+                break
