@@ -1,0 +1,90 @@
+"""The railtap command as a user meets it: one plain line per mistake, exit codes, files written."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import pandas as pd
+import pytest
+
+from logger.cli import main
+from logger.rig import RigError, load_rig, parse_rig
+
+
+def _error_line(capsys) -> str:
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1, err
+    return err[0]
+
+
+def test_rig_init_then_check(tmp_path: Path, capsys) -> None:
+    rig = tmp_path / "rig.toml"
+    assert main(["rig", "init", str(rig)]) == 0
+    assert main(["rig", "check", str(rig)]) == 0
+    out = capsys.readouterr().out
+    assert "out_v (volts, divider 11" in out and "out_a (amps, shunt 0.01 ohm x gain 50" in out
+    assert main(["rig", "init", str(rig)]) == 2
+    assert "exists" in _error_line(capsys)
+
+
+def test_missing_port_is_one_line(tmp_path: Path, capsys) -> None:
+    rig = tmp_path / "rig.toml"
+    main(["rig", "init", str(rig)])
+    capsys.readouterr()
+    code = main(["record", "--port", "/dev/railtap-no-such-port", "--rig", str(rig), "--out", str(tmp_path)])
+    assert code == 2
+    line = _error_line(capsys)
+    assert "/dev/railtap-no-such-port" in line and "railtap ports" in line
+
+
+def test_port_without_rig_says_what_to_do(capsys) -> None:
+    assert main(["record", "--port", "loop://"]) == 2
+    assert "rig init" in _error_line(capsys)
+
+
+@pytest.mark.parametrize(
+    ("text", "expected"),
+    [
+        ("name = 'x'\n", "no [[channel]]"),
+        ("[[channel]]\nname = 'Out V'\nrole = 'volts'\ninput = 0\n", "channel[0].name"),
+        ("[[channel]]\nname = 'v'\nrole = 'volt'\ninput = 0\n", "role: expected one of volts"),
+        ("[[channel]]\nname = 'v'\nrole = 'volts'\ninput = 0\ndivider = -2\n", "divider: expected a positive"),
+        ("[[channel]]\nname = 'v'\nrole = 'volts'\ninput = 0\n[[channel]]\nname = 'w'\nrole = 'aux'\ninput = 0\n",
+         "input 0 already used"),
+        ("[[channel]]\nname = 'v'\nrole = 'volts'\ninput = 0\nlow = 5\nhigh = 4\n", "low: expected less than"),
+    ],
+)
+def test_rig_errors_name_file_and_key(text: str, expected: str) -> None:
+    with pytest.raises(RigError) as info:
+        parse_rig(text, "bench.toml")
+    assert str(info.value).startswith("bench.toml: ") and expected in str(info.value)
+
+
+def test_missing_rig_file(tmp_path: Path) -> None:
+    with pytest.raises(RigError, match="rig init"):
+        load_rig(tmp_path / "nope.toml")
+
+
+def test_record_sim_fast_then_read_with_pandas(tmp_path: Path, capsys) -> None:
+    out = tmp_path / "runs"
+    assert main(["record", "--sim", "--speed", "0", "--duration", "5", "--out", str(out), "--quiet"]) == 0
+    (run,) = out.iterdir()
+    assert len(pd.read_parquet(run)) == 5000
+    assert "5000 rows" in capsys.readouterr().out
+
+
+def test_keep_raw_then_replay_gives_the_same_samples(tmp_path: Path) -> None:
+    first, second = tmp_path / "a", tmp_path / "b"
+    assert main(["record", "--sim", "--speed", "0", "--duration", "3", "--keep-raw", "--out", str(first),
+                 "--quiet"]) == 0
+    (run,) = first.iterdir()
+    assert main(["record", "--replay", str(run / "_raw.arrows"), "--out", str(second), "--quiet"]) == 0
+    (again,) = second.iterdir()
+    a, b = pd.read_parquet(run), pd.read_parquet(again)
+    pd.testing.assert_frame_equal(a, b.iloc[: len(a)].reset_index(drop=True))
+
+
+def test_ports_lists_or_hints(capsys) -> None:
+    assert main(["ports"]) == 0
+    captured = capsys.readouterr()
+    assert captured.out or captured.err

@@ -1,0 +1,180 @@
+"""End to end: simulated rig or a real pseudo-terminal, through the pipeline, into a run folder read back
+with pandas; link loss, device restarts, a full disk and a kill -9 in the middle of a run."""
+
+from __future__ import annotations
+
+import errno
+import json
+import os
+import signal
+import subprocess
+import sys
+import threading
+import time
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from logger.pipeline import Pipeline, Settings
+from logger.rig import demo_rig_text, parse_rig
+from logger.sim.device import LinkFaults, SimDevice
+from logger.sources.pty_server import serve_on_pty
+from logger.sources.serial_port import SerialSource
+from logger.sources.simulated import SimSource
+from logger.store import find_unfinished, recover_run
+
+RIG = parse_rig(demo_rig_text(), "demo")
+ROOT = Path(__file__).resolve().parents[1]
+
+
+def _run(source, tmp_path: Path, **settings) -> Pipeline:
+    pipeline = Pipeline(source, RIG, Settings(record_root=tmp_path, **settings))
+    pipeline.start()
+    assert pipeline.wait(60), "pipeline did not finish"
+    return pipeline
+
+
+def _only_run(root: Path) -> Path:
+    (run,) = [p for p in root.iterdir() if p.is_dir()]
+    return run
+
+
+def test_simulated_run_is_complete_and_calibrated(tmp_path: Path) -> None:
+    device = SimDevice(seed=3, faults=LinkFaults(drop_line=0.001, corrupt_byte=0.001, drop_byte=0.001))
+    p = _run(SimSource(device, speed=0, duration_s=90), tmp_path)
+    assert p.error is None and p.final["status"] == "complete"
+    df = pd.read_parquet(_only_run(tmp_path))
+    truth = device.truth
+    counters = p.decoder.counters
+    assert counters.rejected == truth.lines_damaged
+    assert counters.frames == truth.frames_delivered
+    assert len(df) == truth.frames_delivered  # every intact line recorded, no damaged one
+    assert df["seq"].is_unique and df["utc"].is_monotonic_increasing
+    assert p.unwrapper.lost == int(df["seq"].iloc[-1] - df["seq"].iloc[0] + 1 - len(df))
+    # Calibrated value from counts: 12-bit LSB = 3.3 V / 4096 (Vref / 2^N; Analog Devices MT-001),
+    # times the demo rig's divider of 11.
+    lsb_v = 3.3 / 4096
+    np.testing.assert_allclose(df["out_v"], df["out_v_counts"] * lsb_v * 11.0, rtol=1e-6)
+    np.testing.assert_allclose(df["out_a"], df["out_a_counts"] * lsb_v / (0.01 * 50.0), rtol=1e-6)
+    true_t = (df["device_us"] - df["device_us"].iloc[0]).to_numpy() / 1e6
+    assert abs(p.clock.drift_ppm - device.drift_ppm) < 5.0
+    assert true_t[-1] == pytest.approx(90.0, abs=0.01)
+
+
+def test_same_run_whatever_the_read_size(tmp_path: Path) -> None:
+    frames = []
+    for i, slice_s in enumerate((0.003, 0.05)):
+        source = SimSource(SimDevice(seed=5), speed=1000.0, duration_s=5, slice_s=slice_s, start_utc=1.8e9)
+        _run(source, tmp_path / str(i))
+        frames.append(pd.read_parquet(_only_run(tmp_path / str(i))).drop(columns="utc"))
+    pd.testing.assert_frame_equal(frames[0], frames[1])
+
+
+def test_unplug_becomes_a_link_event_and_the_run_carries_on(tmp_path: Path) -> None:
+    source = SimSource(SimDevice(seed=2), speed=20.0, duration_s=12)
+    source.unplug(at_s=4.0, down_s=2.0, reset=True)
+    p = _run(source, tmp_path, retry_s=0.05)
+    assert p.error is None and p.reconnects == 1
+    run = _only_run(tmp_path)
+    events = pd.read_parquet(run / "_events.parquet")
+    assert set(events["kind"]) >= {"link_lost", "device_reset"}
+    samples = pd.read_parquet(run)
+    assert samples["seq"].is_monotonic_increasing and samples["device_us"].is_monotonic_increasing
+    assert samples["utc"].max() - samples["utc"].min() > pd.Timedelta(seconds=10)
+
+
+def test_through_a_real_pseudo_terminal(tmp_path: Path) -> None:
+    stop = threading.Event()
+    ready: list[str] = []
+    server = threading.Thread(target=serve_on_pty, kwargs={
+        "speed": 1.0, "stop_event": stop, "on_ready": ready.append, "seed": 4}, daemon=True)
+    server.start()
+    for _ in range(100):
+        if ready:
+            break
+        time.sleep(0.02)
+    try:
+        p = _run(SerialSource(ready[0], 921600), tmp_path, duration_s=2.0)
+    finally:
+        stop.set()
+        server.join(5)
+    assert p.error is None and p.header is not None
+    df = pd.read_parquet(_only_run(tmp_path))
+    assert len(df) == 2000 and (np.diff(df["seq"]) == 1).all()
+    assert df["out_v"].between(9.0, 13.0).mean() > 0.95
+
+
+def test_disk_full_stops_with_one_line_and_keeps_the_journal(tmp_path: Path, monkeypatch) -> None:
+    import logger.store.journal as journal
+
+    real_write = journal.write_all
+    calls = {"n": 0}
+
+    def failing(fd: int, data: bytes) -> None:
+        calls["n"] += 1
+        if calls["n"] > 4:
+            raise OSError(errno.ENOSPC, "No space left on device")
+        real_write(fd, data)
+
+    monkeypatch.setattr(journal, "write_all", failing)
+    p = _run(SimSource(SimDevice(seed=1), speed=10.0, duration_s=20), tmp_path)
+    assert p.error is not None and "\n" not in p.error
+    assert "disk full" in p.error or "space" in p.error
+    run = _only_run(tmp_path)
+    assert list(run.glob("_journal-*.arrows")), "journal must be kept for recovery"
+
+
+def test_missing_header_falls_back_to_rig_settings(tmp_path: Path) -> None:
+    rig = parse_rig(demo_rig_text().replace("# adc_bits = 12", "adc_bits = 12").replace(
+        "# vref_mv = 3300", "vref_mv = 3300"), "demo")
+    device = SimDevice(seed=1)
+    device._pending.clear()  # noqa: SLF001 - a firmware that never sends a header
+    device.header_period_us = float("inf")
+    device.write = lambda data: None  # ignores requests too
+    pipeline = Pipeline(SimSource(device, speed=10.0, duration_s=6), rig,
+                        Settings(record_root=tmp_path, header_wait_s=0.3))
+    pipeline.start()
+    assert pipeline.wait(30)
+    assert pipeline.header is not None and pipeline.header.reason == "rig"
+    assert len(pd.read_parquet(_only_run(tmp_path))) == device.truth.frames_delivered
+
+
+def test_kill_9_loses_at_most_about_a_second(tmp_path: Path) -> None:
+    stop = threading.Event()
+    ready: list[str] = []
+    device = SimDevice(seed=9)
+    server = threading.Thread(target=serve_on_pty, kwargs={
+        "device": device, "speed": 1.0, "stop_event": stop, "on_ready": ready.append}, daemon=True)
+    server.start()
+    while not ready:
+        time.sleep(0.01)
+    out = tmp_path / "runs"
+    proc = subprocess.Popen(
+        [sys.executable, "-m", "logger", "record", "--port", ready[0], "--rig", str(_rig_file(tmp_path)),
+         "--out", str(out), "--quiet"],
+        cwd=ROOT, stderr=subprocess.PIPE,
+    )
+    try:
+        time.sleep(4.0)
+        sent_before_kill = device.truth.frames
+        os.kill(proc.pid, signal.SIGKILL)
+        proc.wait(10)
+    finally:
+        stop.set()
+        server.join(5)
+    (run,) = find_unfinished(out)
+    meta = recover_run(run)
+    assert meta["status"] == "recovered"
+    df = pd.read_parquet(run)
+    assert (np.diff(df["seq"]) == 1).all()  # nothing invented, nothing twice
+    # At most about a second lost: the journal is flushed twice a second; allow for startup and pty buffering.
+    assert len(df) >= sent_before_kill - 1500
+    assert json.loads((run / "_run.json").read_text())["rows"] == len(df)
+
+
+def _rig_file(tmp_path: Path) -> Path:
+    path = tmp_path / "rig.toml"
+    path.write_text(demo_rig_text())
+    return path
