@@ -220,8 +220,8 @@ class Pipeline:
         """Rows up to the end of ``--duration`` (measured on the device clock from the first sample)."""
         if self.settings.duration_s is None:
             return slice(None)
-        end_us = self._first_us + int(round(self.settings.duration_s * 1e6))
-        return slice(0, int(np.searchsorted(device_us, end_us, side="left")))
+        end_us = self._first_us + round(self.settings.duration_s * 1e6)
+        return slice(0, np.searchsorted(device_us, end_us, side="left"))
 
     def _record_batch(
         self, utc: np.ndarray, device_us: np.ndarray, seq: np.ndarray, values: np.ndarray, counts: np.ndarray

@@ -130,7 +130,7 @@ def test_missing_header_falls_back_to_rig_settings(tmp_path: Path) -> None:
     rig = parse_rig(demo_rig_text().replace("# adc_bits = 12", "adc_bits = 12").replace(
         "# vref_mv = 3300", "vref_mv = 3300"), "demo")
     device = SimDevice(seed=1)
-    device._pending.clear()  # noqa: SLF001 - a firmware that never sends a header
+    device._pending.clear()  # a firmware that never sends a header
     device.header_period_us = float("inf")
     device.write = lambda data: None  # ignores requests too
     pipeline = Pipeline(SimSource(device, speed=10.0, duration_s=6), rig,
