@@ -1,0 +1,125 @@
+"""Serve the simulated rig on a pseudo-terminal, so any serial program can open it like a real tap.
+
+POSIX only (``os.openpty``). The server writes the device's bytes to the pty master, paced to the wall
+clock, and feeds whatever the client writes back to the device as host commands. The slave side is kept
+open by the server itself, so the pty stays configured whether or not a client is attached; when nobody
+reads, the pty buffer fills and the server drops bytes (and the stale ones queued in the pty) rather
+than block, much as a real tap's transmit buffer overflows when no host is listening.
+"""
+
+from __future__ import annotations
+
+import os
+import select
+import termios
+import threading
+import time
+import tty
+from collections.abc import Callable
+from dataclasses import dataclass
+
+from logger.sim.device import SimDevice
+
+BACKLOG_LIMIT = 65536
+"""Bytes held back while the client is not reading; beyond this they are dropped."""
+
+
+@dataclass
+class PtyStats:
+    """What the server did, for messages and tests."""
+
+    path: str = ""
+    bytes_written: int = 0
+    bytes_dropped: int = 0
+    command_bytes: int = 0
+
+
+def serve_on_pty(
+    device: SimDevice | Callable[[], SimDevice] | None = None,
+    speed: float = 1.0,
+    stop_event: threading.Event | None = None,
+    on_ready: Callable[[str], None] | None = None,
+    *,
+    seed: int | None = 0,
+    tick_s: float = 0.01,
+) -> PtyStats:
+    """Run a simulated device on a new pty until ``stop_event`` is set.
+
+    Args:
+        device: the device, or a factory that makes one (called in the serving thread); a default
+            :class:`SimDevice` seeded with ``seed`` when ``None``.
+        speed: simulated seconds per wall second (positive; a pty stands in for a paced serial line).
+        stop_event: set it to stop; the pty is closed on the way out. ``None`` serves until interrupted.
+        on_ready: called with the slave path (e.g. ``/dev/pts/7``) once clients may open it.
+        seed: seed of the default device.
+        tick_s: how often bytes are written and commands read.
+
+    Returns:
+        Counts of bytes written, dropped and received.
+    """
+    if not 0 < speed < float("inf"):
+        raise ValueError(f"speed must be positive and finite on a pty, got {speed}")
+    dev = _make_device(device, seed)
+    stop_event = stop_event or threading.Event()
+    master, slave = os.openpty()
+    try:
+        tty.setraw(slave)
+        os.set_blocking(master, False)
+        stats = PtyStats(path=os.ttyname(slave))
+        if on_ready is not None:
+            on_ready(stats.path)
+        _pump(dev, master, slave, speed, stop_event, tick_s, stats)
+        return stats
+    finally:
+        os.close(master)
+        os.close(slave)
+
+
+def _make_device(device: SimDevice | Callable[[], SimDevice] | None, seed: int | None) -> SimDevice:
+    if device is None:
+        return SimDevice(seed=seed)
+    return device if isinstance(device, SimDevice) else device()
+
+
+def _pump(
+    dev: SimDevice,
+    master: int,
+    slave: int,
+    speed: float,
+    stop_event: threading.Event,
+    tick_s: float,
+    stats: PtyStats,
+) -> None:
+    """Each tick: take commands, produce the bytes due by the wall clock, write what the pty accepts."""
+    wall0, sim0 = time.monotonic(), dev.now_s
+    backlog = bytearray()
+    while not stop_event.is_set():
+        readable, _, _ = select.select([master], [], [], tick_s)
+        if readable:
+            stats.command_bytes += _take_commands(master, dev)
+        backlog += dev.generate(sim0 + (time.monotonic() - wall0) * speed)
+        _push(master, slave, backlog, stats)
+
+
+def _take_commands(master: int, dev: SimDevice) -> int:
+    try:
+        data = os.read(master, 4096)
+    except (BlockingIOError, InterruptedError):
+        return 0
+    dev.write(data)
+    return len(data)
+
+
+def _push(master: int, slave: int, backlog: bytearray, stats: PtyStats) -> None:
+    """Write as much of the backlog as the pty takes; drop it all when the client has stopped reading."""
+    if backlog:
+        try:
+            written = os.write(master, backlog)
+        except BlockingIOError:
+            written = 0
+        del backlog[:written]
+        stats.bytes_written += written
+    if len(backlog) > BACKLOG_LIMIT:
+        stats.bytes_dropped += len(backlog)
+        backlog.clear()
+        termios.tcflush(slave, termios.TCIFLUSH)  # what sits unread in the pty is stale by now

@@ -1,0 +1,131 @@
+"""A serial port as a byte source, by pyserial URL: a device path, ``socket://``, ``rfc2217://``, ``loop://``.
+
+Reads take whatever has arrived (``ser.read(ser.in_waiting or 1)`` with a 0.1 s timeout), never a line at
+a time: framing is the decoder's job. Every port failure after opening becomes :class:`LinkLost`, so the
+pipeline has one path for "the cable came out"; failing to open becomes a :class:`SourceError` whose one
+line says what to do.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import errno
+import time
+
+import serial
+import serial.tools.list_ports
+
+from logger.sources.base import Chunk, LinkLost, SourceError
+
+READ_TIMEOUT_S = 0.1
+WRITE_TIMEOUT_S = 1.0
+"""A port that cannot take a command line in this long is stuck (flow control, hung driver): link lost."""
+
+_BUSY = {errno.EBUSY, errno.EAGAIN, errno.EWOULDBLOCK}
+
+
+class SerialSource:
+    """A :class:`~logger.sources.base.Source` reading a pyserial port.
+
+    Args:
+        url: a device path (``/dev/ttyACM0``, ``COM5``) or a pyserial URL (``socket://host:7000``).
+        baud: line speed; USB CDC devices ignore it, UART bridges need it to match the firmware.
+    """
+
+    def __init__(self, url: str, baud: int = 921600) -> None:
+        self.url = url
+        self.baud = baud
+        self._ser: serial.SerialBase | None = None
+
+    @property
+    def name(self) -> str:
+        return f"{self.url} @ {self.baud}"
+
+    def open(self) -> None:
+        """Open the port (closing any earlier handle first); raises :class:`SourceError`."""
+        self.close()
+        try:
+            self._ser = serial.serial_for_url(
+                self.url, baudrate=self.baud, timeout=READ_TIMEOUT_S, write_timeout=WRITE_TIMEOUT_S
+            )
+        except ValueError as exc:
+            raise SourceError(f"{self.url}: not a usable port name or URL ({exc})") from None
+        except (serial.SerialException, OSError) as exc:
+            raise SourceError(open_failure(self.url, exc)) from None
+
+    def read(self) -> Chunk | None:
+        """Whatever bytes have arrived (waiting up to 0.1 s for the first), stamped on arrival."""
+        ser = self._port()
+        try:
+            data = ser.read(ser.in_waiting or 1)
+        except (serial.SerialException, OSError) as exc:
+            self._lost()
+            raise LinkLost(f"{self.url}: link lost while reading ({_detail(exc)})") from None
+        return Chunk(bytes(data), time.time())
+
+    def write(self, data: bytes) -> None:
+        """Send a command line to the device."""
+        ser = self._port()
+        try:
+            ser.write(data)
+        except (serial.SerialException, OSError) as exc:
+            self._lost()
+            raise LinkLost(f"{self.url}: link lost while writing ({_detail(exc)})") from None
+
+    def close(self) -> None:
+        """Release the port; safe to call twice."""
+        ser, self._ser = self._ser, None
+        if ser is not None:
+            with contextlib.suppress(serial.SerialException, OSError):  # already gone: nothing to release
+                ser.close()
+
+    def _port(self) -> serial.SerialBase:
+        if self._ser is None:
+            raise LinkLost(f"{self.url}: port is not open")
+        return self._ser
+
+    def _lost(self) -> None:
+        self.close()
+
+
+def open_failure(url: str, exc: BaseException) -> str:
+    """One line saying why ``url`` would not open and what to do about it."""
+    code = getattr(exc, "errno", None)
+    text = str(exc).lower()
+    if code == errno.ENOENT or "filenotfounderror" in text or "cannot find the file" in text:
+        return f"{url}: no such port; check the cable, or run `railtap ports` to see the ports there are"
+    # Windows reports a port held by another program as "access is denied".
+    if code in _BUSY or "exclusively lock" in text or "access is denied" in text:
+        return f"{url}: port is busy; another program has it open (close the serial monitor or other logger)"
+    if code == errno.EACCES or "permission" in text:
+        return (
+            f"{url}: permission denied; add yourself to the group that owns the device "
+            "(e.g. `sudo usermod -aG dialout $USER`), then log out and in again"
+        )
+    if url.startswith(("socket://", "rfc2217://")):
+        return f"{url}: cannot connect ({_detail(exc)}); check the host, the port and that the server runs"
+    return f"{url}: cannot open port ({_detail(exc)})"
+
+
+def _detail(exc: BaseException) -> str:
+    """The most specific message in a pyserial exception, on one line."""
+    text = exc.strerror if isinstance(exc, OSError) and exc.strerror else str(exc)
+    return " ".join(str(text).split())
+
+
+def list_ports() -> list[str]:
+    """One line per serial port the system knows: device, description and hardware id."""
+    ports = sorted(serial.tools.list_ports.comports(), key=lambda p: p.device)
+    return [f"{p.device}  {p.description}  [{p.hwid}]" for p in ports]
+
+
+def no_ports_hint(ports: list[str] | None = None) -> str | None:
+    """A hint line when no port was found (in ``ports``, or by listing them now), else ``None``."""
+    if ports is None:
+        ports = list_ports()
+    if ports:
+        return None
+    return (
+        "no serial ports found; plug in the tap with a data-capable USB cable, "
+        "or try the simulated rig with `railtap demo`"
+    )
