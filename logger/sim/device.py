@@ -180,6 +180,7 @@ class SimDevice:
 
     @property
     def rate_hz(self) -> float:
+        """Current sample rate (the boot rate until ``!R`` changes it)."""
         return self._rate_hz
 
     @property

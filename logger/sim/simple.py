@@ -26,6 +26,7 @@ class ScriptedFault:
 
     @property
     def end_s(self) -> float:
+        """When the rail recovers."""
         return self.start_s + self.duration_s
 
 

@@ -125,6 +125,7 @@ class ReplaySource:
 
     @property
     def name(self) -> str:
+        """E.g. ``replay of runs/x/_raw.arrows``."""
         return f"replay of {self.path}"
 
     def open(self) -> None:

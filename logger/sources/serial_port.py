@@ -39,6 +39,7 @@ class SerialSource:
 
     @property
     def name(self) -> str:
+        """E.g. ``/dev/ttyACM0 @ 921600``."""
         return f"{self.url} @ {self.baud}"
 
     def open(self) -> None:

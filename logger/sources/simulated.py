@@ -75,10 +75,12 @@ class SimSource:
 
     @property
     def paced(self) -> bool:
+        """Whether reads wait for the wall clock (a finite, positive speed)."""
         return 0 < self.speed < math.inf
 
     @property
     def name(self) -> str:
+        """E.g. ``simulated rig (x1)``."""
         pace = f"x{self.speed:g}" if self.paced else "as fast as possible"
         return f"simulated rig ({pace})"
 
@@ -101,6 +103,7 @@ class SimSource:
         self._is_open = True
 
     def close(self) -> None:
+        """Disconnect; the device keeps its state, and a later :meth:`open` carries on from it."""
         self._is_open = False
 
     def write(self, data: bytes) -> None:
