@@ -42,6 +42,8 @@ class Settings:
     duration_s: float | None = None
     live_seconds: float = 60.0
     gap_event_s: float = 0.05
+    batch_s: float = 0.05
+    """Reads are gathered for this long before decoding: fewer, larger batches cost less CPU."""
     header_wait_s: float = 10.0
     retry_s: float = 1.0
 
@@ -71,6 +73,10 @@ class Pipeline:
         self._schema = sample_schema(self._names)
         self._pending: list[tuple[FrameBatch, float]] = []
         self._pending_raw: list[Chunk] = []
+        self._held: list[bytes] = []
+        self._held_bytes = 0
+        self._held_time = float("nan")
+        self._fed_at = 0.0
         self._events: deque[dict[str, Any]] = deque(maxlen=200)
         self._minmax: tuple[np.ndarray, np.ndarray] | None = None
         self._rate_marks: deque[tuple[float, int]] = deque(maxlen=64)
@@ -116,6 +122,7 @@ class Pipeline:
                 if self.recorder is not None and not self.recorder.alive:
                     self._fail(self.recorder.error or "recorder stopped")
                     break
+            self._drain()
         except (RigError, SourceError) as exc:
             self._fail(str(exc))
         finally:
@@ -125,26 +132,42 @@ class Pipeline:
         try:
             chunk = self.source.read()
         except LinkLost as exc:
+            self._drain()
             return self._reconnect(str(exc))
         if chunk is None:
+            self._drain()
             self.stop_reason = "source ended"
             return False
         if chunk.data:
-            self._ingest(chunk)
+            self._take(chunk)
+        if self._held_bytes >= 65536 or time.monotonic() - self._fed_at >= self.settings.batch_s:
+            self._drain()
         self._watch_header()
         return not self._duration_reached()
 
-    def _ingest(self, chunk: Chunk) -> None:
+    def _take(self, chunk: Chunk) -> None:
+        """Hold a read until enough has come to decode as one batch (reads at low rates are tiny)."""
         if self.recorder is not None:
             self.recorder.add_raw(chunk)
         elif self.settings.keep_raw:
             self._pending_raw.append(chunk)
-        for item in self.decoder.feed(chunk.data):
+        self._held.append(chunk.data)
+        self._held_bytes += len(chunk.data)
+        self._held_time = chunk.host_time
+
+    def _drain(self) -> None:
+        """Decode everything held; every byte had arrived by the host time of the last read."""
+        self._fed_at = time.monotonic()
+        if not self._held:
+            return
+        data, host_time = b"".join(self._held), self._held_time
+        self._held, self._held_bytes = [], 0
+        for item in self.decoder.feed(data):
             if isinstance(item, FrameBatch):
                 if self.calibrator is None:
-                    self._pending.append((item, chunk.host_time))
+                    self._pending.append((item, host_time))
                 else:
-                    self._emit(item, chunk.host_time)
+                    self._emit(item, host_time)
             elif isinstance(item, DeviceHeader):
                 self._on_header(item)
             else:

@@ -39,7 +39,8 @@ class Recorder:
         self.error: str | None = None
         self.final: dict[str, Any] | None = None
         self.started = time.monotonic()
-        self._queue: queue.SimpleQueue[Any] = queue.SimpleQueue()
+        # Bounded: a source faster than the disk (a replay, the simulator at full speed) waits for it.
+        self._queue: queue.Queue[Any] = queue.Queue(maxsize=256)
         self._writer = new_run(root, label, schema, metadata, part_seconds=part_seconds)
         self.folder: Path = self._writer.folder
         self._raw = RawCaptureWriter(self.folder / "_raw.arrows") if keep_raw else None
@@ -48,14 +49,23 @@ class Recorder:
         self._thread.start()
 
     def add_batch(self, batch: pa.RecordBatch) -> None:
-        self._queue.put(("batch", batch))
+        self._put(("batch", batch))
 
     def add_event(self, row: dict[str, Any]) -> None:
-        self._queue.put(("event", row))
+        self._put(("event", row))
 
     def add_raw(self, chunk: Chunk) -> None:
         if self._raw is not None:
-            self._queue.put(("raw", chunk))
+            self._put(("raw", chunk))
+
+    def _put(self, item: Any) -> None:
+        """Queue for the recorder thread, waiting while it is busy; gives up only if it has died."""
+        while self._thread.is_alive():
+            try:
+                self._queue.put(item, timeout=0.5)
+                return
+            except queue.Full:
+                continue
 
     @property
     def alive(self) -> bool:
@@ -74,7 +84,7 @@ class Recorder:
     def stop(self, reason: str, timeout: float | None = None) -> dict[str, Any] | None:
         """Drain the queue, seal the parts and return the run's final metadata (None if it failed)."""
         self._stop_reason = reason
-        self._queue.put(_STOP)
+        self._put(_STOP)
         self._thread.join(timeout)
         return self.final
 
@@ -113,7 +123,7 @@ class Recorder:
             self._writer.abandon(f"failed: {self.error}")
         while True:
             try:
-                if self._queue.get_nowait() is _STOP:
+                if self._queue.get(timeout=1.0) is _STOP:
                     break
             except queue.Empty:
                 break

@@ -130,9 +130,11 @@ class Decoder:
         kind = np.zeros(n, dtype=np.int8)  # 0 rejected, 1..8 data with that many channels, -1 text item
         first = np.where(overlong, 0, arr[starts])
         bad_crc = 0
-        for length, channels in _DATA_LENGTHS.items():
-            rows = np.flatnonzero((first == _D) & (lengths == length))
-            if len(rows):
+        data_rows = np.flatnonzero(first == _D)
+        for length in np.unique(lengths[data_rows]):
+            channels = _DATA_LENGTHS.get(int(length))
+            rows = data_rows[lengths[data_rows] == length]
+            if channels is not None:
                 layout_ok, crc_ok = self._check_data(arr, starts[rows], channels)
                 kind[rows[layout_ok & crc_ok]] = channels
                 bad_crc += int((layout_ok & ~crc_ok).sum())
