@@ -42,7 +42,7 @@ class Settings:
     duration_s: float | None = None
     live_seconds: float = 60.0
     gap_event_s: float = 0.05
-    batch_s: float = 0.05
+    batch_s: float = 0.1
     """Reads are gathered for this long before decoding: fewer, larger batches cost less CPU."""
     header_wait_s: float = 10.0
     retry_s: float = 1.0
@@ -77,6 +77,7 @@ class Pipeline:
         self._held_bytes = 0
         self._held_time = float("nan")
         self._fed_at = 0.0
+        self._byte_rate = 0.0
         self._events: deque[dict[str, Any]] = deque(maxlen=200)
         self._minmax: tuple[np.ndarray, np.ndarray] | None = None
         self._rate_marks: deque[tuple[float, int]] = deque(maxlen=64)
@@ -140,8 +141,13 @@ class Pipeline:
             return False
         if chunk.data:
             self._take(chunk)
-        if self._held_bytes >= 65536 or time.monotonic() - self._fed_at >= self.settings.batch_s:
+        wait = self.settings.batch_s - (time.monotonic() - self._fed_at)
+        if self._held_bytes >= 65536 or wait <= 0:
             self._drain()
+        elif 0 < len(chunk.data) < 2048 and self._byte_rate * wait < 16384:
+            # A slow trickle: let it gather in the port's buffer (tens of kB on any OS) and take it in one
+            # read, instead of waking for every USB packet. A fast stream is never made to wait.
+            self._stop.wait(wait)
         self._watch_header()
         return not self._duration_reached()
 
@@ -157,7 +163,9 @@ class Pipeline:
 
     def _drain(self) -> None:
         """Decode everything held; every byte had arrived by the host time of the last read."""
-        self._fed_at = time.monotonic()
+        now = time.monotonic()
+        self._byte_rate = self._held_bytes / max(now - self._fed_at, 1e-3)
+        self._fed_at = now
         if not self._held:
             return
         data, host_time = b"".join(self._held), self._held_time
@@ -254,9 +262,9 @@ class Pipeline:
             pa.array(device_us, type=pa.int64()),
             pa.array(seq, type=pa.int64()),
         ]
-        for k in range(len(self._names)):
-            columns.append(pa.array(values[:, k], type=pa.float32()))
-            columns.append(pa.array(counts[:, k], type=pa.uint16()))
+        for value_column, count_column in zip(values.T.copy(), counts.T.copy(), strict=True):
+            columns.append(pa.array(value_column, type=pa.float32()))
+            columns.append(pa.array(count_column, type=pa.uint16()))
         return pa.RecordBatch.from_arrays(columns, schema=self._schema)
 
     def _track(self, utc: np.ndarray, values: np.ndarray, device_us: np.ndarray) -> None:

@@ -40,7 +40,7 @@ class Recorder:
         self.final: dict[str, Any] | None = None
         self.started = time.monotonic()
         # Bounded: a source faster than the disk (a replay, the simulator at full speed) waits for it.
-        self._queue: queue.Queue[Any] = queue.Queue(maxsize=256)
+        self._queue: queue.Queue[Any] = queue.Queue(maxsize=16)
         self._writer = new_run(root, label, schema, metadata, part_seconds=part_seconds)
         self.folder: Path = self._writer.folder
         self._raw = RawCaptureWriter(self.folder / "_raw.arrows") if keep_raw else None

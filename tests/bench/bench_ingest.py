@@ -81,10 +81,12 @@ def railtap_path(data: bytes, frames: int, out: Path) -> tuple[float, float]:
     c0, t0 = cpu_s(), time.perf_counter()
     pipeline.start()
     feeder.thread.start()
-    while pipeline.decoder.counters.frames < frames and pipeline.state not in ("failed", "stopped"):
-        time.sleep(0.005)
-    final = pipeline.stop("benchmark done")
+    while pipeline.state not in ("failed", "stopped"):
+        if pipeline.recorder is not None and pipeline.recorder.durable_rows >= frames:
+            break  # decoded, stamped, calibrated and fsynced in the journal
+        time.sleep(0.002)
     wall, cpu = time.perf_counter() - t0, cpu_s() - c0
+    final = pipeline.stop("benchmark done")
     feeder.close()
     assert final is not None and final["rows"] == frames, (final, frames)
     return wall, cpu
@@ -163,7 +165,7 @@ def long_run(hours: float, out: Path) -> dict[str, float]:
 
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    parser.add_argument("--seconds", type=float, default=300.0, help="length of the recorded stream (1 kHz)")
+    parser.add_argument("--seconds", type=float, default=600.0, help="length of the recorded stream (1 kHz)")
     parser.add_argument("--cpu-seconds", type=float, default=20.0, help="real-time recording to measure CPU")
     parser.add_argument("--hours", type=float, default=24.0, help="simulated hours for the memory run")
     args = parser.parse_args()
