@@ -16,7 +16,6 @@ from pathlib import Path
 from typing import Any
 
 import numpy as np
-import pyarrow as pa
 
 from logger import __version__
 from logger.calibration import Calibrator
@@ -25,7 +24,7 @@ from logger.live import LinkHealth, RecordingState, Ring, Snapshot
 from logger.recording import Recorder
 from logger.rig import Rig, RigError
 from logger.sources.base import Chunk, LinkLost, Source, SourceError
-from logger.store import sample_schema
+from logger.store import sample_batch, sample_schema
 from logger.wire import Answer, Decoder, DeviceHeader, FrameBatch, encode_line
 
 ASK_HEADER = encode_line("?H")
@@ -245,7 +244,7 @@ class Pipeline:
         self._link_events(u.gaps, u.resets, utc)
         self._track(utc, values, device_us)
         if self.recorder is not None:
-            self.recorder.add_batch(self._record_batch(utc, device_us, seq, values, counts))
+            self.recorder.add_batch(sample_batch(self._schema, utc, device_us, seq, values, counts))
 
     def _within_duration(self, device_us: np.ndarray) -> slice:
         """Rows up to the end of ``--duration`` (measured on the device clock from the first sample)."""
@@ -253,19 +252,6 @@ class Pipeline:
             return slice(None)
         end_us = self._first_us + round(self.settings.duration_s * 1e6)
         return slice(0, np.searchsorted(device_us, end_us, side="left"))
-
-    def _record_batch(
-        self, utc: np.ndarray, device_us: np.ndarray, seq: np.ndarray, values: np.ndarray, counts: np.ndarray
-    ) -> pa.RecordBatch:
-        columns: list[pa.Array] = [
-            pa.array(utc, type=pa.timestamp("us", tz="UTC")),
-            pa.array(device_us, type=pa.int64()),
-            pa.array(seq, type=pa.int64()),
-        ]
-        for value_column, count_column in zip(values.T.copy(), counts.T.copy(), strict=True):
-            columns.append(pa.array(value_column, type=pa.float32()))
-            columns.append(pa.array(count_column, type=pa.uint16()))
-        return pa.RecordBatch.from_arrays(columns, schema=self._schema)
 
     def _track(self, utc: np.ndarray, values: np.ndarray, device_us: np.ndarray) -> None:
         if len(utc) == 0:

@@ -17,8 +17,8 @@ from typing import Any
 import pyarrow as pa
 
 from logger.sources.base import Chunk
-from logger.sources.replay import RawCaptureWriter
 from logger.store import StoreError, new_run
+from logger.store.raw import RawCaptureWriter
 
 _STOP = object()
 

@@ -17,9 +17,10 @@ import serial
 
 from logger.sim import LinkFaults, SimDevice
 from logger.sources.base import Chunk, LinkLost, SourceError
-from logger.sources.replay import PLAIN_CHUNK, RawCaptureWriter, ReplaySource
+from logger.sources.replay import PLAIN_CHUNK, ReplaySource
 from logger.sources.serial_port import SerialSource, no_ports_hint, open_failure
 from logger.sources.simulated import SimSource
+from logger.store.raw import RawCaptureWriter
 from logger.wire import Answer, Decoder, DeviceHeader, FrameBatch, encode_line
 
 
@@ -166,7 +167,9 @@ def test_capture_flushes_at_most_every_half_second(tmp_path: Path) -> None:
     now = [0.0]
     writer = RawCaptureWriter(tmp_path / "raw.arrows", clock=lambda: now[0])
     writer.write(Chunk(b"D first\n", 1.0))
-    assert (tmp_path / "raw.arrows").stat().st_size == 0
+    early = ReplaySource(tmp_path / "raw.arrows")
+    early.open()
+    assert read_all(early) == []  # buffered, not yet written
     now[0] = 0.5
     writer.write(Chunk(b"D second\n", 1.5))
     size = (tmp_path / "raw.arrows").stat().st_size

@@ -1,8 +1,8 @@
-"""Raw captures: every byte as it arrived, with its arrival time, and their replay as a source.
+"""Replay of raw captures: every byte as it arrived, with its arrival time, as a source again.
 
-A raw capture is an Arrow IPC stream with two columns, ``arrival`` (timestamp[us, UTC]) and ``data``
-(binary), one row per chunk read. Batches are written at most every half second and synced to disk, so
-a crash loses at most that much, and a torn last batch is skipped on replay. Replay also accepts a plain
+A raw capture (written by :class:`logger.store.raw.RawCaptureWriter`) is an Arrow IPC stream with two columns,
+``arrival`` (timestamp[us, UTC]) and ``data`` (binary), one row per chunk read; a torn last batch (a crash
+while recording) is skipped. Replay also accepts a plain
 byte dump of a port (``cat /dev/ttyACM0 > capture.bin``); it has no arrival times, so its chunks carry
 NaN and the pipeline stamps samples from the device clock instead.
 """
@@ -10,7 +10,6 @@ NaN and the pipeline stamps samples from the device clock instead.
 from __future__ import annotations
 
 import math
-import os
 import time
 from collections.abc import Callable, Iterator
 from pathlib import Path
@@ -22,74 +21,12 @@ import pyarrow as pa
 from logger.sources.base import Chunk, SourceError
 
 SCHEMA = pa.schema([("arrival", pa.timestamp("us", tz="UTC")), ("data", pa.binary())])
-FLUSH_INTERVAL_S = 0.5
 PLAIN_CHUNK = 65536
 
 _STREAM_MAGIC = b"\xff\xff\xff\xff"
 _TEXT_BYTES = np.zeros(256, dtype=bool)
 _TEXT_BYTES[32:127] = True
 _TEXT_BYTES[[9, 10, 13]] = True
-
-
-class RawCaptureWriter:
-    """Appends chunks to a new raw capture file, syncing at most every ``FLUSH_INTERVAL_S``.
-
-    Args:
-        path: the file to create; an existing file is never overwritten (``FileExistsError``).
-        clock: monotonic clock deciding when to flush (tests may pass a fake).
-    """
-
-    def __init__(self, path: str | Path, clock: Callable[[], float] = time.monotonic) -> None:
-        self.path = Path(path)
-        self._file = open(self.path, "xb")  # noqa: SIM115 - kept open for the life of the writer
-        self._writer = pa.ipc.new_stream(self._file, SCHEMA)
-        self._clock = clock
-        self._arrivals: list[float] = []
-        self._data: list[bytes] = []
-        self._last_flush = clock()
-        self.chunks = 0
-        self.bytes = 0
-
-    def write(self, chunk: Chunk) -> None:
-        """Buffer one chunk; empty chunks are skipped. Flushes when the last flush is 0.5 s old."""
-        if chunk.data:
-            self._arrivals.append(chunk.host_time)
-            self._data.append(chunk.data)
-            self.chunks += 1
-            self.bytes += len(chunk.data)
-        if self._clock() - self._last_flush >= FLUSH_INTERVAL_S:
-            self.flush()
-
-    def flush(self) -> None:
-        """Write buffered chunks as one batch and sync the file to disk."""
-        self._last_flush = self._clock()
-        if not self._data:
-            return
-        arrival_s = np.asarray(self._arrivals, dtype=np.float64)
-        missing = ~np.isfinite(arrival_s)
-        arrival_us = np.where(missing, 0, np.round(arrival_s * 1e6)).astype(np.int64)
-        arrival = pa.array(arrival_us, type=pa.int64(), mask=missing).cast(SCHEMA.field("arrival").type)
-        batch = pa.record_batch([arrival, pa.array(self._data, type=pa.binary())], schema=SCHEMA)
-        self._arrivals, self._data = [], []
-        self._writer.write_batch(batch)
-        self._file.flush()
-        os.fsync(self._file.fileno())
-
-    def close(self) -> None:
-        """Flush, end the stream and close the file; safe to call twice."""
-        if self._file.closed:
-            return
-        self.flush()
-        self._writer.close()
-        self._file.flush()
-        os.fsync(self._file.fileno())
-        self._file.close()
-
-    def __enter__(self) -> RawCaptureWriter:
-        return self
-
-    def __exit__(self, *exc: object) -> None:
-        self.close()
 
 
 class ReplaySource:

@@ -24,7 +24,7 @@ import pyarrow as pa
 from logger.store.files import StoreError, read_run_json, utc_now
 from logger.store.layout import run_folder_name
 from logger.store.recover import find_unfinished, recover_run
-from logger.store.schema import channels_of, event_schema, sample_schema
+from logger.store.schema import channels_of, event_schema, sample_batch, sample_schema
 from logger.store.writer import RunWriter
 
 __all__ = [
@@ -37,6 +37,7 @@ __all__ = [
     "read_run_json",
     "recover_run",
     "run_folder_name",
+    "sample_batch",
     "sample_schema",
 ]
 

@@ -11,6 +11,8 @@ from collections.abc import Iterator
 import numpy as np
 import pyarrow as pa
 
+from logger.store.arrays import as_numpy
+
 
 def conform(batch: pa.RecordBatch, schema: pa.Schema) -> pa.RecordBatch:
     """``batch`` in exactly ``schema``: columns reordered and safely cast (int64 counts to uint16...).
@@ -56,7 +58,7 @@ def split_by_slot(
     Yields:
         ``(slot, piece)`` in order; the pieces together are the batch.
     """
-    utc = batch.column("utc").cast(pa.int64()).to_numpy()
+    utc = as_numpy(batch.column("utc"), np.int64)
     slots = np.maximum.accumulate(np.maximum((utc - t0_us) // slot_us, current))
     edges = [0, *(np.flatnonzero(np.diff(slots)) + 1).tolist(), len(slots)]
     for start, stop in itertools.pairwise(edges):

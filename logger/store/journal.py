@@ -102,7 +102,7 @@ class JournalWriter:
 
 
 def _empty_batch(schema: pa.Schema) -> pa.RecordBatch:
-    return pa.RecordBatch.from_arrays([pa.array([], type=f.type) for f in schema], schema=schema)
+    return pa.RecordBatch.from_arrays([pa.nulls(0, f.type) for f in schema], schema=schema)
 
 
 def open_journal(path: Path) -> tuple[pa.Schema, Iterator[pa.RecordBatch]] | None:

@@ -12,7 +12,10 @@ import re
 from collections.abc import Sequence
 from typing import Any
 
+import numpy as np
 import pyarrow as pa
+
+from logger.store.arrays import from_numpy, from_values
 
 UTC_TYPE = pa.timestamp("us", tz="UTC")
 FIXED_COLUMNS: tuple[str, ...] = ("utc", "device_us", "seq")
@@ -128,6 +131,30 @@ def event_batch(row: dict[str, Any]) -> pa.RecordBatch:
         if row.get(name) is None:
             raise ValueError(f"event needs {name!r}")
     try:
-        return pa.RecordBatch.from_pylist([row], schema=schema)
-    except (pa.ArrowInvalid, pa.ArrowTypeError, TypeError) as exc:
+        columns = [from_values([row.get(field.name)], field.type) for field in schema]
+        return pa.RecordBatch.from_arrays(columns, schema=schema)
+    except (pa.ArrowInvalid, pa.ArrowTypeError, TypeError, ValueError, OverflowError) as exc:
         raise ValueError(f"event {row!r} does not fit the event table: {exc}") from None
+
+
+def sample_batch(
+    schema: pa.Schema,
+    utc_us: np.ndarray,
+    device_us: np.ndarray,
+    seq: np.ndarray,
+    values: np.ndarray,
+    counts: np.ndarray,
+) -> pa.RecordBatch:
+    """A batch of the sample table from numpy arrays, without copying the time columns.
+
+    Args:
+        schema: From :func:`sample_schema`.
+        utc_us: int64 UTC in microseconds; ``device_us`` and ``seq`` int64.
+        values: float32 calibrated values, shape (rows, channels), channels in the schema's order.
+        counts: uint16 raw counts, same shape.
+    """
+    columns = [from_numpy(utc_us, UTC_TYPE), from_numpy(device_us, pa.int64()), from_numpy(seq, pa.int64())]
+    for value_column, count_column in zip(values.T, counts.T, strict=True):
+        columns.append(from_numpy(value_column, pa.float32()))
+        columns.append(from_numpy(count_column, pa.uint16()))
+    return pa.RecordBatch.from_arrays(columns, schema=schema)
