@@ -88,3 +88,25 @@ def test_ports_lists_or_hints(capsys) -> None:
     assert main(["ports"]) == 0
     captured = capsys.readouterr()
     assert captured.out or captured.err
+
+
+def test_sigterm_stops_cleanly_with_parts_sealed(tmp_path: Path) -> None:
+    import json
+    import signal
+    import subprocess
+    import sys
+    import time
+
+    out = tmp_path / "runs"
+    proc = subprocess.Popen([sys.executable, "-m", "logger", "record", "--sim", "--speed", "5", "--out", str(out),
+                             "--quiet"], cwd=Path(__file__).resolve().parents[1], stderr=subprocess.PIPE, text=True)
+    deadline = time.monotonic() + 20
+    while not list(out.glob("*/_journal-*.arrows")) and time.monotonic() < deadline:
+        time.sleep(0.05)
+    time.sleep(1.0)
+    proc.send_signal(signal.SIGTERM)
+    assert proc.wait(20) == 0, proc.stderr.read()
+    (run,) = out.iterdir()
+    meta = json.loads((run / "_run.json").read_text())
+    assert meta["status"] == "complete" and meta["stop_reason"] == "stopped by signal"
+    assert not list(run.glob("_journal-*")) and len(pd.read_parquet(run)) == meta["rows"] > 0
