@@ -91,6 +91,7 @@ class Pipeline:
     def start(self) -> None:
         """Open the source (raises :class:`SourceError` at once if it cannot) and start ingesting."""
         self.source.open()
+        self.decoder.joined_midstream()
         self._send(ASK_HEADER)
         self._asked_at = time.monotonic()
         self._started_at = time.monotonic()
@@ -303,6 +304,7 @@ class Pipeline:
                 self.message = f"link lost; still retrying: {exc}"
                 continue
             self.reconnects += 1
+            self.decoder.joined_midstream()
             back = time.time()
             self._event("link_lost", int(lost_at * 1e6), int(back * 1e6), detail=why)
             self._send(ASK_HEADER)

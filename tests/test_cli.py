@@ -80,8 +80,11 @@ def test_keep_raw_then_replay_gives_the_same_samples(tmp_path: Path) -> None:
     (run,) = first.iterdir()
     assert main(["record", "--replay", str(run / "_raw.arrows"), "--out", str(second), "--quiet"]) == 0
     (again,) = second.iterdir()
-    a, b = pd.read_parquet(run), pd.read_parquet(again)
-    pd.testing.assert_frame_equal(a, b.iloc[: len(a)].reset_index(drop=True))
+    a = pd.read_parquet(run)
+    b = pd.read_parquet(again).iloc[: len(a)].reset_index(drop=True)
+    pd.testing.assert_frame_equal(a.drop(columns="utc"), b.drop(columns="utc"))
+    # UTC comes from the same arrival times, but which reads were decoded together can differ: sub-ms.
+    assert (a["utc"] - b["utc"]).abs().max() < pd.Timedelta(milliseconds=2)
 
 
 def test_ports_lists_or_hints(capsys) -> None:

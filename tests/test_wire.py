@@ -65,7 +65,7 @@ def _collect(items: list) -> tuple[list[tuple[int, ...]], list]:
 
 def _balanced(d: Decoder) -> bool:
     c = d.counters
-    lines_add_up = c.lines == c.frames + c.headers + c.answers + c.rejected
+    lines_add_up = c.lines == c.frames + c.headers + c.answers + c.rejected + c.partial
     return lines_add_up and c.rejected == c.bad_crc + c.malformed + c.overlong
 
 
@@ -219,3 +219,17 @@ def test_line_limit_counts_cr_and_lf_wherever_the_read_splits() -> None:
 def test_bad_headers_are_refused(body: str) -> None:
     with pytest.raises(ValueError):
         DeviceHeader.parse(body)
+
+
+def test_fragment_after_joining_midstream_is_not_an_error() -> None:
+    seq, dev, counts = _frames(3)
+    stream = encode_frames(seq, dev, counts)
+    d = Decoder()
+    d.joined_midstream()
+    rows, _ = _collect(d.feed(stream[7:]))
+    assert len(rows) == 2 and d.counters.partial == 1 and d.counters.rejected == 0 and _balanced(d)
+    d.joined_midstream()
+    rows, _ = _collect(d.feed(stream))  # joined exactly at a line start: nothing is lost
+    assert len(rows) == 3 and d.counters.partial == 1
+    d.feed(b"junk\n")
+    assert d.counters.rejected == 1  # only the first line after joining is given the benefit of the doubt

@@ -34,11 +34,12 @@ for _i, _c in enumerate(b"abcdef"):
 _DATA_LENGTHS = {data_line_length(n): n for n in range(1, MAX_CHANNELS + 1)}
 
 Item = FrameBatch | DeviceHeader | Answer
+_BAD_CRC, _MALFORMED, _OVERLONG, _PARTIAL = 0, 1, 2, 3
 
 
 @dataclass
 class DecoderCounters:
-    """Running totals. ``lines == frames + headers + answers + rejected`` always holds."""
+    """Running totals. ``lines == frames + headers + answers + rejected + partial`` always holds."""
 
     bytes_in: int = 0
     lines: int = 0
@@ -49,6 +50,8 @@ class DecoderCounters:
     bad_crc: int = 0
     malformed: int = 0
     overlong: int = 0
+    partial: int = 0
+    """Fragments of a line cut by connecting mid-stream (see :meth:`Decoder.joined_midstream`); not errors."""
 
     def as_dict(self) -> dict[str, int]:
         return {f.name: getattr(self, f.name) for f in fields(self)}
@@ -80,6 +83,15 @@ class Decoder:
         self.counters = DecoderCounters()
         self._tail = b""
         self._skipping = False
+        self._joined = False
+
+    def joined_midstream(self) -> None:
+        """The next bytes may start in the middle of a line (a port just opened on a running device): forget
+        any partial line, and if the first complete line fails its checks, count it as a fragment, not an
+        error."""
+        self._tail = b""
+        self._skipping = False
+        self._joined = True
 
     def feed(self, data: bytes) -> list[Item]:
         """Decode everything complete in ``data`` (plus what was left over from the last call)."""
@@ -128,8 +140,8 @@ class Decoder:
         n = len(starts)
         self.counters.lines += n
         kind = np.zeros(n, dtype=np.int8)  # 0 rejected, 1..8 data with that many channels, -1 text item
+        why = np.where(overlong, _OVERLONG, _MALFORMED).astype(np.int8)  # reason, for rejected rows
         first = np.where(overlong, 0, arr[starts])
-        bad_crc = 0
         data_rows = np.flatnonzero(first == _D)
         for length in np.unique(lengths[data_rows]):
             channels = _DATA_LENGTHS.get(int(length))
@@ -137,17 +149,22 @@ class Decoder:
             if channels is not None:
                 layout_ok, crc_ok = self._check_data(arr, starts[rows], channels)
                 kind[rows[layout_ok & crc_ok]] = channels
-                bad_crc += int((layout_ok & ~crc_ok).sum())
+                why[rows[layout_ok & ~crc_ok]] = _BAD_CRC
         parsed: dict[int, DeviceHeader | Answer] = {}
         for row in np.flatnonzero(((first == _H) | (first == _A)) & ~overlong):
             item = self._parse_text(buf[starts[row] : starts[row] + lengths[row]])
             if isinstance(item, str):
-                bad_crc += item == "crc"
+                why[row] = _BAD_CRC if item == "crc" else _MALFORMED
             else:
                 parsed[int(row)] = item
                 kind[row] = -1
-        n_overlong = int(overlong.sum())
-        self._count_rejects(bad_crc, int((kind == 0).sum()) - bad_crc - n_overlong, n_overlong)
+        if self._joined and n:
+            if kind[0] == 0:
+                why[0] = _PARTIAL
+            self._joined = False
+        tally = np.bincount(why[kind == 0], minlength=4)
+        self.counters.partial += int(tally[_PARTIAL])
+        self._count_rejects(int(tally[_BAD_CRC]), int(tally[_MALFORMED]), int(tally[_OVERLONG]))
         return self._assemble(arr, starts, kind, parsed)
 
     @staticmethod
