@@ -5,8 +5,8 @@
    (b) a naive peer: pyserial ``readline()``, ``split``, ``int`` and ``csv.writer``.
 2. CPU share of one core while recording a 1 kHz stream in real time (the simulated rig served from another
    process on a pseudo-terminal, so only the recorder's own CPU counts).
-3. Memory over a long simulated run at 1 kHz (24 h of simulated time by default, as fast as it goes), and
-   bytes on disk per two-channel row.
+3. Memory over a long simulated run at 1 kHz (24 h of simulated time by default, as fast as it goes, in a
+   fresh process), and bytes on disk per two-channel row.
 
 Run with ``make bench`` or ``.venv/bin/python tests/bench/bench_ingest.py [--hours 24] [--seconds 300]``.
 """
@@ -15,6 +15,7 @@ from __future__ import annotations
 
 import argparse
 import csv
+import json
 import os
 import resource
 import subprocess
@@ -163,6 +164,17 @@ def long_run(hours: float, out: Path) -> dict[str, float]:
     }
 
 
+def long_run_in_fresh_process(hours: float, out: Path) -> dict[str, float]:
+    """The memory run in a process of its own, so nothing left over from the other measurements counts."""
+    code = (
+        "import json, sys; from pathlib import Path; sys.path.insert(0, sys.argv[3]); import bench_ingest as b; "
+        "print(json.dumps(b.long_run(float(sys.argv[1]), Path(sys.argv[2]))))"
+    )
+    done = subprocess.run([sys.executable, "-c", code, str(hours), str(out), str(Path(__file__).parent)],
+                          stdout=subprocess.PIPE, text=True, check=True)
+    return json.loads(done.stdout.strip().splitlines()[-1])
+
+
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--seconds", type=float, default=600.0, help="length of the recorded stream (1 kHz)")
@@ -189,7 +201,7 @@ def main() -> None:
         print(f"\n2. recording 1 kHz in real time for {args.cpu_seconds:g} s ({got} rows): "
               f"{share:.1%} of one core")
 
-        stats = long_run(args.hours, tmp_path / "long")
+        stats = long_run_in_fresh_process(args.hours, tmp_path / "long")
         print(f"\n3. {args.hours:g} h simulated at 1 kHz: {stats['rows']} rows in {stats['parts']} parts, "
               f"{stats['wall_s']:.0f} s wall ({stats['rows'] / stats['wall_s']:.0f} rows/s incl. simulation)")
         print(f"   RSS at 10 %: {stats['rss_at_10pct_mb']:.1f} MB, at end: {stats['rss_end_mb']:.1f} MB, "
