@@ -226,8 +226,21 @@ def _record(source: Source, rig: Rig, args: argparse.Namespace) -> int:
                 print(status_line(pipeline.snapshot()), file=sys.stderr, flush=True)
     except KeyboardInterrupt:
         pipeline.request_stop("stopped by user")
-        pipeline.wait()
+    finally:
+        pipeline.request_stop(pipeline.stop_reason)
+        _wait_for_seal(pipeline)
     return _report(pipeline)
+
+
+def _wait_for_seal(pipeline: Pipeline) -> None:
+    """Wait until the parts are sealed, even through more Ctrl-C presses (the journal is safe either way)."""
+    while True:
+        try:
+            if pipeline.wait(0.5):
+                return
+        except KeyboardInterrupt:
+            print("railtap: sealing the run's parts, one moment (the journal keeps every sample meanwhile)",
+                  file=sys.stderr, flush=True)
 
 
 def _recover_leftovers(root: Path) -> None:
@@ -247,8 +260,9 @@ def _report(pipeline: Pipeline) -> int:
         print(f"{final.get('folder', pipeline.recorder.folder)}: {final.get('rows', 0)} rows, "
               f"{len(final.get('parts', []))} part(s); {final.get('stop_reason', pipeline.stop_reason)}")
     link = snap.link
+    drift = f"{link.drift_ppm:+.1f} ppm" if pipeline.clock.fitted else "not measured (needs 30 s)"
     print(f"frames {link.frames}, lost {link.lost}, rejected lines {link.rejected} (bad CRC {link.bad_crc}), "
-          f"device resets {link.resets}, reconnects {link.reconnects}, clock drift {link.drift_ppm:+.1f} ppm")
+          f"device resets {link.resets}, reconnects {link.reconnects}, device clock drift {drift}")
     if pipeline.error:
         print(f"railtap: {pipeline.error}", file=sys.stderr)
         return 1

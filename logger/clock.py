@@ -165,6 +165,11 @@ class ClockFit:
         self._last_utc_us = -(2**62)
 
     @property
+    def fitted(self) -> bool:
+        """Whether drift has been measured yet (it needs at least 30 s of device time)."""
+        return self._slope != 1.0
+
+    @property
     def drift_ppm(self) -> float:
         """How fast the device clock runs against the host's, in parts per million (positive: fast)."""
         return (1.0 / self._slope - 1.0) * 1e6

@@ -84,6 +84,7 @@ class Pipeline:
         self._last_us: int | None = None
         self._last_utc_us: int | None = None
         self._stop = threading.Event()
+        self._done = threading.Event()
         self._thread = threading.Thread(target=self._run, name="railtap-ingest", daemon=True)
 
     # -- control ---------------------------------------------------------------------------------
@@ -103,9 +104,12 @@ class Pipeline:
         self._stop.set()
 
     def wait(self, timeout: float | None = None) -> bool:
-        """Block until the run has ended; True if it has."""
-        self._thread.join(timeout)
-        return not self._thread.is_alive()
+        """Block until the run has ended and its parts are sealed; True if it has.
+
+        An Event rather than ``Thread.join``: a join cut short by Ctrl-C can report a live thread as ended,
+        and the process would then exit before the parts are sealed.
+        """
+        return self._done.wait(timeout)
 
     def stop(self, reason: str = "stopped by user") -> dict[str, Any] | None:
         """Stop, seal everything and return the run's final metadata (None if nothing was recorded)."""
@@ -127,7 +131,10 @@ class Pipeline:
         except (RigError, SourceError) as exc:
             self._fail(str(exc))
         finally:
-            self._finish()
+            try:
+                self._finish()
+            finally:
+                self._done.set()
 
     def _step(self) -> bool:
         try:

@@ -93,7 +93,8 @@ def test_ports_lists_or_hints(capsys) -> None:
     assert captured.out or captured.err
 
 
-def test_sigterm_stops_cleanly_with_parts_sealed(tmp_path: Path) -> None:
+@pytest.mark.parametrize(("signame", "reason"), [("SIGTERM", "stopped by signal"), ("SIGINT", "stopped by user")])
+def test_signals_stop_cleanly_with_parts_sealed(tmp_path: Path, signame: str, reason: str) -> None:
     import json
     import signal
     import subprocess
@@ -107,9 +108,9 @@ def test_sigterm_stops_cleanly_with_parts_sealed(tmp_path: Path) -> None:
     while not list(out.glob("*/_journal-*.arrows")) and time.monotonic() < deadline:
         time.sleep(0.05)
     time.sleep(1.0)
-    proc.send_signal(signal.SIGTERM)
+    proc.send_signal(getattr(signal, signame))
     assert proc.wait(20) == 0, proc.stderr.read()
     (run,) = out.iterdir()
     meta = json.loads((run / "_run.json").read_text())
-    assert meta["status"] == "complete" and meta["stop_reason"] == "stopped by signal"
+    assert meta["status"] == "complete" and meta["stop_reason"] == reason
     assert not list(run.glob("_journal-*")) and len(pd.read_parquet(run)) == meta["rows"] > 0
