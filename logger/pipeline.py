@@ -420,10 +420,11 @@ class Pipeline:
         )
 
     def _measured_rate(self) -> float:
-        marks = list(self._rate_marks)
-        if len(marks) < 2 or marks[-1][0] - marks[0][0] <= 0:
+        """Frames per second over the last few seconds, falling to zero when nothing arrives."""
+        marks = [m for m in self._rate_marks if m[0] >= time.monotonic() - 5.0]
+        if len(marks) < 2:
             return 0.0
-        return (marks[-1][1] - marks[0][1]) / (marks[-1][0] - marks[0][0])
+        return (marks[-1][1] - marks[0][1]) / (time.monotonic() - marks[0][0])
 
     def _recording_state(self) -> RecordingState | None:
         rec = self.recorder
