@@ -28,6 +28,7 @@ from logger.store import sample_batch, sample_schema
 from logger.wire import Answer, Decoder, DeviceHeader, FrameBatch, encode_line
 
 ASK_HEADER = encode_line("?H")
+MAX_PENDING_FRAMES = 1 << 20
 
 
 @dataclass(frozen=True)
@@ -71,6 +72,9 @@ class Pipeline:
         self._names = tuple(ch.name for ch in rig.channels)
         self._schema = sample_schema(self._names)
         self._pending: list[tuple[FrameBatch, float]] = []
+        self._pending_frames = 0
+        self.unheaded = 0
+        """Frames dropped because no header came to say how to read them."""
         self._pending_raw: list[Chunk] = []
         self._held: list[bytes] = []
         self._held_bytes = 0
@@ -180,7 +184,7 @@ class Pipeline:
         for item in self.decoder.feed(data):
             if isinstance(item, FrameBatch):
                 if self.calibrator is None:
-                    self._pending.append((item, host_time))
+                    self._hold_until_header(item, host_time)
                 else:
                     self._emit(item, host_time)
             elif isinstance(item, DeviceHeader):
@@ -188,6 +192,16 @@ class Pipeline:
             else:
                 self.answers.append(item)
         self._rate_marks.append((time.monotonic(), self.decoder.counters.frames))
+
+    def _hold_until_header(self, batch: FrameBatch, host_time: float) -> None:
+        """Keep frames that came before the first header (they need its ADC bits and reference); past
+        ``MAX_PENDING_FRAMES`` the oldest go, counted, so a device that never sends one cannot fill memory."""
+        self._pending.append((batch, host_time))
+        self._pending_frames += len(batch)
+        while self._pending_frames > MAX_PENDING_FRAMES and len(self._pending) > 1:
+            dropped, _ = self._pending.pop(0)
+            self._pending_frames -= len(dropped)
+            self.unheaded += len(dropped)
 
     def _on_header(self, header: DeviceHeader) -> None:
         first = self.header is None
@@ -208,7 +222,7 @@ class Pipeline:
         if self.settings.record_root is not None:
             self._open_recorder(header)
         self.state, self.message = "running", f"receiving from {self.source.name}"
-        pending, self._pending = self._pending, []
+        pending, self._pending, self._pending_frames = self._pending, [], 0
         for batch, host_time in pending:
             self._emit(batch, host_time)
 
@@ -372,6 +386,11 @@ class Pipeline:
 
     def _finish(self) -> None:
         self.source.close()
+        if self.header is None and self.decoder.counters.frames and not self.error:
+            self._fail(
+                f"{self.decoder.counters.frames} frames arrived but never a header line, so nothing could be "
+                "recorded: check the firmware, or set device.adc_bits and device.vref_mv in the rig file"
+            )
         if self.recorder is not None:
             self.final = self.recorder.stop(self.stop_reason)
             if self.recorder.error and not self.error:

@@ -178,3 +178,18 @@ def _rig_file(tmp_path: Path) -> Path:
     path = tmp_path / "rig.toml"
     path.write_text(demo_rig_text())
     return path
+
+
+def test_device_that_never_sends_a_header_gets_a_plain_message(tmp_path: Path) -> None:
+    device = SimDevice(seed=1)
+    device._pending.clear()  # a firmware that never sends a header
+    device.header_period_us = float("inf")
+    device.write = lambda data: None
+    pipeline = Pipeline(SimSource(device, speed=10.0, duration_s=15), RIG,
+                        Settings(record_root=tmp_path, header_wait_s=0.3))
+    pipeline.start()
+    time.sleep(0.5)
+    assert "no header from the device" in pipeline.snapshot().message
+    assert pipeline.wait(30)
+    assert pipeline.error is not None and "never a header line" in pipeline.error and "\n" not in pipeline.error
+    assert not list(tmp_path.iterdir())
