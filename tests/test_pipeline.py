@@ -185,7 +185,7 @@ def test_device_that_never_sends_a_header_gets_a_plain_message(tmp_path: Path) -
     device._pending.clear()  # a firmware that never sends a header
     device.header_period_us = float("inf")
     device.write = lambda data: None
-    pipeline = Pipeline(SimSource(device, speed=10.0, duration_s=15), RIG,
+    pipeline = Pipeline(SimSource(device, speed=10.0, duration_s=9), RIG,
                         Settings(record_root=tmp_path, header_wait_s=0.3))
     pipeline.start()
     time.sleep(0.5)
