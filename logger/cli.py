@@ -13,6 +13,7 @@ from typing import Any
 from logger import __version__
 from logger.live import Snapshot
 from logger.pipeline import Pipeline, Settings
+from logger.recording import use_lean_allocator
 from logger.rig import Rig, RigError, demo_rig_text, load_rig, parse_rig
 from logger.sources.base import Source, SourceError
 from logger.store import StoreError
@@ -208,6 +209,7 @@ def _source(args: argparse.Namespace, rig: Rig) -> Source:
 
 
 def _record(source: Source, rig: Rig, args: argparse.Namespace) -> int:
+    use_lean_allocator()
     _recover_leftovers(args.out)
     settings = Settings(
         record_root=args.out,
