@@ -97,6 +97,11 @@ def parse_rig(text: str, source: str = "<rig>") -> Rig:
         doc = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
         raise RigError(f"{source}: not valid TOML ({exc})") from None
+    return rig_from_dict(doc, source, text)
+
+
+def rig_from_dict(doc: dict[str, Any], source: str = "<rig>", text: str = "") -> Rig:
+    """Check an already-parsed rig table (a rig file, or the ``[rig]`` table of a simulated scenario)."""
     checker = _Checker(source)
     name = checker.get(doc, "name", str, "rig")
     device = _device(checker, doc.get("device", {}))
