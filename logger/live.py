@@ -11,6 +11,8 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from logger.events.model import Event
+
 
 class Ring:
     """The most recent ``capacity`` samples: UTC microseconds and one float32 column per channel."""
@@ -85,4 +87,7 @@ class Snapshot:
     maximum: np.ndarray | None
     link: LinkHealth
     recording: RecordingState | None
-    events: tuple[dict, ...] = ()
+    events: tuple[Event, ...] = ()
+    """The newest events first."""
+    active: tuple[Event, ...] = ()
+    """Brownouts, overvoltages and overcurrents going on right now."""

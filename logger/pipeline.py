@@ -11,7 +11,6 @@ import threading
 import time
 from collections import deque
 from dataclasses import dataclass
-from datetime import UTC, datetime, timedelta
 from pathlib import Path
 from typing import Any
 
@@ -20,6 +19,9 @@ import numpy as np
 from logger import __version__
 from logger.calibration import Calibrator
 from logger.clock import ClockFit, Unwrapper
+from logger.events import Event, EventDetector
+from logger.events.link import LinkWatch
+from logger.events.log import EventLog
 from logger.live import LinkHealth, RecordingState, Ring, Snapshot
 from logger.recording import Recorder
 from logger.rig import Rig, RigError
@@ -81,7 +83,9 @@ class Pipeline:
         self._held_time = float("nan")
         self._fed_at = 0.0
         self._byte_rate = 0.0
-        self._events: deque[dict[str, Any]] = deque(maxlen=200)
+        self.events = EventLog()
+        self.link = LinkWatch(self.settings.gap_event_s)
+        self.detector: EventDetector | None = None
         self._minmax: tuple[np.ndarray, np.ndarray] | None = None
         self._rate_marks: deque[tuple[float, int]] = deque(maxlen=64)
         self._first_us: int | None = None
@@ -192,6 +196,8 @@ class Pipeline:
             else:
                 self.answers.append(item)
         self._rate_marks.append((time.monotonic(), self.decoder.counters.frames))
+        if self._last_utc_us is not None:
+            self._note(self.link.rejects(self.decoder.counters.rejected, self._last_utc_us))
 
     def _hold_until_header(self, batch: FrameBatch, host_time: float) -> None:
         """Keep frames that came before the first header (they need its ADC bits and reference); past
@@ -219,6 +225,7 @@ class Pipeline:
         """First header: size the live ring, open the run folder, then flush what waited for the header."""
         capacity = max(1024, int(self.settings.live_seconds * header.rate_hz))
         self.ring = Ring(capacity, len(self._names))
+        self.detector = EventDetector(self.rig, header.rate_hz)
         if self.settings.record_root is not None:
             self._open_recorder(header)
         self.state, self.message = "running", f"receiving from {self.source.name}"
@@ -247,6 +254,7 @@ class Pipeline:
             part_seconds=self.settings.part_seconds,
             keep_raw=self.settings.keep_raw,
         )
+        self.events.sink = self.recorder.add_event
         for chunk in self._pending_raw:
             self.recorder.add_raw(chunk)
         self._pending_raw = []
@@ -263,8 +271,10 @@ class Pipeline:
         utc = self.clock.to_utc_us(device_us)
         counts = self.calibrator.select(raw)
         values = self.calibrator.apply(raw)
-        self._link_events(u.gaps, u.resets, utc)
+        self._note(self.link.frames(u.gaps, u.resets, utc, self.header.rate_hz, self._last_utc_us))
         self._track(utc, values, device_us)
+        if len(utc):
+            self._note(self.detector.feed(utc, values))
         if self.recorder is not None:
             self.recorder.add_batch(sample_batch(self._schema, utc, device_us, seq, values, counts))
 
@@ -287,31 +297,9 @@ class Pipeline:
             self._last_us = int(device_us[-1])
             self._last_utc_us = int(utc[-1])
 
-    def _link_events(self, gaps: list[tuple[int, int]], resets: list[int], utc: np.ndarray) -> None:
-        rate = self.header.rate_hz if self.header else 1000.0
-        for row, lost in gaps:
-            if lost / rate >= self.settings.gap_event_s:
-                before = utc[row - 1] if row > 0 else (self._last_utc_us or utc[row])
-                self._event("frame_gap", before, utc[row], value=float(lost), detail=f"{lost} frames lost")
-        for row in resets:
-            self._event("device_reset", utc[row], None, detail="device restarted; counters began again")
-
-    def _event(
-        self, kind: str, start_us: int, end_us: int | None, value: float | None = None, detail: str = ""
-    ) -> None:
-        row = {
-            "kind": kind,
-            "channel": None,
-            "start": _stamp(start_us),
-            "end": None if end_us is None else _stamp(end_us),
-            "duration_s": None if end_us is None else (end_us - start_us) / 1e6,
-            "value": value,
-            "depth_pct": None,
-            "detail": detail,
-        }
-        self._events.appendleft(row)
-        if self.recorder is not None:
-            self.recorder.add_event(row)
+    def _note(self, events: list[Event]) -> None:
+        for event in events:
+            self.events.add(event)
 
     def _reconnect(self, why: str) -> bool:
         """Wait out an unplug: retry the source every ``retry_s`` until it is back or the run is stopped."""
@@ -327,7 +315,7 @@ class Pipeline:
             self.reconnects += 1
             self.decoder.joined_midstream()
             back = time.time()
-            self._event("link_lost", int(lost_at * 1e6), int(back * 1e6), detail=why)
+            self.events.add(Event("link_lost", int(lost_at * 1e6), int(back * 1e6), detail=why))
             self._send(ASK_HEADER)
             self.state, self.message = "running", f"reconnected to {self.source.name} after {back - lost_at:.1f} s"
             return True
@@ -391,6 +379,8 @@ class Pipeline:
                 f"{self.decoder.counters.frames} frames arrived but never a header line, so nothing could be "
                 "recorded: check the firmware, or set device.adc_bits and device.vref_mv in the rig file"
             )
+        if self.detector is not None:
+            self._note(self.detector.finish())
         if self.recorder is not None:
             self.final = self.recorder.stop(self.stop_reason)
             if self.recorder.error and not self.error:
@@ -416,7 +406,8 @@ class Pipeline:
             maximum=hi,
             link=self._link_health(),
             recording=self._recording_state(),
-            events=tuple(list(self._events)[:50]),
+            events=self.events.recent(50),
+            active=tuple(self.detector.active()) if self.detector is not None else (),
         )
 
     def reset_minmax(self) -> None:
@@ -458,10 +449,3 @@ class Pipeline:
             journal_lag_rows=rec.rows - rec.durable_rows,
             error=rec.error,
         )
-
-
-_EPOCH = datetime(1970, 1, 1, tzinfo=UTC)
-
-
-def _stamp(utc_us: int) -> datetime:
-    return _EPOCH + timedelta(microseconds=int(utc_us))

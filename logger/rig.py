@@ -42,6 +42,8 @@ class Channel:
     low: float | None = None
     high: float | None = None
     unit: str = ""
+    events: dict[str, float] = field(default_factory=dict)
+    """Detector settings that differ from the defaults (see :mod:`logger.events.rules`)."""
 
     def units_per_pin_volt(self) -> float:
         """Calibrated units per volt at the ADC pin, sign included."""
@@ -162,6 +164,7 @@ def _channel(c: _Checker, index: int, table: dict[str, Any]) -> Channel:
     for key in ("divider", "gain"):
         if numbers[key] is not None and numbers[key] <= 0:
             raise c.fail(f"{w}{key}", "a positive number")
+    events = _event_settings(c, table.get("events", {}), w)
     low, high = numbers["low"], numbers["high"]
     if low is not None and high is not None and low >= high:
         raise c.fail(f"{w}low", f"less than high ({high})")
@@ -172,8 +175,29 @@ def _channel(c: _Checker, index: int, table: dict[str, Any]) -> Channel:
         input=_input(c, table, w),
         negative=c.get(table, "negative", bool, False, w),
         unit=c.get(table, "unit", str, UNITS.get(role, ""), w),
+        events=events,
         **given,
     )
+
+
+EVENT_KEYS = (
+    "brownout_pct", "dropout_pct", "overvoltage_pct", "hysteresis_pct", "min_event_s", "mean_window_s",
+    "overcurrent_s", "flicker_window_s",
+)
+
+
+def _event_settings(c: _Checker, table: dict[str, Any], where: str) -> dict[str, float]:
+    """The optional ``[channel.events]`` table: detector settings for this channel."""
+    if not isinstance(table, dict):
+        raise c.fail(f"{where}events", "a table of detector settings")
+    unknown = sorted(set(table) - set(EVENT_KEYS))
+    if unknown:
+        raise c.fail(f"{where}events.{unknown[0]}", f"one of {', '.join(EVENT_KEYS)}")
+    settings = {k: c.get(table, k, float, None, f"{where}events.") for k in table}
+    for key, value in settings.items():
+        if value < 0:
+            raise c.fail(f"{where}events.{key}", "a number of zero or more")
+    return settings
 
 
 def _input(c: _Checker, table: dict[str, Any], where: str) -> int:

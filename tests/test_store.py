@@ -109,7 +109,8 @@ def test_sample_schema_rejects_bad_names(channels: list[str], words: str) -> Non
 
 def test_event_schema_and_rows() -> None:
     schema = event_schema()
-    assert schema.names == ["kind", "channel", "start", "end", "duration_s", "value", "depth_pct", "detail"]
+    assert schema.names == ["kind", "channel", "start", "end", "duration_s", "value", "depth_pct", "count",
+                            "rate_hz", "duty", "peak", "detail", "id", "episode"]
     assert not schema.field("kind").nullable and not schema.field("start").nullable
     assert all(schema.field(name).nullable for name in schema.names[3:])
     batch = event_batch({"kind": "brownout", "channel": "out_v", "start": datetime(2026, 12, 1, tzinfo=UTC)})

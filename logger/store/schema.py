@@ -103,7 +103,13 @@ def event_schema() -> pa.Schema:
             pa.field("duration_s", pa.float64()),
             pa.field("value", pa.float64()),
             pa.field("depth_pct", pa.float64()),
+            pa.field("count", pa.int64()),
+            pa.field("rate_hz", pa.float64()),
+            pa.field("duty", pa.float64()),
+            pa.field("peak", pa.float64()),
             pa.field("detail", pa.string()),
+            pa.field("id", pa.int64()),
+            pa.field("episode", pa.int64()),
         ]
     )
 

@@ -1,0 +1,146 @@
+"""All event detectors of a rig, fed batch by batch with calibrated values.
+
+Streaming and chunk-invariant: any split of the same samples into batches yields the same events. Each
+channel has a short sliding mean, then hysteresis comparators for dips (brownout, or dropout when the residual
+is below the dropout level), overvoltage and overcurrent, then the flicker grouper over its dips.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from logger.events.flicker import FlickerGrouper
+from logger.events.levels import Comparator, SlidingMean, Span
+from logger.events.model import Event
+from logger.events.rules import ChannelRules, rules_for
+from logger.rig import Channel, Rig
+
+
+class ChannelWatch:
+    """The detectors of one channel."""
+
+    def __init__(self, channel: Channel, rate_hz: float) -> None:
+        self.rules = r = rules_for(channel)
+        self.channel = channel
+        self.sign = -1.0 if (channel.nominal or 0) < 0 or channel.negative else 1.0
+        self.mean = SlidingMean(round(r.mean_window_s * rate_hz))
+        self.dip = Comparator(r.dip_below, r.dip_release, below=True) if r.dip_below is not None else None
+        self.over = Comparator(r.over_above, r.over_release, below=False) if r.over_above is not None else None
+        self.current = (
+            Comparator(r.current_above, r.current_release, below=False) if r.current_above is not None else None
+        )
+        self.flicker = FlickerGrouper(channel.name, r.flicker_window_s, channel.unit)
+
+    def feed(self, t_us: np.ndarray, values: np.ndarray) -> list[Event]:
+        x = self.mean.feed(values * self.sign)
+        events: list[Event] = []
+        if self.dip is not None:
+            for span in self.dip.feed(t_us, x):
+                dip = self._dip(span)
+                if dip is not None:
+                    events += self.flicker.add(dip)
+                    events.append(dip)
+        if self.over is not None:
+            events += [self._over(s) for s in self.over.feed(t_us, x) if self._long_enough(s)]
+        if self.current is not None:
+            events += [self._overcurrent(s) for s in self.current.feed(t_us, x) if self._long_enough(s, True)]
+        events += self.flicker.tick(int(t_us[-1]))
+        return events
+
+    def active(self) -> list[Event]:
+        """Excursions going on now (their end is not known yet)."""
+        now = []
+        for comparator, kind in ((self.dip, "brownout"), (self.over, "overvoltage"), (self.current, "overcurrent")):
+            span = comparator.current() if comparator is not None else None
+            if span is not None:
+                now.append(Event(kind=kind, start_us=span.start_us, channel=self.channel.name,
+                                 value=self.sign * span.extreme, detail="going on"))
+        return now
+
+    def finish(self, last_us: int) -> list[Event]:
+        """At the end of a run: close what is still open at the last sample, and the last flicker group."""
+        events = []
+        if self.dip is not None and (span := self.dip.current()) is not None:
+            dip = self._dip(Span(span.start_us, last_us, span.extreme), note="; still below when the run ended")
+            if dip is not None:
+                events += self.flicker.add(dip)
+                events.append(dip)
+        return events + self.flicker.finish()
+
+    def _long_enough(self, span: Span, current: bool = False) -> bool:
+        least = self.rules.current_min_s if current else self.rules.min_event_s
+        return (span.duration_s or 0.0) >= least
+
+    def _dip(self, span: Span, note: str = "") -> Event | None:
+        r = self.rules
+        if not self._long_enough(span):
+            return None
+        dropout = r.dropout_below is not None and span.extreme < r.dropout_below
+        level = r.level_pct(span.extreme)
+        what = f"down to {span.extreme:.3g} {self.channel.unit}" + (f" ({level:.0f} % of nominal)" if level else "")
+        return Event(
+            kind="dropout" if dropout else "brownout",
+            start_us=span.start_us,
+            end_us=span.end_us,
+            channel=self.channel.name,
+            value=self.sign * span.extreme,
+            depth_pct=r.depth_pct(span.extreme),
+            detail=what + note,
+        )
+
+    def _over(self, span: Span) -> Event:
+        level = self.rules.level_pct(span.extreme)
+        return Event(
+            kind="overvoltage",
+            start_us=span.start_us,
+            end_us=span.end_us,
+            channel=self.channel.name,
+            value=self.sign * span.extreme,
+            depth_pct=None if level is None else level - 100.0,
+            detail=f"up to {span.extreme:.3g} {self.channel.unit}",
+        )
+
+    def _overcurrent(self, span: Span) -> Event:
+        return Event(
+            kind="overcurrent",
+            start_us=span.start_us,
+            end_us=span.end_us,
+            channel=self.channel.name,
+            value=self.sign * span.extreme,
+            detail=f"up to {span.extreme:.3g} {self.channel.unit}, limit {self.rules.current_above:g}",
+        )
+
+
+class EventDetector:
+    """Every channel's detectors; values arrive as (rows, channels) in the rig's channel order."""
+
+    def __init__(self, rig: Rig, rate_hz: float) -> None:
+        self.watches = [ChannelWatch(ch, rate_hz) for ch in rig.channels]
+        self._last_us: int | None = None
+
+    @property
+    def rules(self) -> list[ChannelRules]:
+        return [w.rules for w in self.watches]
+
+    def feed(self, utc_us: np.ndarray, values: np.ndarray) -> list[Event]:
+        """Events that finished in this batch, in order of start."""
+        if len(utc_us) == 0:
+            return []
+        self._last_us = int(utc_us[-1])
+        events = []
+        for k, watch in enumerate(self.watches):
+            events += watch.feed(utc_us, values[:, k])
+        return sorted(events, key=_order)
+
+    def active(self) -> list[Event]:
+        return [e for w in self.watches for e in w.active()]
+
+    def finish(self) -> list[Event]:
+        """Close everything at the end of a run."""
+        if self._last_us is None:
+            return []
+        return sorted((e for w in self.watches for e in w.finish(self._last_us)), key=_order)
+
+
+def _order(event: Event) -> tuple[int, str, str]:
+    return event.start_us, event.channel or "", event.kind

@@ -1,0 +1,68 @@
+"""Flicker: a meter, or a rail, going down and up again and again.
+
+Three or more brownouts or dropouts on one channel whose starts follow each other within a sliding window
+make one episode: its count, repetition rate, duty (the share of the episode spent below the threshold) and
+the range of the residuals. A meter fed from the rail it watches shows this near its drop-out voltage, and it
+shows up on the aux channel that taps the meter's supply node as restarts.
+"""
+
+from __future__ import annotations
+
+from logger.events.model import Event
+from logger.events.rules import FLICKER_MIN_COUNT
+
+
+class FlickerGrouper:
+    """Groups one channel's finished dips into episodes, streaming."""
+
+    def __init__(self, channel: str, window_s: float, unit: str = "") -> None:
+        self.channel = channel
+        self.window_us = int(window_s * 1e6)
+        self.unit = unit
+        self._members: list[Event] = []
+
+    def add(self, dip: Event) -> list[Event]:
+        """Take a finished brownout or dropout; returns an episode if this dip closed one."""
+        done = self.tick(dip.start_us)
+        self._members.append(dip)
+        return done
+
+    def tick(self, now_us: int) -> list[Event]:
+        """Close the current group once the window has passed without a new dip."""
+        if self._members and now_us - self._members[-1].start_us > self.window_us:
+            return self.finish()
+        return []
+
+    def finish(self) -> list[Event]:
+        members, self._members = self._members, []
+        if len(members) < FLICKER_MIN_COUNT:
+            return []
+        return [self._episode(members)]
+
+    @property
+    def pending(self) -> list[Event]:
+        return list(self._members)
+
+    def _episode(self, members: list[Event]) -> Event:
+        first, last = members[0], members[-1]
+        start, end = first.start_us, last.end_us or last.start_us
+        span_s = max((end - start) / 1e6, 1e-9)
+        below_s = sum(m.duration_s or 0.0 for m in members)
+        rate = (len(members) - 1) / max((last.start_us - first.start_us) / 1e6, 1e-9)
+        residuals = [m.value for m in members if m.value is not None]
+        low, high = min(residuals), max(residuals)
+        depths = [m.depth_pct for m in members if m.depth_pct is not None]
+        return Event(
+            kind="flicker",
+            start_us=start,
+            end_us=end,
+            channel=self.channel,
+            value=low,
+            peak=high,
+            depth_pct=max(depths) if depths else None,
+            count=len(members),
+            rate_hz=rate,
+            duty=below_s / span_s,
+            detail=f"{len(members)} dips at {rate:.2f} Hz, {below_s / span_s:.0%} of the time below, "
+            f"residual {low:.3g} to {high:.3g} {self.unit}".rstrip(),
+        )
