@@ -44,8 +44,14 @@ class ChannelWatch:
             events += [self._over(s) for s in self.over.feed(t_us, x) if self._long_enough(s)]
         if self.current is not None:
             events += [self._overcurrent(s) for s in self.current.feed(t_us, x) if self._long_enough(s, True)]
-        events += self.flicker.tick(int(t_us[-1]))
+        events += self.flicker.tick(self._horizon(int(t_us[-1])))
         return events
+
+    def _horizon(self, last_us: int) -> int:
+        """Time up to which no new dip can start: the start of a dip still going on (it may yet join the
+        current flicker group when it ends), else the last sample."""
+        going_on = self.dip.current() if self.dip is not None else None
+        return going_on.start_us if going_on is not None else last_us
 
     def active(self) -> list[Event]:
         """Excursions going on now (their end is not known yet)."""
