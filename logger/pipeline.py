@@ -410,6 +410,11 @@ class Pipeline:
             active=tuple(self.detector.active()) if self.detector is not None else (),
         )
 
+    def mark(self, note: str) -> Event:
+        """A user's note at this moment (the time of the newest sample, else the host clock)."""
+        at = self._last_utc_us if self._last_utc_us is not None else int(time.time() * 1e6)
+        return self.events.add(Event("mark", at, detail=note))
+
     def reset_minmax(self) -> None:
         self._minmax = None
 

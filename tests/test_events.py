@@ -187,3 +187,28 @@ def test_sliding_mean_spans_batches() -> None:
 def test_comparator_refuses_a_release_on_the_wrong_side() -> None:
     with pytest.raises(ValueError):
         Comparator(10.0, 9.0, below=True)
+
+
+def test_sealed_event_table_points_dips_at_their_episode(tmp_path) -> None:
+    import pandas as pd
+    import pyarrow.parquet as pq
+
+    from logger.events.log import EventLog
+    from logger.store import RunWriter, sample_schema
+
+    writer = RunWriter(tmp_path / "run", sample_schema(["rail_v"]), {"rig": "test"})
+    log = EventLog(sink=writer.add_event)
+    detector = EventDetector(parse_rig(RIG_24V), RATE_HZ)
+    utc, values = _rail(8.0)
+    for k in range(4):
+        values[1000 + 700 * k : 1100 + 700 * k, 0] = 18.0
+    for event in _run(detector, utc, values):
+        log.add(event)
+    log.add(Event("mark", int(utc[-1]), detail="checked the fuse"))
+    writer.close("test done")
+    table = pd.read_parquet(tmp_path / "run" / "_events.parquet")
+    (episode_id,) = table.loc[table["kind"] == "flicker", "id"]
+    dips = table[table["kind"] == "brownout"]
+    assert len(dips) == 4 and (dips["episode"] == episode_id).all()
+    assert table.loc[table["kind"] == "mark", "detail"].item() == "checked the fuse"
+    assert b"railtap.run" in pq.read_metadata(tmp_path / "run" / "_events.parquet").metadata

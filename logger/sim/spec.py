@@ -26,7 +26,7 @@ from logger.sim.load import LoadSchedule, LoadStep
 from logger.sim.meter import MeterCircuit
 from logger.sim.model import MeterSpec, Physics
 from logger.sim.rail import RailSpec
-from logger.sim.supply import Fault, RegulatedSupply
+from logger.sim.supply import Fault, RegulatedSupply, check_faults
 
 T = TypeVar("T")
 
@@ -135,6 +135,7 @@ def read_rail(r: Reader, table: Any, where: str) -> RailSpec:
     """One ``[[rail]]`` table."""
     t = r.keys(table, where, ("name", "volts", "amps", "supply", "load", "fault"))
     faults = tuple(read_fault(r, f, f"{where}.fault[{i}]") for i, f in enumerate(r.tables(t, "fault", f"{where}.")))
+    faults = r.build(f"{where}.fault", lambda: check_faults(faults))
     supply = read_supply(r, t.get("supply"), f"{where}.supply", faults)
     load = read_load(r, t.get("load", {}), f"{where}.load")
     volts = r.text(t, "volts", where, "") or None

@@ -14,6 +14,7 @@ from typing import Any
 import pyarrow as pa
 import pyarrow.parquet as pq
 
+from logger.store.episodes import link_episodes
 from logger.store.files import (
     RUN_JSON,
     RunLock,
@@ -142,14 +143,15 @@ def _recover_events(folder: Path, start: dict[str, Any]) -> int:
         if target.exists():
             journal.unlink()
         else:
-            seal_journal(
+            if seal_journal(
                 journal,
                 target,
                 run_metadata=start,
                 part_index=None,
                 time_column="start",
                 options_for=event_parquet_options,
-            )
+            ):
+                link_episodes(target)
     if not target.exists():
         write_empty(target, event_schema(), run_metadata=start, part_index=None, options_for=event_parquet_options)
     return _read_metadata(target).num_rows

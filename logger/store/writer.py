@@ -26,6 +26,7 @@ import pyarrow as pa
 
 from logger import __version__
 from logger.store.batches import conform, split_by_slot
+from logger.store.episodes import link_episodes
 from logger.store.files import (
     RUN_JSON,
     RunLock,
@@ -332,6 +333,8 @@ class RunWriter:
                     part_index=None,
                     options_for=event_parquet_options,
                 )
+            else:
+                link_episodes(target)
         except (OSError, pa.ArrowException) as exc:
             self._fail(exc, temp_name(target))
 
