@@ -3,6 +3,7 @@ block-size invariance, and the shipped scenarios with their ground truth."""
 
 from __future__ import annotations
 
+import itertools
 import math
 from pathlib import Path
 
@@ -69,9 +70,9 @@ def test_node_charge_matches_solve_ivp() -> None:
     ours, node = run_node(c, t, rail, 5.0, True)
     ref, switches = reference(c, t, rail, 5.0, True)
     assert ours[-1] == pytest.approx(c.equilibrium(30.0, True), abs=1e-6) and ours[-1] > c.zener_v
-    # The stepper is exact on each linear segment; what is left is the reference solver's own error
-    # (rtol 1e-11) and the bisection at segment crossings: far below a microvolt.
-    assert np.max(np.abs(ours - ref)) < 1e-6
+    # The stepper is exact on each linear segment (closed form), so what is left is the reference solver's
+    # own error, rtol 1e-11 on about 10 V, i.e. 1e-10 V (measured: 9e-11 V); 1e-8 V leaves a margin of 100.
+    assert np.max(np.abs(ours - ref)) < 1e-8
     assert switches == [] and node.switches == []
 
 
@@ -84,7 +85,7 @@ def test_node_discharge_on_a_falling_rail_matches_solve_ivp() -> None:
     v0 = c.equilibrium(20.0, True)
     ours, node = run_node(c, t, rail, v0, True)
     ref, switches = reference(c, t, rail, v0, True)
-    assert np.max(np.abs(ours - ref)) < 1e-6
+    assert np.max(np.abs(ours - ref)) < 1e-8  # as above (measured: 2e-10 V)
     assert ours[-1] == pytest.approx(c.equilibrium(9.0, True), abs=1e-3) and ours[-1] < c.knee_v
     assert switches == [] and node.switches == []
 
@@ -98,10 +99,10 @@ def test_node_cycles_through_dropout_and_restart_like_solve_ivp() -> None:
     assert len(switches) >= 8
     ours_sw = [(s.t_s, s.on) for s in node.switches]
     assert [on for _, on in ours_sw] == [on for _, on in switches]
-    # Switch times: bisection on the closed form against the solver's event location, both to well
-    # under a microsecond.
-    assert np.max(np.abs(np.array([s for s, _ in ours_sw]) - [s for s, _ in switches])) < 1e-6
-    assert np.max(np.abs(ours - ref)) < 1e-5
+    # Switch times: bisection on the closed form (to 2^-52 of a sample) against the solver's event
+    # location (rtol 1e-11 over a 40-60 ms swing): both far below a nanosecond (measured: 3e-15 s).
+    assert np.max(np.abs(np.array([s for s, _ in ours_sw]) - [s for s, _ in switches])) < 1e-9
+    assert np.max(np.abs(ours - ref)) < 1e-8
 
 
 def flicker_period(c: MeterCircuit, rail_v: float) -> float:
@@ -139,7 +140,7 @@ def test_bigger_capacitor_flickers_slower_but_still_flickers() -> None:
     p_small, n_small = simulated_period(small, 7.0, 10.0)
     p_big, n_big = simulated_period(big, 7.0, 10.0)
     assert p_big == pytest.approx(10 * p_small, rel=1e-9)  # both times scale with C
-    assert p_big > p_small and n_big >= 10
+    assert p_big > p_small and n_small > n_big >= 10
     assert p_small == pytest.approx(0.0955, abs=1e-4)  # about 10 Hz with 100 uF, 1 Hz with 1000 uF
 
 
@@ -156,7 +157,7 @@ def test_default_meter_drops_out_near_8_volts_like_the_trade_rule() -> None:
     node.advance(t, np.interp(t, [0.0, 60.0], [35.0, 5.0]))  # a slow fall, 0.5 V/s
     first_off = next(s for s in node.switches if not s.on)
     assert c.dropout_rail_v() == pytest.approx(8.01, abs=0.01)  # steady-state figure
-    assert 7.5 < first_off.rail_v < 8.5  # what the falling rail shows: 7.98 V
+    assert 7.5 < first_off.rail_v < 8.5  # what the falling rail shows: 7.99 V
 
 
 @given(st.lists(st.integers(1, 2999), max_size=6))
@@ -209,10 +210,10 @@ def test_load_drops_out_when_the_supply_cannot_deliver() -> None:
 def test_load_schedule_steps_ramps_and_repeats() -> None:
     load = LoadSchedule((LoadStep(10.0, "cc", 1.0, ramp_to=3.0, ramp_s=20.0), LoadStep(40.0, "cr", 8.0)),
                         period_s=60.0)
-    modes, values = load.setting(np.array([5.0, 10.0, 20.0, 35.0, 45.0, 80.0, 125.0]))
-    assert modes.tolist() == [OFF, CC, CC, CC, CR, CC, CC]
+    modes, values = load.setting(np.array([5.0, 10.0, 20.0, 35.0, 45.0, 80.0, 125.0, 135.0]))
+    assert modes.tolist() == [OFF, CC, CC, CC, CR, CC, OFF, CC]
     assert values[1:4].tolist() == [1.0, 2.0, 3.0] and values[4] == 8.0
-    assert values[5] == pytest.approx(2.0) and values[6] == pytest.approx(1.5)
+    assert values[5] == pytest.approx(2.0) and values[7] == pytest.approx(1.5)
 
 
 def test_fault_envelope_levels_and_edges() -> None:
@@ -249,7 +250,7 @@ def test_battery_droop_is_monotonic_and_cuts_off_at_capacity_over_current() -> N
     assert np.all(np.diff(volts) <= 0) and np.all(amps == 2.0)
     assert volts[0] == pytest.approx(16.8) and volts[-1] == pytest.approx(12.0, abs=0.05)
     after_v, after_a = rail.values(np.array([end + 1.0, end + 100.0]))
-    assert np.all(after_a == 0) and after_v[1] == after_v[0] >= 12.0
+    assert np.all(after_a == 0) and after_v[1] == after_v[0] == pytest.approx(12.0, abs=0.01)  # at rest
 
 
 def test_internal_resistance_brings_the_cutoff_forward() -> None:
@@ -325,7 +326,7 @@ def test_scenario_counts_are_block_size_invariant() -> None:
     whole = scenario.make_model(seed=5).counts(t)
     model = scenario.make_model(seed=5)
     cuts = [0, 1, 7, 500, 501, 1333, 2000]
-    parts = [model.counts(t[a:b]) for a, b in zip(cuts, cuts[1:], strict=False)]
+    parts = [model.counts(t[a:b]) for a, b in itertools.pairwise(cuts)]
     assert np.array_equal(np.concatenate(parts), whole)
     assert sum(len(s) for s in model.switches().values()) >= 4
 
