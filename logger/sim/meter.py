@@ -37,7 +37,7 @@ from dataclasses import dataclass
 import numpy as np
 from scipy.signal import lfilter
 
-_MIN_WINDOW = 32
+_MIN_WINDOW = 256
 _MAX_WINDOW = 8192
 _MAX_CROSSINGS = 16
 _BISECTIONS = 52
@@ -255,13 +255,14 @@ class MeterNode:
         v_end = v
         for _ in range(_MAX_CROSSINGS):
             rem = span - done
-            v_end = self._exact(v, xa, x1, rem)
+            line = self._line(xa, x1)
+            v_end = _exact(v, line, rem, rem)
             lo, lo_switch, hi, hi_switch = self._bounds[(self._on, self._k)]
             if lo <= v_end <= hi or rem <= 0.0:
                 return v_end
             upward = v_end > hi
             bound = hi if upward else lo
-            s = self._crossing(v, xa, x1, rem, bound, upward)
+            s = _crossing(v, line, rem, bound, upward)
             done += s
             xa, v = xa + (x1 - xa) * (s / rem), bound
             if hi_switch if upward else lo_switch:
@@ -271,27 +272,44 @@ class MeterNode:
                 self._k += 1 if upward else -1
         return v_end
 
-    def _crossing(self, v: float, xa: float, x1: float, rem: float, bound: float, upward: bool) -> float:
-        """Time into the interval at which the closed-form node voltage first passes ``bound`` (bisection)."""
-        inside, outside = 0.0, rem
-        for _ in range(_BISECTIONS):
-            mid = 0.5 * (inside + outside)
-            vm = self._exact(v, xa, xa + (x1 - xa) * (mid / rem), mid)
-            if (vm > bound) if upward else (vm < bound):
-                outside = mid
-            else:
-                inside = mid
-        return outside
+    def _line(self, xa: float, xb: float) -> tuple[float, float, float]:
+        """Thevenin voltage at both ends of an interval, and the time constant, in the current segment."""
+        tha, tau = self.circuit.thevenin(self._on, self._k, xa)
+        thb, _ = self.circuit.thevenin(self._on, self._k, xb)
+        return tha, thb, tau
 
-    def _exact(self, v0: float, xa: float, xb: float, s: float) -> float:
-        """Node voltage after ``s`` seconds from ``v0``, with the rail going linearly from ``xa`` to ``xb``."""
-        if s <= 0.0:
-            return v0
-        c = self.circuit
-        tha, tau = c.thevenin(self._on, self._k, xa)
-        thb, _ = c.thevenin(self._on, self._k, xb)
-        e, q = _hold_factors(s / tau)
-        return e * v0 + (1.0 - q) * thb + (q - e) * tha
+
+def _exact(v0: float, line: tuple[float, float, float], rem: float, s: float) -> float:
+    """Node voltage ``s`` seconds into an interval of ``rem`` seconds over which the Thevenin voltage goes
+    linearly from ``line[0]`` to ``line[1]`` (time constant ``line[2]``), starting from ``v0``."""
+    if s <= 0.0:
+        return v0
+    tha, thb, tau = line
+    th_s = tha + (thb - tha) * (s / rem)
+    e, q = _hold_factors(s / tau)
+    return e * v0 + (1.0 - q) * th_s + (q - e) * tha
+
+
+def _crossing(v: float, line: tuple[float, float, float], rem: float, bound: float, upward: bool) -> float:
+    """Time into the interval at which the node first passes ``bound``.
+
+    With a steady rail the first-order response gives it in closed form, ``tau * ln((v - V_th) /
+    (bound - V_th))``; with a moving rail, bisection on :func:`_exact` to 2^-52 of the interval.
+    """
+    tha, thb, tau = line
+    if tha == thb and (bound - tha) * (v - tha) > 0:
+        s = tau * math.log((v - tha) / (bound - tha))
+        if 0.0 < s <= rem:
+            return s
+    inside, outside = 0.0, rem
+    for _ in range(_BISECTIONS):
+        mid = 0.5 * (inside + outside)
+        vm = _exact(v, line, rem, mid)
+        if (vm > bound) if upward else (vm < bound):
+            outside = mid
+        else:
+            inside = mid
+    return outside
 
 
 def _hold_factors(u: float) -> tuple[float, float]:
