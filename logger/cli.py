@@ -8,15 +8,19 @@ import sys
 import threading
 import time
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 from logger import __version__
 from logger.live import Snapshot
 from logger.pipeline import Pipeline, Settings
 from logger.recording import use_lean_allocator
 from logger.rig import Rig, RigError, demo_rig_text, load_rig, parse_rig
+from logger.sim.spec import ScenarioError
 from logger.sources.base import Source, SourceError
 from logger.store import StoreError
+
+if TYPE_CHECKING:
+    pass
 
 
 class UsageError(Exception):
@@ -31,7 +35,7 @@ def main(argv: list[str] | None = None) -> int:
         return 2
     try:
         return args.run(args)
-    except (UsageError, RigError, SourceError, StoreError) as exc:
+    except (UsageError, RigError, ScenarioError, SourceError, StoreError) as exc:
         print(f"railtap: {exc}", file=sys.stderr)
         return 2
     except KeyboardInterrupt:
@@ -54,8 +58,10 @@ def _parser() -> argparse.ArgumentParser:
     demo.add_argument("--seed", type=int, default=1, help="random seed of the simulated rig")
     demo.set_defaults(run=cmd_demo)
 
-    sim = sub.add_parser("sim", help="serve the simulated rig on a pseudo-terminal for any serial client")
-    sim.add_argument("--pty", action="store_true", required=True, help="serve on a new pseudo-terminal")
+    sim = sub.add_parser("sim", help="serve the simulated rig on a pseudo-terminal, or list its scenarios")
+    sim.add_argument("--pty", action="store_true", help="serve on a new pseudo-terminal")
+    sim.add_argument("--list", action="store_true", help="list the shipped scenarios")
+    sim.add_argument("--scenario", metavar="NAME|FILE", help="a simulated scenario instead of the simple rig")
     sim.add_argument("--speed", type=float, default=1.0, help="simulated seconds per real second")
     sim.add_argument("--seed", type=int, default=1)
     sim.set_defaults(run=cmd_sim)
@@ -89,6 +95,8 @@ def _source_options(p: argparse.ArgumentParser) -> None:
     p.add_argument("--speed", type=float, default=None,
                    help="for --sim and --replay: simulated seconds per real second (0 = as fast as possible)")
     p.add_argument("--seed", type=int, default=1, help="random seed of the simulated rig")
+    p.add_argument("--scenario", metavar="NAME|FILE",
+                   help="with --sim: a simulated scenario (see `railtap sim --list`); its rig comes with it")
 
 
 def _record_options(p: argparse.ArgumentParser) -> None:
@@ -120,14 +128,28 @@ def cmd_demo(args: argparse.Namespace) -> int:
 def cmd_sim(args: argparse.Namespace) -> int:
     from logger.sources.pty_server import serve_on_pty
 
+    if args.list:
+        from logger.sim.scenario import load_scenario, scenario_names
+
+        for name in scenario_names():
+            print(f"{name:20} {load_scenario(name).description}")
+        return 0
+    if not args.pty:
+        raise UsageError("say --pty to serve the simulated rig, or --list to see its scenarios")
     stop = threading.Event()
     _on_signals(lambda: stop.set())
+    scenario = _scenario(args.scenario) if args.scenario else None
+    rig_hint = f" --rig {scenario.name}.rig.toml" if scenario else ""
 
     def ready(path: str) -> None:
-        print(f"simulated rig on {path}; connect with `railtap record --port {path}`; Ctrl-C stops", flush=True)
+        print(f"simulated rig on {path}; connect with `railtap record --port {path}{rig_hint}`; Ctrl-C stops",
+              flush=True)
+        if scenario is not None:
+            Path(f"{scenario.name}.rig.toml").write_text(scenario.rig.text, encoding="utf-8")
 
+    device = scenario.make_device(args.seed) if scenario else None
     try:
-        serve_on_pty(speed=args.speed, seed=args.seed, stop_event=stop, on_ready=ready)
+        serve_on_pty(device, speed=args.speed, seed=args.seed, stop_event=stop, on_ready=ready)
     except KeyboardInterrupt:
         stop.set()
     return 0
@@ -185,9 +207,20 @@ def cmd_rig_check(args: argparse.Namespace) -> int:
 # -- helpers -----------------------------------------------------------------------------------------
 
 
+def _scenario(name: str):
+    from logger.sim.scenario import load_scenario
+
+    try:
+        return load_scenario(name)
+    except (FileNotFoundError, KeyError):
+        raise UsageError(f"no scenario {name!r}; `railtap sim --list` shows the shipped ones") from None
+
+
 def _rig(args: argparse.Namespace) -> Rig:
     if args.rig is not None:
         return load_rig(args.rig)
+    if args.scenario is not None:
+        return _scenario(args.scenario).rig
     if args.port is not None:
         raise UsageError("--port needs --rig FILE to know what each input measures; "
                          "write one with `railtap rig init rig.toml`")
@@ -199,13 +232,17 @@ def _source(args: argparse.Namespace, rig: Rig) -> Source:
         from logger.sources.replay import ReplaySource
 
         return ReplaySource(args.replay, speed=args.speed or 0.0)
-    if args.port is not None or (rig.device.port and not args.sim):
+    if args.port is not None or (rig.device.port and not args.sim and args.scenario is None):
         from logger.sources.serial_port import SerialSource
 
         return SerialSource(args.port or rig.device.port, args.baud or rig.device.baud)
     from logger.sources.simulated import SimSource
 
-    return SimSource(speed=1.0 if args.speed is None else args.speed, seed=args.seed)
+    speed = 1.0 if args.speed is None else args.speed
+    if args.scenario is not None:
+        scenario = _scenario(args.scenario)
+        return SimSource(scenario.make_device(args.seed), speed=speed, duration_s=scenario.duration_s)
+    return SimSource(speed=speed, seed=args.seed)
 
 
 def _record(source: Source, rig: Rig, args: argparse.Namespace) -> int:
