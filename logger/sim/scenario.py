@@ -131,7 +131,7 @@ def parse_scenario(text: str, source: str = "<scenario>") -> Scenario:
 def scenario_from_dict(doc: dict[str, Any], source: str = "<scenario>", text: str = "") -> Scenario:
     """Check an already-parsed scenario table and build the scenario."""
     r = Reader(source)
-    r.keys(doc, "(top level)", _TOP_KEYS)
+    r.keys(doc, "", _TOP_KEYS)
     rig_table = r.table(doc.get("rig"), "rig")
     try:
         rig = rig_from_dict(rig_table, f"{source}: rig", rig_text(rig_table))
@@ -142,11 +142,11 @@ def scenario_from_dict(doc: dict[str, Any], source: str = "<scenario>", text: st
     link = _read_link(r, doc.get("link", {}))
     _check_wiring(r, rig, physics, adc)
     return Scenario(
-        name=r.text(doc, "name", "(top level)", Path(source).stem),
-        description=r.text(doc, "description", "(top level)", ""),
+        name=r.text(doc, "name", "", Path(source).stem),
+        description=r.text(doc, "description", "", ""),
         source=source,
         text=text,
-        duration_s=r.number(doc, "duration_s", "(top level)", 600.0, positive=True),
+        duration_s=r.number(doc, "duration_s", "", 600.0, positive=True),
         rig=rig,
         physics=physics,
         adc=adc,

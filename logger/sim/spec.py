@@ -48,17 +48,17 @@ class Reader:
     def keys(self, table: Any, where: str, allowed: tuple[str, ...]) -> dict[str, Any]:
         """``table`` as a dict with no keys but ``allowed`` (a typo is an error, not a silent default)."""
         if not isinstance(table, dict):
-            raise self.fail(where, "expected a table")
+            raise self.fail(where or "(top level)", "expected a table")
         for key in table:
             if key not in allowed:
-                raise self.fail(f"{where}.{key}", f"unknown key (expected one of {', '.join(allowed)})")
+                raise self.fail(_key(where, key), f"unknown key (expected one of {', '.join(allowed)})")
         return table
 
     def number(self, table: dict[str, Any], key: str, where: str, default: float | None = None, *,
                low: float = -math.inf, positive: bool = False, allow_inf: bool = False) -> float:
         """A finite number at least ``low`` (or above 0 when ``positive``); ``default`` when missing."""
         value = table.get(key, default)
-        label = f"{where}.{key}"
+        label = _key(where, key)
         if value is None:
             raise self.fail(label, "missing (a number)")
         if isinstance(value, bool) or not isinstance(value, int | float) or math.isnan(value):
@@ -75,14 +75,14 @@ class Reader:
         """A positive integer."""
         value = table.get(key, default)
         if isinstance(value, bool) or not isinstance(value, int) or value <= 0:
-            raise self.fail(f"{where}.{key}", f"expected a positive integer, got {value!r}")
+            raise self.fail(_key(where, key), f"expected a positive integer, got {value!r}")
         return value
 
     def text(self, table: dict[str, Any], key: str, where: str, default: str | None = None) -> str:
         """A string."""
         value = table.get(key, default)
         if not isinstance(value, str):
-            raise self.fail(f"{where}.{key}", f"expected a string, got {value!r}")
+            raise self.fail(_key(where, key), f"expected a string, got {value!r}")
         return value
 
     def table(self, value: Any, where: str) -> dict[str, Any]:
@@ -225,3 +225,8 @@ def _numbers(r: Reader, value: Any, where: str) -> list[float]:
     if not all(isinstance(v, int | float) and not isinstance(v, bool) and math.isfinite(v) for v in value):
         raise r.fail(where, f"expected an array of finite numbers, got {value!r}")
     return [float(v) for v in value]
+
+
+def _key(where: str, key: str) -> str:
+    """Dotted key for messages: ``rail[0].supply`` and ``setpoint_v`` give ``rail[0].supply.setpoint_v``."""
+    return f"{where}.{key}" if where else key
