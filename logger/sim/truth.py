@@ -23,6 +23,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from logger.rig import Channel
+from logger.sim.meter import Switch
 from logger.sim.model import Physics, TrueRig
 from logger.sim.rail import Rail
 from logger.sim.supply import RegulatedSupply
@@ -59,7 +61,7 @@ class Truth:
         rate_hz: grid rate for integrating meters (the scenario's sample rate).
     """
 
-    def __init__(self, physics: Physics, channels: tuple, rate_hz: float) -> None:
+    def __init__(self, physics: Physics, channels: tuple[Channel, ...], rate_hz: float) -> None:
         self.physics = physics
         self.channels = channels
         self.rate_hz = rate_hz
@@ -117,7 +119,7 @@ class Truth:
                 events.append(event)
         return events
 
-    def meter_switches(self, until_s: float) -> dict[str, list]:
+    def meter_switches(self, until_s: float) -> dict[str, list[Switch]]:
         """Every meter switch up to ``until_s`` (integrated on the uniform grid, kept between calls)."""
         end = math.floor(until_s * self.rate_hz) + 1
         while self._grid_next < end:
