@@ -14,13 +14,17 @@ from logger import __version__
 from logger.live import Snapshot
 from logger.pipeline import Pipeline, Settings
 from logger.recording import use_lean_allocator
-from logger.rig import Rig, RigError, demo_rig_text, load_rig, parse_rig
+from logger.rig import Rig, RigError, demo_rig_text, load_rig
 from logger.sim.spec import ScenarioError
 from logger.sources.base import Source, SourceError
 from logger.store import StoreError
 
 if TYPE_CHECKING:
-    pass
+    from logger.sim.scenario import Scenario
+
+
+DEFAULT_SCENARIO = "demo-bench"
+"""The simulated rig of ``railtap demo`` and ``--sim``; ``railtap rig init`` writes its rig file."""
 
 
 class UsageError(Exception):
@@ -56,12 +60,13 @@ def _parser() -> argparse.ArgumentParser:
     _record_options(demo)
     demo.add_argument("--speed", type=float, default=1.0, help="simulated seconds per real second")
     demo.add_argument("--seed", type=int, default=1, help="random seed of the simulated rig")
+    demo.add_argument("--scenario", metavar="NAME|FILE", help=f"a simulated scenario (default: {DEFAULT_SCENARIO})")
     demo.set_defaults(run=cmd_demo)
 
     sim = sub.add_parser("sim", help="serve the simulated rig on a pseudo-terminal, or list its scenarios")
     sim.add_argument("--pty", action="store_true", help="serve on a new pseudo-terminal")
     sim.add_argument("--list", action="store_true", help="list the shipped scenarios")
-    sim.add_argument("--scenario", metavar="NAME|FILE", help="a simulated scenario instead of the simple rig")
+    sim.add_argument("--scenario", metavar="NAME|FILE", help=f"a simulated scenario (default: {DEFAULT_SCENARIO})")
     sim.add_argument("--speed", type=float, default=1.0, help="simulated seconds per real second")
     sim.add_argument("--seed", type=int, default=1)
     sim.set_defaults(run=cmd_sim)
@@ -90,13 +95,13 @@ def _source_options(p: argparse.ArgumentParser) -> None:
     where.add_argument("--port", help="serial port or pyserial URL (COM5, /dev/ttyACM0, socket://host:7000)")
     where.add_argument("--sim", action="store_true", help="the built-in simulated rig")
     where.add_argument("--replay", type=Path, metavar="FILE", help="a raw capture (_raw.arrows or plain bytes)")
-    p.add_argument("--rig", type=Path, help="rig file (default: the demo rig, which matches --sim)")
+    p.add_argument("--rig", type=Path, help="rig file (default with --sim: the scenario's own)")
     p.add_argument("--baud", type=int, help="baud rate (default: the rig file's, else 921600)")
     p.add_argument("--speed", type=float, default=None,
                    help="for --sim and --replay: simulated seconds per real second (0 = as fast as possible)")
     p.add_argument("--seed", type=int, default=1, help="random seed of the simulated rig")
     p.add_argument("--scenario", metavar="NAME|FILE",
-                   help="with --sim: a simulated scenario (see `railtap sim --list`); its rig comes with it")
+                   help=f"with --sim: a simulated scenario (`railtap sim --list`; default {DEFAULT_SCENARIO})")
 
 
 def _record_options(p: argparse.ArgumentParser) -> None:
@@ -117,12 +122,10 @@ def cmd_record(args: argparse.Namespace) -> int:
 
 
 def cmd_demo(args: argparse.Namespace) -> int:
-    from logger.sources.simulated import SimSource
-
-    rig = parse_rig(demo_rig_text(), "built-in demo rig")
-    print("railtap demo: recording the built-in simulated rig (an invented 12 V bench supply); Ctrl-C stops.",
+    scenario = _scenario(args.scenario or DEFAULT_SCENARIO)
+    print(f"railtap demo: recording the simulated rig {scenario.name!r} ({scenario.description}); Ctrl-C stops.",
           file=sys.stderr)
-    return _record(SimSource(speed=args.speed, seed=args.seed), rig, args)
+    return _record(_sim_source(scenario, args.speed, args.seed), scenario.rig, args)
 
 
 def cmd_sim(args: argparse.Namespace) -> int:
@@ -138,16 +141,15 @@ def cmd_sim(args: argparse.Namespace) -> int:
         raise UsageError("say --pty to serve the simulated rig, or --list to see its scenarios")
     stop = threading.Event()
     _on_signals(lambda: stop.set())
-    scenario = _scenario(args.scenario) if args.scenario else None
-    rig_hint = f" --rig {scenario.name}.rig.toml" if scenario else ""
+    scenario = _scenario(args.scenario or DEFAULT_SCENARIO)
+    rig_file = Path(f"{scenario.name}.rig.toml")
 
     def ready(path: str) -> None:
-        print(f"simulated rig on {path}; connect with `railtap record --port {path}{rig_hint}`; Ctrl-C stops",
-              flush=True)
-        if scenario is not None:
-            Path(f"{scenario.name}.rig.toml").write_text(scenario.rig.text, encoding="utf-8")
+        rig_file.write_text(scenario.rig.text, encoding="utf-8")
+        print(f"simulated rig {scenario.name!r} on {path}; its rig file is {rig_file}; connect with "
+              f"`railtap record --port {path} --rig {rig_file}`; Ctrl-C stops", flush=True)
 
-    device = scenario.make_device(args.seed) if scenario else None
+    device = scenario.make_device(args.seed)
     try:
         serve_on_pty(device, speed=args.speed, seed=args.seed, stop_event=stop, on_ready=ready)
     except KeyboardInterrupt:
@@ -207,13 +209,11 @@ def cmd_rig_check(args: argparse.Namespace) -> int:
 # -- helpers -----------------------------------------------------------------------------------------
 
 
-def _scenario(name: str):
+def _scenario(name: str) -> Scenario:
+    """A shipped scenario by name, or a scenario file (imported here: only simulator commands need it)."""
     from logger.sim.scenario import load_scenario
 
-    try:
-        return load_scenario(name)
-    except (FileNotFoundError, KeyError):
-        raise UsageError(f"no scenario {name!r}; `railtap sim --list` shows the shipped ones") from None
+    return load_scenario(name)
 
 
 def _rig(args: argparse.Namespace) -> Rig:
@@ -224,7 +224,7 @@ def _rig(args: argparse.Namespace) -> Rig:
     if args.port is not None:
         raise UsageError("--port needs --rig FILE to know what each input measures; "
                          "write one with `railtap rig init rig.toml`")
-    return parse_rig(demo_rig_text(), "built-in demo rig")
+    return _scenario(DEFAULT_SCENARIO).rig
 
 
 def _source(args: argparse.Namespace, rig: Rig) -> Source:
@@ -236,13 +236,14 @@ def _source(args: argparse.Namespace, rig: Rig) -> Source:
         from logger.sources.serial_port import SerialSource
 
         return SerialSource(args.port or rig.device.port, args.baud or rig.device.baud)
+    return _sim_source(_scenario(args.scenario or DEFAULT_SCENARIO), args.speed, args.seed)
+
+
+def _sim_source(scenario: Scenario, speed: float | None, seed: int) -> Source:
     from logger.sources.simulated import SimSource
 
-    speed = 1.0 if args.speed is None else args.speed
-    if args.scenario is not None:
-        scenario = _scenario(args.scenario)
-        return SimSource(scenario.make_device(args.seed), speed=speed, duration_s=scenario.duration_s)
-    return SimSource(speed=speed, seed=args.seed)
+    return SimSource(scenario.make_device(seed), speed=1.0 if speed is None else speed,
+                     duration_s=scenario.duration_s)
 
 
 def _record(source: Source, rig: Rig, args: argparse.Namespace) -> int:

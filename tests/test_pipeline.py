@@ -18,14 +18,15 @@ import pandas as pd
 import pytest
 
 from logger.pipeline import Pipeline, Settings
-from logger.rig import demo_rig_text, parse_rig
+from logger.rig import parse_rig
 from logger.sim.device import LinkFaults, SimDevice
+from logger.sim.simple import RIG_TOML, simple_rig
 from logger.sources.pty_server import serve_on_pty
 from logger.sources.serial_port import SerialSource
 from logger.sources.simulated import SimSource
 from logger.store import find_unfinished, recover_run
 
-RIG = parse_rig(demo_rig_text(), "demo")
+RIG = simple_rig()
 ROOT = Path(__file__).resolve().parents[1]
 
 
@@ -127,7 +128,7 @@ def test_disk_full_stops_with_one_line_and_keeps_the_journal(tmp_path: Path, mon
 
 
 def test_missing_header_falls_back_to_rig_settings(tmp_path: Path) -> None:
-    rig = parse_rig(demo_rig_text().replace("# adc_bits = 12", "adc_bits = 12").replace(
+    rig = parse_rig(RIG_TOML.replace("# adc_bits = 12", "adc_bits = 12").replace(
         "# vref_mv = 3300", "vref_mv = 3300"), "demo")
     device = SimDevice(seed=1)
     device._pending.clear()  # a firmware that never sends a header
@@ -176,7 +177,7 @@ def test_kill_9_loses_at_most_about_a_second(tmp_path: Path) -> None:
 
 def _rig_file(tmp_path: Path) -> Path:
     path = tmp_path / "rig.toml"
-    path.write_text(demo_rig_text())
+    path.write_text(RIG_TOML)
     return path
 
 

@@ -5,8 +5,8 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from logger.rig import demo_rig_text, parse_rig
 from logger.sim import LinkFaults, ScriptedFault, SimDevice, SimpleRail
+from logger.sim.simple import simple_rig
 from logger.wire import Answer, Decoder, DeviceHeader, FrameBatch, encode_line
 
 
@@ -35,7 +35,7 @@ def test_boot_header_first_and_matches_demo_rig() -> None:
     header = items[0]
     assert header.reason == "boot"
     assert (header.adc_bits, header.vref_mv, header.rate_hz) == (12, 3300, 1000.0)
-    rig = parse_rig(demo_rig_text())
+    rig = simple_rig()
     assert header.channels == tuple(ch.name for ch in sorted(rig.channels, key=lambda c: c.input))
     model = device.model
     assert isinstance(model, SimpleRail)

@@ -268,10 +268,10 @@ def test_internal_resistance_brings_the_cutoff_forward() -> None:
 
 
 def test_shipped_scenarios_are_listed() -> None:
-    assert scenario_names() == ["battery-discharge", "bench-soak", "split-15v"]
+    assert scenario_names() == ["battery-discharge", "bench-soak", "demo-bench", "split-15v"]
 
 
-@pytest.mark.parametrize("name", ["battery-discharge", "bench-soak", "split-15v"])
+@pytest.mark.parametrize("name", ["battery-discharge", "bench-soak", "demo-bench", "split-15v"])
 def test_scenario_loads_checks_its_rig_and_generates(name: str) -> None:
     scenario = load_scenario(name)
     rig = parse_rig(scenario.rig.text, "extracted")  # the [rig] table is a plain rig file

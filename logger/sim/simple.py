@@ -13,6 +13,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from logger.rig import Rig, parse_rig
+
 
 @dataclass(frozen=True)
 class ScriptedFault:
@@ -156,3 +158,35 @@ class SimpleRail:
         ideal = pins / (self.vref_mv / 1000.0) * full_scale
         noisy = ideal + self._rng.standard_normal(ideal.shape) * self.noise_lsb
         return np.clip(np.rint(noisy), 0, full_scale - 1).astype(np.uint16)
+
+
+RIG_TOML = """\
+# The rig file that matches SimpleRail (two channels, 12-bit ADC at 3.3 V).
+name = "simple-rail-12v"
+
+[device]
+baud = 921600
+# adc_bits = 12
+# vref_mv = 3300
+
+[[channel]]
+name = "out_v"
+role = "volts"
+input = 0
+divider = 11.0
+nominal = 12.0
+
+[[channel]]
+name = "out_a"
+role = "amps"
+input = 1
+shunt_ohm = 0.01
+gain = 50.0
+nominal = 2.0
+high = 5.0
+"""
+
+
+def simple_rig() -> Rig:
+    """The rig of :class:`SimpleRail`, for tests and benchmarks that use the simple model."""
+    return parse_rig(RIG_TOML, "simple simulated rail")

@@ -10,7 +10,7 @@ The file layout (``[rig]`` aside, which is a rig file's tables under one name)::
                       kind = "battery": cells, capacity_ah, internal_ohm, soc, current_limit_a, tick_s,
                                         curve_soc, curve_ocv_v
       [rail.load]     min_v, period_s, steps = [{at_s, mode, value, ramp_to, ramp_s}, ...]
-      [[rail.fault]]  kind, start_s, duration_s, level, fall_s, rise_s
+      [[rail.fault]]  kind, start_s, duration_s, level, fall_s, rise_s, every_s, times
     [[meter]]    channel, rail, series_ohm, cap_uf, zener_v, zener_ohm, run_ma, knee_v, off_v, on_v, off_kohm
 """
 
@@ -18,6 +18,7 @@ from __future__ import annotations
 
 import math
 from collections.abc import Callable
+from dataclasses import replace
 from typing import Any, TypeVar
 
 from logger.sim.adc import AdcSpec
@@ -134,7 +135,8 @@ def read_physics(r: Reader, doc: dict[str, Any]) -> Physics:
 def read_rail(r: Reader, table: Any, where: str) -> RailSpec:
     """One ``[[rail]]`` table."""
     t = r.keys(table, where, ("name", "volts", "amps", "supply", "load", "fault"))
-    faults = tuple(read_fault(r, f, f"{where}.fault[{i}]") for i, f in enumerate(r.tables(t, "fault", f"{where}.")))
+    tables = enumerate(r.tables(t, "fault", f"{where}."))
+    faults = tuple(fault for i, f in tables for fault in read_fault(r, f, f"{where}.fault[{i}]"))
     faults = r.build(f"{where}.fault", lambda: check_faults(faults))
     supply = read_supply(r, t.get("supply"), f"{where}.supply", faults)
     load = read_load(r, t.get("load", {}), f"{where}.load")
@@ -185,15 +187,20 @@ def read_load(r: Reader, table: Any, where: str) -> LoadSchedule:
     return r.build(where, lambda: LoadSchedule(tuple(steps), period, r.number(t, "min_v", where, 1.0, low=0.0)))
 
 
-def read_fault(r: Reader, table: Any, where: str) -> Fault:
-    """One ``[[rail.fault]]`` table."""
-    t = r.keys(table, where, ("kind", "start_s", "duration_s", "level", "fall_s", "rise_s"))
+def read_fault(r: Reader, table: Any, where: str) -> list[Fault]:
+    """One ``[[rail.fault]]`` table: one fault, or ``times`` of them ``every_s`` apart."""
+    t = r.keys(table, where, ("kind", "start_s", "duration_s", "level", "fall_s", "rise_s", "every_s", "times"))
     kind = r.text(t, "kind", where)
     edges = {k: r.number(t, k, where, positive=True) for k in ("fall_s", "rise_s") if k in t}
-    return r.build(where, lambda: Fault(
+    first = r.build(where, lambda: Fault(
         kind=kind, start_s=r.number(t, "start_s", where, low=0.0),
         duration_s=r.number(t, "duration_s", where, low=0.0),
         level=r.number(t, "level", where, 0.0 if kind == "dropout" else None), **edges))
+    times = r.integer(t, "times", where, 1)
+    every = r.number(t, "every_s", where, positive=True) if "every_s" in t else None
+    if times > 1 and every is None:
+        raise r.fail(f"{where}.every_s", f"a repeat interval in seconds, since times = {times}")
+    return [replace(first, start_s=first.start_s + k * every) for k in range(times)] if every else [first]
 
 
 def read_meter(r: Reader, table: Any, where: str, rails: list[str]) -> MeterSpec:

@@ -13,7 +13,7 @@ import time
 import numpy as np
 
 from logger.events import EventDetector
-from logger.rig import demo_rig_text, parse_rig
+from logger.sim.simple import simple_rig
 
 
 def stream(seconds: float, rate_hz: float = 1000.0) -> tuple[np.ndarray, np.ndarray]:
@@ -29,7 +29,7 @@ def stream(seconds: float, rate_hz: float = 1000.0) -> tuple[np.ndarray, np.ndar
 
 
 def run(utc: np.ndarray, values: np.ndarray, batch: int) -> tuple[float, int]:
-    detector = EventDetector(parse_rig(demo_rig_text()), 1000.0)
+    detector = EventDetector(simple_rig(), 1000.0)
     events = 0
     t0 = time.perf_counter()
     for i in range(0, len(utc), batch):

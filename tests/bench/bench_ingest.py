@@ -30,12 +30,12 @@ import serial
 
 from logger.pipeline import Pipeline, Settings
 from logger.recording import use_lean_allocator
-from logger.rig import demo_rig_text, parse_rig
 from logger.sim.device import SimDevice
+from logger.sim.simple import simple_rig
 from logger.sources.serial_port import SerialSource
 from logger.sources.simulated import SimSource
 
-RIG = parse_rig(demo_rig_text(), "demo")
+RIG = simple_rig()
 CHANNELS = len(RIG.channels)
 
 
