@@ -7,10 +7,12 @@ import signal
 import sys
 import threading
 import time
+from datetime import UTC, datetime
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
 from logger import __version__
+from logger.events import Event
 from logger.live import Snapshot
 from logger.pipeline import Pipeline, Settings
 from logger.recording import use_lean_allocator
@@ -260,10 +262,16 @@ def _record(source: Source, rig: Rig, args: argparse.Namespace) -> int:
     pipeline.start()
     _on_signals(lambda: pipeline.request_stop("stopped by signal"))
     every = 2.0 if sys.stderr.isatty() else 10.0
+    shown = 0
     try:
         while not pipeline.wait(every):
             if not args.quiet:
-                print(status_line(pipeline.snapshot()), file=sys.stderr, flush=True)
+                snap = pipeline.snapshot()
+                fresh = [e for e in snap.events if (e.id or 0) > shown][::-1]
+                shown = max([shown, *(e.id or 0 for e in fresh)])
+                for event in fresh:
+                    print(event_line(event), file=sys.stderr)
+                print(status_line(snap), file=sys.stderr, flush=True)
     except KeyboardInterrupt:
         pipeline.request_stop("stopped by user")
     finally:
@@ -309,6 +317,13 @@ def _report(pipeline: Pipeline) -> int:
     return 0
 
 
+def event_line(event: Event) -> str:
+    """One event as a line of the headless log: when, what, where, how long, details."""
+    when = datetime.fromtimestamp(event.start_us / 1e6, tz=UTC).astimezone().strftime("%H:%M:%S.%f")[:-3]
+    lasted = f" {event.duration_s:.3f} s" if event.duration_s is not None else ""
+    return f"  {when} {event.kind.upper()} {event.channel or 'link'}{lasted}: {event.detail}"
+
+
 def status_line(snap: Snapshot) -> str:
     """One line for a terminal or a log: time, values, link and recording state."""
     parts = [time.strftime("%H:%M:%S")]
@@ -319,6 +334,8 @@ def status_line(snap: Snapshot) -> str:
     parts.append(f"{link.rate_hz:6.0f} frames/s, lost {link.lost}, rejected {link.rejected}")
     if snap.recording is not None:
         parts.append(f"{snap.recording.rows} rows, {snap.recording.bytes_on_disk / 1e6:.1f} MB")
+    if snap.active:
+        parts.append("NOW: " + ", ".join(f"{e.kind} on {e.channel}" for e in snap.active))
     if snap.state != "running":
         parts.append(snap.message)
     return " | ".join(parts)

@@ -83,7 +83,8 @@ class ChannelWatch:
             return None
         dropout = r.dropout_below is not None and span.extreme < r.dropout_below
         level = r.level_pct(span.extreme)
-        what = f"down to {span.extreme:.3g} {self.channel.unit}" + (f" ({level:.0f} % of nominal)" if level else "")
+        what = f"down to {span.extreme:.3g} {self.channel.unit}"
+        what += f" ({level:.0f} % of nominal)" if level is not None else ""
         return Event(
             kind="dropout" if dropout else "brownout",
             start_us=span.start_us,
