@@ -11,7 +11,7 @@ from __future__ import annotations
 import numpy as np
 
 from logger.rig import Rig, RigError
-from logger.wire.frames import DeviceHeader
+from logger.wire.frames import DeviceHeader, FrameBatch
 
 
 class Calibrator:
@@ -39,3 +39,15 @@ class Calibrator:
     def select(self, counts: np.ndarray) -> np.ndarray:
         """The raw counts of the rig's channels, in the rig's order."""
         return counts[:, self.inputs]
+
+
+def stand_in_header(rig: Rig, batch: FrameBatch) -> DeviceHeader | None:
+    """A header made from the rig's ``[device]`` settings, for firmware that never sends one (None if the rig
+    does not say the ADC's bits and reference); the rate is read off the device clock."""
+    dev = rig.device
+    if dev.adc_bits is None or dev.vref_mv is None:
+        return None
+    steps = np.diff(batch.device_us.astype(np.int64)) % (1 << 32)
+    rate = 1e6 / float(np.median(steps)) if len(steps) else 1000.0
+    names = tuple(f"in{k}" for k in range(batch.channels))
+    return DeviceHeader("unknown", "?", dev.adc_bits, dev.vref_mv, round(rate, 3), names, "rig")

@@ -7,6 +7,8 @@ and get immutable objects, so the screen never slows ingest and never sees a hal
 from __future__ import annotations
 
 import threading
+import time
+from collections import deque
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -43,6 +45,24 @@ class Ring:
             count = min(count, self.written, self.capacity)
             pos = np.arange(self.written - count, self.written) % self.capacity
             return self.utc_us[pos], self.values[pos]
+
+
+class RateMeter:
+    """Frames per second over the last few seconds, falling to zero when nothing arrives."""
+
+    def __init__(self, window_s: float = 5.0) -> None:
+        self.window_s = window_s
+        self._marks: deque[tuple[float, int]] = deque(maxlen=256)
+
+    def mark(self, total: int) -> None:
+        self._marks.append((time.monotonic(), total))
+
+    def per_second(self) -> float:
+        now = time.monotonic()
+        marks = [m for m in self._marks if m[0] >= now - self.window_s]
+        if len(marks) < 2:
+            return 0.0
+        return (marks[-1][1] - marks[0][1]) / (now - marks[0][0])
 
 
 @dataclass(frozen=True)

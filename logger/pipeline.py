@@ -16,14 +16,13 @@ from typing import Any
 
 import numpy as np
 
-from logger import __version__
-from logger.calibration import Calibrator
+from logger.calibration import Calibrator, stand_in_header
 from logger.clock import ClockFit, Unwrapper
 from logger.events import Event, EventDetector
 from logger.events.link import LinkWatch
 from logger.events.log import EventLog
-from logger.live import LinkHealth, RecordingState, Ring, Snapshot
-from logger.recording import Recorder
+from logger.live import LinkHealth, RateMeter, Ring, Snapshot
+from logger.recording import Recorder, run_metadata
 from logger.rig import Rig, RigError
 from logger.sources.base import Chunk, LinkLost, Source, SourceError
 from logger.store import sample_batch, sample_schema
@@ -87,7 +86,7 @@ class Pipeline:
         self.link = LinkWatch(self.settings.gap_event_s)
         self.detector: EventDetector | None = None
         self._minmax: tuple[np.ndarray, np.ndarray] | None = None
-        self._rate_marks: deque[tuple[float, int]] = deque(maxlen=64)
+        self.rate = RateMeter()
         self._first_us: int | None = None
         self._last_us: int | None = None
         self._last_utc_us: int | None = None
@@ -195,7 +194,7 @@ class Pipeline:
                 self._on_header(item)
             else:
                 self.answers.append(item)
-        self._rate_marks.append((time.monotonic(), self.decoder.counters.frames))
+        self.rate.mark(self.decoder.counters.frames)
         if self._last_utc_us is not None:
             self._note(self.link.rejects(self.decoder.counters.rejected, self._last_utc_us))
 
@@ -234,23 +233,11 @@ class Pipeline:
             self._emit(batch, host_time)
 
     def _open_recorder(self, header: DeviceHeader) -> None:
-        metadata = {
-            "software": f"railtap {__version__}",
-            "source": self.source.name,
-            "rig_name": self.rig.name,
-            "rig_file": self.rig.source,
-            "rig": self.rig.text,
-            "device_header": header.body(),
-            "channels_info": [
-                {"name": ch.name, "role": ch.role, "unit": ch.unit, "nominal": ch.nominal, "input": ch.input}
-                for ch in self.rig.channels
-            ],
-        }
         self.recorder = Recorder(
             self.settings.record_root,
             self.settings.label or self.rig.name,
             self._schema,
-            metadata,
+            run_metadata(self.rig, header, self.source.name),
             part_seconds=self.settings.part_seconds,
             keep_raw=self.settings.keep_raw,
         )
@@ -330,7 +317,7 @@ class Pipeline:
             self._asked_at = now
         waited = now - self._started_at
         if waited >= self.settings.header_wait_s:
-            fallback = self._header_from_rig()
+            fallback = stand_in_header(self.rig, self._pending[-1][0]) if self._pending else None
             if fallback is not None:
                 self._on_header(fallback)
                 return
@@ -339,17 +326,6 @@ class Pipeline:
                 f"no header from the device after {waited:.0f} s ({got.frames} frames, {got.rejected} rejected "
                 "lines): check the baud rate and firmware, or set device.adc_bits and device.vref_mv in the rig"
             )
-
-    def _header_from_rig(self) -> DeviceHeader | None:
-        """Stand-in header from the rig's device settings, for firmware that never sends one."""
-        dev = self.rig.device
-        if dev.adc_bits is None or dev.vref_mv is None or not self._pending:
-            return None
-        batch = self._pending[-1][0]
-        steps = np.diff(batch.device_us.astype(np.int64)) % (1 << 32)
-        rate = 1e6 / float(np.median(steps)) if len(steps) else 1000.0
-        names = tuple(f"in{k}" for k in range(batch.channels))
-        return DeviceHeader("unknown", "?", dev.adc_bits, dev.vref_mv, round(rate, 3), names, "rig")
 
     def _duration_reached(self) -> bool:
         limit = self.settings.duration_s
@@ -405,7 +381,7 @@ class Pipeline:
             minimum=lo,
             maximum=hi,
             link=self._link_health(),
-            recording=self._recording_state(),
+            recording=self.recorder.state() if self.recorder is not None else None,
             events=self.events.recent(50),
             active=tuple(self.detector.active()) if self.detector is not None else (),
         )
@@ -424,7 +400,7 @@ class Pipeline:
             source=self.source.name,
             connected=self.state in ("running", "waiting"),
             frames=c.frames,
-            rate_hz=self._measured_rate(),
+            rate_hz=self.rate.per_second(),
             lost=self.unwrapper.lost,
             rejected=c.rejected,
             bad_crc=c.bad_crc,
@@ -432,25 +408,4 @@ class Pipeline:
             reconnects=self.reconnects,
             drift_ppm=self.clock.drift_ppm,
             decoder=c.as_dict(),
-        )
-
-    def _measured_rate(self) -> float:
-        """Frames per second over the last few seconds, falling to zero when nothing arrives."""
-        marks = [m for m in self._rate_marks if m[0] >= time.monotonic() - 5.0]
-        if len(marks) < 2:
-            return 0.0
-        return (marks[-1][1] - marks[0][1]) / (time.monotonic() - marks[0][0])
-
-    def _recording_state(self) -> RecordingState | None:
-        rec = self.recorder
-        if rec is None:
-            return None
-        size = sum(p.stat().st_size for p in rec.folder.glob("*") if p.is_file()) if rec.folder.exists() else 0
-        return RecordingState(
-            folder=str(rec.folder),
-            rows=rec.rows,
-            bytes_on_disk=size,
-            elapsed_s=time.monotonic() - rec.started,
-            journal_lag_rows=rec.rows - rec.durable_rows,
-            error=rec.error,
         )

@@ -16,9 +16,13 @@ from typing import Any
 
 import pyarrow as pa
 
+from logger import __version__
+from logger.live import RecordingState
+from logger.rig import Rig
 from logger.sources.base import Chunk
 from logger.store import StoreError, new_run
 from logger.store.raw import RawCaptureWriter
+from logger.wire import DeviceHeader
 
 _STOP = object()
 
@@ -66,6 +70,18 @@ class Recorder:
                 return
             except queue.Full:
                 continue
+
+    def state(self) -> RecordingState:
+        """Where the run is going and how far it has got, for screens."""
+        files = [p for p in self.folder.glob("*") if p.is_file()] if self.folder.exists() else []
+        return RecordingState(
+            folder=str(self.folder),
+            rows=self.rows,
+            bytes_on_disk=sum(p.stat().st_size for p in files),
+            elapsed_s=time.monotonic() - self.started,
+            journal_lag_rows=self.rows - self.durable_rows,
+            error=self.error,
+        )
 
     @property
     def alive(self) -> bool:
@@ -127,6 +143,22 @@ class Recorder:
                     break
             except queue.Empty:
                 break
+
+
+def run_metadata(rig: Rig, header: DeviceHeader, source: str) -> dict[str, Any]:
+    """What a run records about itself at start: software, source, the rig file as written, the device."""
+    return {
+        "software": f"railtap {__version__}",
+        "source": source,
+        "rig_name": rig.name,
+        "rig_file": rig.source,
+        "rig": rig.text,
+        "device_header": header.body(),
+        "channels_info": [
+            {"name": ch.name, "role": ch.role, "unit": ch.unit, "nominal": ch.nominal, "input": ch.input}
+            for ch in rig.channels
+        ],
+    }
 
 
 def use_lean_allocator() -> None:
