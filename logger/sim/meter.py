@@ -35,7 +35,6 @@ import math
 from dataclasses import dataclass
 
 import numpy as np
-from scipy.signal import lfilter
 
 _MIN_WINDOW = 256
 _MAX_WINDOW = 8192
@@ -231,6 +230,8 @@ class MeterNode:
         xs = alpha * x[i:j] + beta
         if self._zi is None:
             self._zi = c0 * (alpha * self._x + beta) + e * self._v
+        from scipy.signal import lfilter  # here, not at the top: only a simulated meter needs scipy (~60 MB)
+
         y, zf = lfilter((c1, c0), (1.0, -e), xs, zi=(self._zi,))
         lo, _, hi, _ = self._bounds[(self._on, self._k)]
         out = np.flatnonzero((y < lo) | (y > hi))
