@@ -97,24 +97,20 @@ class ChannelWatch:
 
     def _over(self, span: Span) -> Event:
         level = self.rules.level_pct(span.extreme)
-        return Event(
-            kind="overvoltage",
-            start_us=span.start_us,
-            end_us=span.end_us,
-            channel=self.channel.name,
-            value=self.sign * span.extreme,
-            depth_pct=None if level is None else level - 100.0,
-            detail=f"up to {span.extreme:.3g} {self.channel.unit}",
-        )
+        return self._above("overvoltage", span, None if level is None else level - 100.0, "")
 
     def _overcurrent(self, span: Span) -> Event:
+        return self._above("overcurrent", span, None, f", limit {self.rules.current_above:g}")
+
+    def _above(self, kind: str, span: Span, depth_pct: float | None, note: str) -> Event:
         return Event(
-            kind="overcurrent",
+            kind=kind,
             start_us=span.start_us,
             end_us=span.end_us,
             channel=self.channel.name,
             value=self.sign * span.extreme,
-            detail=f"up to {span.extreme:.3g} {self.channel.unit}, limit {self.rules.current_above:g}",
+            depth_pct=depth_pct,
+            detail=f"up to {span.extreme:.3g} {self.channel.unit}{note}",
         )
 
 
