@@ -194,3 +194,48 @@ def test_device_that_never_sends_a_header_gets_a_plain_message(tmp_path: Path) -
     assert pipeline.wait(30)
     assert pipeline.error is not None and "never a header line" in pipeline.error and "\n" not in pipeline.error
     assert not list(tmp_path.iterdir())
+
+
+def test_socket_url_link_drops_and_comes_back(tmp_path: Path) -> None:
+    """A pyserial URL other than a device path (socket://), whose peer hangs up mid-run and answers again."""
+    import socket
+
+    device = SimDevice(seed=6)
+    listener = socket.create_server(("127.0.0.1", 0))
+    port = listener.getsockname()[1]
+
+    def serve() -> None:
+        sim_s = 0.0
+        for stretch_s in (1.5, 1.5):  # two connections: the first is cut after 1.5 s of data
+            conn, _ = listener.accept()
+            with conn:
+                end = sim_s + stretch_s
+                while sim_s < end:
+                    sim_s += 0.02
+                    try:
+                        conn.sendall(device.generate(sim_s))
+                    except OSError:  # the test has stopped reading
+                        return
+                    time.sleep(0.02)
+            device.generate(sim_s + 0.5)  # half a second sent to nobody while unplugged
+            sim_s += 0.5
+        listener.close()
+
+    server = threading.Thread(target=serve, daemon=True)
+    server.start()
+    source = SerialSource(f"socket://127.0.0.1:{port}", 921600)
+    pipeline = Pipeline(source, RIG, Settings(record_root=tmp_path, retry_s=0.1))
+    pipeline.start()
+    deadline = time.monotonic() + 20
+    while pipeline.reconnects < 1 and time.monotonic() < deadline:
+        time.sleep(0.05)
+    time.sleep(1.0)
+    final = pipeline.stop()
+    server.join(5)
+    assert final is not None and pipeline.reconnects == 1
+    run = _only_run(tmp_path)
+    events = pd.read_parquet(run / "_events.parquet")
+    assert "link_lost" in set(events["kind"])
+    samples = pd.read_parquet(run)
+    assert samples["seq"].is_unique and samples["seq"].is_monotonic_increasing
+    assert pipeline.unwrapper.lost >= 400  # the half second nobody heard, counted from the sequence gap

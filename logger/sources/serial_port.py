@@ -1,7 +1,8 @@
 """A serial port as a byte source, by pyserial URL: a device path, ``socket://``, ``rfc2217://``, ``loop://``.
 
-Reads take whatever has arrived (``ser.read(ser.in_waiting or 1)`` with a 0.1 s timeout), never a line at
-a time: framing is the decoder's job. Every port failure after opening becomes :class:`LinkLost`, so the
+Reads take whatever has arrived in one call (what ``in_waiting`` reports, or, when that is nothing or, as on
+``socket://``, only says "something", whatever comes within the 0.1 s read timeout), never a line at a time:
+framing is the decoder's job. Every port failure after opening becomes :class:`LinkLost`, so the
 pipeline has one path for "the cable came out"; failing to open becomes a :class:`SourceError` whose one
 line says what to do.
 """
@@ -22,6 +23,9 @@ WRITE_TIMEOUT_S = 1.0
 """A port that cannot take a command line in this long is stuck (flow control, hung driver): link lost."""
 
 _BUSY = {errno.EBUSY, errno.EAGAIN, errno.EWOULDBLOCK}
+
+
+MAX_READ = 65536
 
 
 class SerialSource:
@@ -55,10 +59,13 @@ class SerialSource:
             raise SourceError(open_failure(self.url, exc)) from None
 
     def read(self) -> Chunk | None:
-        """Whatever bytes have arrived (waiting up to 0.1 s for the first), stamped on arrival."""
+        """Whatever bytes have arrived (gathering for up to 0.1 s when none had), stamped on arrival."""
         ser = self._port()
         try:
-            data = ser.read(ser.in_waiting or 1)
+            # What is waiting, in one read; when nothing (or, on socket://, an unknown amount) is, gather what
+            # comes within the read timeout instead of returning byte by byte.
+            waiting = ser.in_waiting
+            data = ser.read(waiting if waiting > 1 else MAX_READ)
         except (serial.SerialException, OSError) as exc:
             self._lost()
             raise LinkLost(f"{self.url}: link lost while reading ({_detail(exc)})") from None
