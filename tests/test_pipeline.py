@@ -3,6 +3,7 @@ with pandas; link loss, device restarts, a full disk and a kill -9 in the middle
 
 from __future__ import annotations
 
+import contextlib
 import errno
 import json
 import os
@@ -210,13 +211,15 @@ def test_socket_url_link_drops_and_comes_back(tmp_path: Path) -> None:
             conn, _ = listener.accept()
             with conn:
                 end = sim_s + stretch_s
+                conn.settimeout(0.02)
                 while sim_s < end:
                     sim_s += 0.02
+                    with contextlib.suppress(TimeoutError):
+                        device.write(conn.recv(256))  # host commands: pyserial drops what came before open
                     try:
                         conn.sendall(device.generate(sim_s))
                     except OSError:  # the test has stopped reading
                         return
-                    time.sleep(0.02)
             device.generate(sim_s + 0.5)  # half a second sent to nobody while unplugged
             sim_s += 0.5
         listener.close()
@@ -232,7 +235,7 @@ def test_socket_url_link_drops_and_comes_back(tmp_path: Path) -> None:
     time.sleep(1.0)
     final = pipeline.stop()
     server.join(5)
-    assert final is not None and pipeline.reconnects == 1
+    assert final is not None and pipeline.reconnects == 1, pipeline.error
     run = _only_run(tmp_path)
     events = pd.read_parquet(run / "_events.parquet")
     assert "link_lost" in set(events["kind"])
