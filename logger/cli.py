@@ -58,11 +58,17 @@ def _parser() -> argparse.ArgumentParser:
     _record_options(rec)
     rec.set_defaults(run=cmd_record)
 
+    live = sub.add_parser("live", help="record a rig to a run folder, watching it on the live screen")
+    _source_options(live)
+    _record_options(live)
+    live.set_defaults(run=cmd_live)
+
     demo = sub.add_parser("demo", help="record the built-in simulated rig (no hardware needed)")
     _record_options(demo)
     demo.add_argument("--speed", type=float, default=1.0, help="simulated seconds per real second")
     demo.add_argument("--seed", type=int, default=1, help="random seed of the simulated rig")
     demo.add_argument("--scenario", metavar="NAME|FILE", help=f"a simulated scenario (default: {DEFAULT_SCENARIO})")
+    demo.add_argument("--headless", action="store_true", help="status lines instead of the live screen")
     demo.set_defaults(run=cmd_demo)
 
     sim = sub.add_parser("sim", help="serve the simulated rig on a pseudo-terminal, or list its scenarios")
@@ -123,11 +129,17 @@ def cmd_record(args: argparse.Namespace) -> int:
     return _record(_source(args, rig), rig, args)
 
 
+def cmd_live(args: argparse.Namespace) -> int:
+    rig = _rig(args)
+    return _record(_source(args, rig), rig, args, screen=True)
+
+
 def cmd_demo(args: argparse.Namespace) -> int:
     scenario = _scenario(args.scenario or DEFAULT_SCENARIO)
-    print(f"railtap demo: recording the simulated rig {scenario.name!r} ({scenario.description}); Ctrl-C stops.",
-          file=sys.stderr)
-    return _record(_sim_source(scenario, args.speed, args.seed), scenario.rig, args)
+    if args.headless:
+        print(f"railtap demo: recording the simulated rig {scenario.name!r} ({scenario.description}); "
+              "Ctrl-C stops.", file=sys.stderr)
+    return _record(_sim_source(scenario, args.speed, args.seed), scenario.rig, args, screen=not args.headless)
 
 
 def cmd_sim(args: argparse.Namespace) -> int:
@@ -248,7 +260,8 @@ def _sim_source(scenario: Scenario, speed: float | None, seed: int) -> Source:
                      duration_s=scenario.duration_s)
 
 
-def _record(source: Source, rig: Rig, args: argparse.Namespace) -> int:
+def _record(source: Source, rig: Rig, args: argparse.Namespace, screen: bool = False) -> int:
+    """Record until stopped, showing the live screen (``screen``) or status lines; then seal and report."""
     use_lean_allocator()
     _recover_leftovers(args.out)
     settings = Settings(
@@ -261,23 +274,33 @@ def _record(source: Source, rig: Rig, args: argparse.Namespace) -> int:
     pipeline = Pipeline(source, rig, settings)
     pipeline.start()
     _on_signals(lambda: pipeline.request_stop("stopped by signal"))
-    every = 2.0 if sys.stderr.isatty() else 10.0
-    shown = 0
     try:
-        while not pipeline.wait(every):
-            if not args.quiet:
-                snap = pipeline.snapshot()
-                fresh = [e for e in snap.events if (e.id or 0) > shown][::-1]
-                shown = max([shown, *(e.id or 0 for e in fresh)])
-                for event in fresh:
-                    print(event_line(event), file=sys.stderr)
-                print(status_line(snap), file=sys.stderr, flush=True)
+        if screen:
+            from logger.tui import run_screen
+
+            run_screen(pipeline)
+        else:
+            _print_status(pipeline, args.quiet)
     except KeyboardInterrupt:
         pipeline.request_stop("stopped by user")
     finally:
         pipeline.request_stop(pipeline.stop_reason)
         _wait_for_seal(pipeline)
     return _report(pipeline)
+
+
+def _print_status(pipeline: Pipeline, quiet: bool) -> None:
+    """The headless log: each event as it ends and a status line every few seconds, until the run ends."""
+    every = 2.0 if sys.stderr.isatty() else 10.0
+    shown = 0
+    while not pipeline.wait(every):
+        if not quiet:
+            snap = pipeline.snapshot()
+            fresh = [e for e in snap.events if (e.id or 0) > shown][::-1]
+            shown = max([shown, *(e.id or 0 for e in fresh)])
+            for event in fresh:
+                print(event_line(event), file=sys.stderr)
+            print(status_line(snap), file=sys.stderr, flush=True)
 
 
 def _wait_for_seal(pipeline: Pipeline) -> None:

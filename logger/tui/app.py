@@ -1,0 +1,157 @@
+"""The live screen: polls the pipeline's snapshot ten times a second and never touches the ingest thread.
+
+Keys: ``p`` pauses the display (ingest and recording go on), ``r`` resets min/max, ``m`` adds a mark with a
+note, ``s`` changes the trend's span, ``c`` its channel, ``b`` toggles the bell, ``q`` or ``ctrl+q`` stops the
+run cleanly (the parts are sealed in a worker thread while the screen says so) and leaves.
+"""
+
+from __future__ import annotations
+
+from typing import ClassVar
+
+from textual import work
+from textual.app import App, ComposeResult
+from textual.binding import Binding, BindingType
+from textual.containers import Horizontal
+from textual.css.query import NoMatches
+from textual.widgets import Footer
+from textual.worker import get_current_worker
+
+from logger.pipeline import Pipeline
+from logger.tui.banner import Banner
+from logger.tui.channels import shown_channels
+from logger.tui.events_table import EventTable
+from logger.tui.history import TrendHistory
+from logger.tui.mark import MarkInput
+from logger.tui.messages import MarkNote, RunSealed
+from logger.tui.readouts import Readouts
+from logger.tui.status import StatusPanel
+from logger.tui.trend import Trend
+
+POLL_S = 0.1
+
+
+class RailtapApp(App[str]):
+    """The live screen over a started :class:`~logger.pipeline.Pipeline`; returns a one-line summary."""
+
+    TITLE = "railtap"
+    ENABLE_COMMAND_PALETTE = False
+    AUTO_FOCUS = "EventTable"
+    HORIZONTAL_BREAKPOINTS: ClassVar[list[tuple[int, str]]] = [(0, "-narrow"), (120, "-wide")]
+    CSS = """
+    #lower { height: 1fr; min-height: 7; }
+    Screen.-wide StatusPanel { width: 46; }
+    """
+    BINDINGS: ClassVar[list[BindingType]] = [
+        Binding("p", "pause", "pause"),
+        Binding("r", "reset", "reset min/max"),
+        Binding("m", "mark", "mark"),
+        Binding("s", "span", "span"),
+        Binding("c", "channel", "channel"),
+        Binding("b", "bell", "bell"),
+        Binding("q", "quit", "quit"),
+        Binding("ctrl+q", "quit", "quit", show=False, priority=True),
+    ]
+
+    def __init__(self, pipeline: Pipeline) -> None:
+        super().__init__()
+        self.pipeline = pipeline
+        self.history = TrendHistory(shown_channels(pipeline.rig))
+        self.paused = False
+        self.sealing = False
+
+    def compose(self) -> ComposeResult:
+        yield Banner(self.pipeline.rig.name, id="banner")
+        yield Readouts(self.history)
+        yield Trend(self.history, id="trend")
+        with Horizontal(id="lower"):
+            yield EventTable(id="events")
+            yield StatusPanel(id="status")
+        yield MarkInput(id="mark")
+        yield Footer()
+
+    def on_mount(self) -> None:
+        self.set_interval(POLL_S, self.poll)
+        self.poll()
+
+    def poll(self) -> None:
+        """Read one snapshot and show it; a display error is shown, never raised into ingest."""
+        snap = self.pipeline.snapshot()
+        self.history.pull(self.pipeline.ring)
+        try:
+            banner = self.query_one(Banner)
+        except NoMatches:  # the screen is going away as the app exits
+            return
+        table = self.query_one(EventTable)
+        fresh = [] if self.paused else table.add_events(snap.events)
+        if banner.show(snap, fresh):
+            self.bell()
+        self.query_one(StatusPanel).show(snap)
+        if not self.paused:
+            self.query_one(Readouts).show(snap)
+            self.query_one(Trend).refresh()
+        if not self.sealing and self.pipeline.wait(0):
+            self._seal(f"run ended: {self.pipeline.stop_reason}")
+
+    # -- keys -------------------------------------------------------------------------------------
+
+    def action_pause(self) -> None:
+        self.paused = not self.paused
+        self.query_one(Banner).paused = self.paused
+        self.notify("display paused; recording goes on" if self.paused else "display running", timeout=2)
+
+    def action_reset(self) -> None:
+        self.pipeline.reset_minmax()
+        self.history.reset_power()
+        self.notify("min/max reset", timeout=2)
+
+    def action_mark(self) -> None:
+        self.query_one(MarkInput).open()
+
+    def on_mark_note(self, message: MarkNote) -> None:
+        self.pipeline.mark(message.note)
+        self.notify(f"marked: {message.note}", timeout=2)
+
+    def action_span(self) -> None:
+        self.query_one(Trend).next_span()
+
+    def action_channel(self) -> None:
+        self.query_one(Trend).next_channel()
+
+    def action_bell(self) -> None:
+        banner = self.query_one(Banner)
+        banner.bell_on = not banner.bell_on
+        self.notify(f"bell {'on' if banner.bell_on else 'off'} for new brownouts and dropouts", timeout=2)
+
+    async def action_quit(self) -> None:
+        self._seal("stopped by user")
+
+    # -- stopping ---------------------------------------------------------------------------------
+
+    def _seal(self, why: str) -> None:
+        if self.sealing:
+            return
+        self.sealing = True
+        self.query_one(Banner).sealing = "sealing the run's parts... (the journal keeps every sample meanwhile)"
+        self.poll()
+        self._stop_pipeline(why)
+
+    @work(thread=True, exclusive=True, group="seal")
+    def _stop_pipeline(self, why: str) -> None:
+        """Stop and seal off the event loop, so the screen keeps drawing while parts are written."""
+        worker = get_current_worker()
+        self.pipeline.request_stop(self.pipeline.stop_reason if self.pipeline.wait(0) else why)
+        while not self.pipeline.wait(0.1):
+            if worker.cancelled_event.is_set():
+                return
+        final = self.pipeline.final or {}
+        self.post_message(RunSealed(f"{final.get('status', 'no recording')}: {self.pipeline.stop_reason}"))
+
+    def on_run_sealed(self, message: RunSealed) -> None:
+        self.exit(message.summary)
+
+
+def run_screen(pipeline: Pipeline) -> str | None:
+    """Show the live screen over a started pipeline until the user quits or the run ends; the run is
+    stopped and sealed when this returns (or, if the screen itself failed, the caller must stop it)."""
+    return RailtapApp(pipeline).run()

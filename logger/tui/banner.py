@@ -1,0 +1,85 @@
+"""The banner line at the top: what is going on now, in words, and the bell when a new fault starts.
+
+It shows, in order of importance: the run being sealed; a brownout, dropout, overvoltage or overcurrent going
+on, or one that ended less than ``hold_s`` ago; a link or recording that is not running; a paused display;
+otherwise a quiet line with the rig's name.
+"""
+
+from __future__ import annotations
+
+import time
+
+from textual.widgets import Static
+
+from logger.events.model import Event
+from logger.live import Snapshot
+from logger.tui.fmt import event_title
+
+FAULT_KINDS = ("brownout", "dropout", "overvoltage", "overcurrent", "flicker")
+
+
+class Banner(Static):
+    """One line across the top; red while something is wrong, so it is seen from across the bench."""
+
+    DEFAULT_CSS = """
+    Banner {
+        height: 1;
+        width: 1fr;
+        padding: 0 1;
+        background: $primary 30%;
+        color: $text;
+    }
+    Banner.-alert { background: $error; color: $text; text-style: bold; }
+    Banner.-warn { background: $warning 70%; color: $text; text-style: bold; }
+    Banner.-muted { background: $panel; color: $text-muted; }
+    """
+
+    def __init__(self, rig_name: str, hold_s: float = 5.0, *, id: str | None = None) -> None:
+        super().__init__("", id=id)
+        self.rig_name = rig_name
+        self.hold_s = hold_s
+        self.bell_on = False
+        self.paused = False
+        self.sealing = ""
+        self._recent: Event | None = None
+        self._line = ""
+        self._recent_at = 0.0
+        self._active_seen: set[tuple[str, str | None, int]] = set()
+
+    def show(self, snap: Snapshot, fresh: list[Event]) -> bool:
+        """Update from a snapshot and the events new since the last one; True if the bell should ring."""
+        ring = False
+        for event in fresh:
+            if event.kind in FAULT_KINDS:
+                self._recent, self._recent_at = event, time.monotonic()
+                ring = ring or (event.kind != "flicker" and self._key(event) not in self._active_seen)
+        active = {self._key(e) for e in snap.active}
+        ring = ring or bool(active - self._active_seen)
+        self._active_seen = active | {self._key(e) for e in fresh}
+        self._paint(snap)
+        return ring and self.bell_on
+
+    @staticmethod
+    def _key(event: Event) -> tuple[str, str | None, int]:
+        return ("fault", event.channel, event.start_us)
+
+    def _paint(self, snap: Snapshot) -> None:
+        kind, line = "", f"railtap | {self.rig_name} | all quiet"
+        held = self._recent is not None and time.monotonic() - self._recent_at < self.hold_s
+        if self.sealing:
+            kind, line = "-warn", self.sealing
+        elif snap.active:
+            kind, line = "-alert", "NOW: " + "; ".join(event_title(e) for e in snap.active)
+        elif held:
+            kind, line = "-alert", f"JUST NOW: {event_title(self._recent)}"
+        elif snap.state != "running":
+            kind, line = ("-alert" if snap.state == "failed" else "-warn"), f"{snap.state.upper()}: {snap.message}"
+        elif self.paused:
+            kind, line = "-muted", "display paused (recording goes on); press p to go on"
+        if self.bell_on and not self.sealing:
+            line += "  [bell on]"
+        for name in ("-alert", "-warn", "-muted"):
+            self.set_class(name == kind, name)
+        if line != self._line:
+            self._line = line
+            self.update(line, layout=False)

@@ -1,0 +1,76 @@
+"""What the screen shows per channel: the rig's channels plus power for each volts/amps pair on one rail.
+
+A pair is found by name: ``out_v`` (volts) and ``out_a`` (amps) share the rail name ``out``, and their product
+is shown as ``out_w`` in watts. Power is worked out here, per sample, from the same samples the trend uses.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from logger.events.rules import rules_for
+from logger.rig import Rig
+
+
+@dataclass(frozen=True)
+class PowerPair:
+    """Power of one rail: ``volts`` and ``amps`` are column indices in the rig's channel order."""
+
+    name: str
+    volts: int
+    amps: int
+
+
+@dataclass(frozen=True)
+class Shown:
+    """The channels on screen: the rig's own first, then one power column per pair."""
+
+    names: tuple[str, ...]
+    units: tuple[str, ...]
+    pairs: tuple[PowerPair, ...]
+    thresholds: tuple[float | None, ...]
+    """The brownout threshold of each shown channel, signed like its values (None where there is none)."""
+
+    @property
+    def measured(self) -> int:
+        """How many of the shown channels come straight from the rig."""
+        return len(self.names) - len(self.pairs)
+
+    def with_power(self, values: np.ndarray) -> np.ndarray:
+        """Rows of rig values with the power columns appended (shape (n, len(names)))."""
+        if not self.pairs:
+            return values
+        power = [values[:, p.volts] * values[:, p.amps] for p in self.pairs]
+        return np.column_stack([values, *power]).astype(np.float32, copy=False)
+
+
+def _rail(name: str) -> str:
+    for suffix in ("_v", "_a", "_volts", "_amps"):
+        if name.endswith(suffix):
+            return name[: -len(suffix)]
+    return name
+
+
+def shown_channels(rig: Rig) -> Shown:
+    """The readouts and trend channels for a rig, with power for every volts/amps pair on one rail."""
+    names = [ch.name for ch in rig.channels]
+    units = [ch.unit or ("V" if ch.role != "amps" else "A") for ch in rig.channels]
+    thresholds: list[float | None] = []
+    for ch in rig.channels:
+        dip = rules_for(ch).dip_below
+        thresholds.append(None if dip is None else (-dip if ch.negative else dip))
+    pairs = []
+    for i, v in enumerate(rig.channels):
+        if v.role != "volts":
+            continue
+        for j, a in enumerate(rig.channels):
+            if a.role == "amps" and _rail(a.name) == _rail(v.name):
+                pairs.append(PowerPair(f"{_rail(v.name)}_w", i, j))
+                break
+    for pair in pairs:
+        names.append(pair.name)
+        units.append("W")
+        thresholds.append(None)
+    return Shown(tuple(names), tuple(units), tuple(pairs), tuple(thresholds))

@@ -1,0 +1,58 @@
+"""Plain text for numbers, times and sizes, shared by the screen's widgets."""
+
+from __future__ import annotations
+
+import math
+from datetime import datetime
+
+from logger.events.model import Event
+
+
+def value_text(value: float | None, signed: bool = True) -> str:
+    """A reading with four significant figures and its sign (``+12.00``, ``-15.02``, ``+3.487``).
+
+    A fixed number of figures keeps the width steady as the value moves, so big digits do not jump about.
+    """
+    if value is None or not math.isfinite(value):
+        return "-.--" if not signed else " -.--"
+    size = abs(value)
+    places = 3 if size < 10 else 2 if size < 100 else 1 if size < 1000 else 0
+    return f"{value:+.{places}f}" if signed else f"{value:.{places}f}"
+
+
+def local_time(utc_us: int, places: int = 3) -> str:
+    """A UTC microsecond stamp as local wall-clock time, ``HH:MM:SS.mmm``."""
+    text = datetime.fromtimestamp(utc_us / 1e6).astimezone().strftime("%H:%M:%S.%f")
+    return text[: 9 + places] if places else text[:8]
+
+
+def duration_text(seconds: float | None) -> str:
+    """How long an event lasted: ms below a second, then seconds, then minutes."""
+    if seconds is None:
+        return "-"
+    if seconds < 1.0:
+        return f"{seconds * 1000:.0f} ms"
+    if seconds < 120.0:
+        return f"{seconds:.2f} s"
+    return f"{seconds / 60:.1f} min"
+
+
+def elapsed_text(seconds: float) -> str:
+    """A run's age as ``H:MM:SS``."""
+    whole = int(max(seconds, 0.0))
+    return f"{whole // 3600}:{whole // 60 % 60:02d}:{whole % 60:02d}"
+
+
+def size_text(size_bytes: int) -> str:
+    """Bytes on disk in kB, MB or GB (powers of 1000, as file managers show them)."""
+    for unit, scale in (("GB", 1e9), ("MB", 1e6), ("kB", 1e3)):
+        if size_bytes >= scale:
+            return f"{size_bytes / scale:.1f} {unit}"
+    return f"{size_bytes} B"
+
+
+def event_title(event: Event) -> str:
+    """One short line for an event, for the banner: kind, channel, how long, how deep."""
+    lasted = f" for {duration_text(event.duration_s)}" if event.duration_s is not None else " now"
+    detail = f": {event.detail}" if event.detail and event.detail != "going on" else ""
+    return f"{event.kind.upper()} on {event.channel or 'link'}{lasted}{detail}"

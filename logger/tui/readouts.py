@@ -1,0 +1,100 @@
+"""Big readouts: one card per channel with its calibrated value, unit, sign, and min/max since reset."""
+
+from __future__ import annotations
+
+import numpy as np
+from textual.app import ComposeResult
+from textual.containers import Horizontal
+from textual.widget import Widget
+from textual.widgets import Digits, Static
+
+from logger.live import Snapshot
+from logger.tui.fmt import value_text
+from logger.tui.history import TrendHistory
+
+DIGITS_MIN_WIDTH = 18
+"""Below this many columns inside a card, big digits give way to one bold line."""
+
+
+class Readout(Widget):
+    """One channel: large value and unit, and the lowest and highest values since the last reset."""
+
+    DEFAULT_CSS = """
+    Readout {
+        width: 1fr;
+        height: 6;
+        border: round $primary 60%;
+        border-title-color: $text;
+        border-subtitle-color: $text-muted;
+        padding: 0 0;
+    }
+    Readout Horizontal { height: 3; align-horizontal: center; }
+    Readout Digits { width: auto; color: $text; }
+    Readout .unit { width: 2; height: 3; content-align: left bottom; padding-left: 1; color: $text-muted; }
+    Readout .plain { display: none; height: 1; text-style: bold; text-align: center; }
+    Readout .range { height: 1; color: $text-muted; text-align: center; }
+    Readout.-compact { height: 4; }
+    Readout.-compact Horizontal { display: none; }
+    Readout.-compact .plain { display: block; }
+    """
+
+    def __init__(self, name: str, unit: str) -> None:
+        super().__init__()
+        self.channel_name = name
+        self.unit = unit
+        self.border_title = name
+        self.border_subtitle = "min .. max"
+        self._shown: tuple[str, float | None, float | None] | None = None
+
+    def compose(self) -> ComposeResult:
+        with Horizontal():
+            yield Digits(value_text(None))
+            yield Static(self.unit, classes="unit")
+        yield Static("", classes="plain")
+        yield Static("-.-- .. -.--", classes="range")
+
+    def on_resize(self) -> None:
+        self.set_class(self.content_size.width < DIGITS_MIN_WIDTH, "-compact")
+
+    def show(self, value: float | None, low: float | None, high: float | None) -> None:
+        """Show a value and its range since reset (None where not known yet)."""
+        text = value_text(value)
+        shown = (text, low, high)
+        if shown == self._shown:
+            return
+        self._shown = shown
+        self.query_one(Digits).update(text)
+        self.query_one(".plain", Static).update(f"{text} {self.unit}", layout=False)
+        self.query_one(".range", Static).update(f"{value_text(low, False)} .. {value_text(high, False)}",
+                                                layout=False)
+
+
+class Readouts(Horizontal):
+    """A row of readouts: the rig's channels, then power for each volts/amps pair."""
+
+    DEFAULT_CSS = """
+    Readouts { height: auto; }
+    """
+
+    def __init__(self, history: TrendHistory) -> None:
+        super().__init__()
+        self.history = history
+
+    def compose(self) -> ComposeResult:
+        for name, unit in zip(self.history.shown.names, self.history.shown.units, strict=True):
+            yield Readout(name, unit)
+
+    def show(self, snap: Snapshot) -> None:
+        """Update every card from a snapshot (and the power min/max the history keeps)."""
+        shown = self.history.shown
+        cards = list(self.query(Readout))
+        latest = snap.latest
+        for k in range(shown.measured):
+            cards[k].show(_at(latest, k), _at(snap.minimum, k), _at(snap.maximum, k))
+        for k, pair in enumerate(shown.pairs):
+            power = None if latest is None else float(latest[pair.volts] * latest[pair.amps])
+            cards[shown.measured + k].show(power, _at(self.history.power_min, k), _at(self.history.power_max, k))
+
+
+def _at(values: np.ndarray | None, k: int) -> float | None:
+    return None if values is None else float(values[k])

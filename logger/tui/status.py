@@ -1,0 +1,62 @@
+"""The link and recording panel: how well bytes become samples, and where they are being kept."""
+
+from __future__ import annotations
+
+from rich.text import Text
+from textual.widgets import Static
+
+from logger.live import Snapshot
+from logger.tui.fmt import elapsed_text, size_text
+
+STATE_STYLES = {"running": "bold green", "waiting": "bold yellow", "reconnecting": "bold yellow",
+                "stopped": "bold", "failed": "bold red"}
+
+
+class StatusPanel(Static):
+    """Source, frame rate, lost and rejected frames, resets, reconnects, clock drift, state and message; then
+    the run folder, rows, size on disk and elapsed time."""
+
+    DEFAULT_CSS = """
+    StatusPanel {
+        width: 34;
+        height: 1fr;
+        border: round $primary 60%;
+        border-title-color: $text;
+        padding: 0 1;
+    }
+    """
+
+    def __init__(self, *, id: str | None = None) -> None:
+        super().__init__("", id=id)
+        self.border_title = "link & recording"
+        self._plain = ""
+
+    def show(self, snap: Snapshot) -> None:
+        """Rewrite the panel from a snapshot."""
+        text = status_text(snap)
+        if text.plain != self._plain:
+            self._plain = text.plain
+            self.update(text, layout=False)
+
+
+def status_text(snap: Snapshot) -> Text:
+    """The panel's lines, most important first so a short panel still shows them."""
+    link = snap.link
+    text = Text(no_wrap=False)
+    text.append(f"{snap.state}", STATE_STYLES.get(snap.state, ""))
+    text.append(f"  {link.source}\n", "dim")
+    text.append(f"{link.rate_hz:,.0f} frames/s  lost {link.lost:,}\n")
+    text.append(f"rejected {link.rejected:,}  resets {link.resets:,}\n")
+    drift = f"{link.drift_ppm:+.1f} ppm" if link.drift_ppm else "-"
+    text.append(f"reconnects {link.reconnects}  drift {drift}\n")
+    rec = snap.recording
+    if rec is None:
+        text.append("not recording yet\n", "dim")
+    else:
+        folder = (rec.folder or "-").rstrip("/").rsplit("/", 1)[-1]
+        text.append(f"{folder}\n", "bold")
+        text.append(f"{rec.rows:,} rows  {size_text(rec.bytes_on_disk)}  {elapsed_text(rec.elapsed_s)}\n")
+        if rec.error:
+            text.append(f"recorder: {rec.error}\n", "bold red")
+    text.append(snap.message, "italic")
+    return text

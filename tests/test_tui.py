@@ -1,0 +1,144 @@
+"""The live screen, driven by the pilot over a pipeline fed by the simulated demo bench (100x faster than real
+time, so its brownout at 30 s of simulated time comes 0.3 s after the start)."""
+
+from __future__ import annotations
+
+import asyncio
+import time
+from collections.abc import Callable
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from logger.pipeline import Pipeline, Settings
+from logger.sim.scenario import load_scenario
+from logger.sources.simulated import SimSource
+from logger.store import read_run_json
+from logger.tui import RailtapApp
+from logger.tui.channels import shown_channels
+from logger.tui.events_table import EventTable
+from logger.tui.fmt import value_text
+from logger.tui.history import TrendHistory
+from logger.tui.mark import MarkInput
+from logger.tui.readouts import Readout
+
+SCENARIO = load_scenario("demo-bench")
+SIZE = (100, 30)
+
+
+def _pipeline(tmp_path: Path, speed: float = 100.0) -> Pipeline:
+    source = SimSource(SCENARIO.make_device(1), speed=speed, duration_s=SCENARIO.duration_s)
+    pipeline = Pipeline(source, SCENARIO.rig, Settings(record_root=tmp_path))
+    pipeline.start()
+    return pipeline
+
+
+async def _until(pilot, ready: Callable[[], bool], timeout_s: float = 15.0) -> None:
+    """Let the app run until ``ready()`` holds (fails after ``timeout_s``)."""
+    deadline = time.monotonic() + timeout_s
+    while not ready():
+        assert time.monotonic() < deadline, "timed out"
+        await pilot.pause(0.02)
+
+
+def _kinds(app: RailtapApp) -> list[str]:
+    table = app.query_one(EventTable)
+    return [str(table.get_row_at(k)[1]) for k in range(table.row_count)]
+
+
+async def _key(app: RailtapApp, pilot, key: str) -> None:
+    """A key press without the pilot's wait for an idle process (the ingest thread keeps it busy)."""
+    app.simulate_key(key)
+    await pilot.pause(0.05)
+
+
+async def _quit(app: RailtapApp, pilot, pipeline: Pipeline) -> None:
+    await _key(app, pilot, "q")
+    await _until(pilot, lambda: pipeline.wait(0), 20.0)
+
+
+def test_readouts_show_calibrated_values_and_power(tmp_path: Path) -> None:
+    pipeline = _pipeline(tmp_path, speed=10.0)
+
+    async def run() -> None:
+        app = RailtapApp(pipeline)
+        async with app.run_test(size=SIZE) as pilot:
+            await _until(pilot, lambda: pipeline.snapshot().latest is not None)
+            await pilot.pause(0.3)
+            cards = {card.channel_name: card for card in app.query(Readout)}
+            assert list(cards) == ["out_v", "out_a", "meter_v", "out_w"]
+            latest = pipeline.snapshot().latest
+            out_v = float(cards["out_v"].query_one("Digits").value)
+            assert out_v == pytest.approx(float(latest[0]), abs=0.5)  # 12 V rail, shown with its sign
+            assert cards["out_v"].query_one("Digits").value.startswith("+")
+            out_w = float(cards["out_w"].query_one("Digits").value)
+            assert out_w == pytest.approx(float(latest[0] * latest[1]), rel=0.2)
+            await _quit(app, pilot, pipeline)
+
+    asyncio.run(run())
+
+
+def test_brownout_reaches_the_event_list_within_a_second(tmp_path: Path) -> None:
+    pipeline = _pipeline(tmp_path)
+
+    async def run() -> None:
+        app = RailtapApp(pipeline)
+        async with app.run_test(size=SIZE) as pilot:
+            await _until(pilot, lambda: pipeline.events.counts["brownout"] > 0, 15.0)
+            happened = time.monotonic()
+            await _until(pilot, lambda: "brownout" in _kinds(app), 1.0)
+            assert time.monotonic() - happened < 1.0
+            assert "BROWNOUT" in str(app.query_one("#banner").content)
+            await _quit(app, pilot, pipeline)
+
+    asyncio.run(run())
+
+
+def test_mark_key_adds_a_mark_row_and_quit_seals_the_run(tmp_path: Path) -> None:
+    pipeline = _pipeline(tmp_path, speed=10.0)
+
+    async def run() -> None:
+        app = RailtapApp(pipeline)
+        async with app.run_test(size=SIZE) as pilot:
+            await _until(pilot, lambda: pipeline.recorder is not None)
+            await _key(app, pilot, "m")
+            note = app.query_one(MarkInput)
+            assert note.has_focus
+            note.value = "load to 3 A"
+            await _key(app, pilot, "enter")
+            await _until(pilot, lambda: "mark" in _kinds(app), 1.0)
+            table = app.query_one(EventTable)
+            rows = [table.get_row_at(k) for k in range(table.row_count)]
+            assert [r[0] for r in rows] == sorted((r[0] for r in rows), reverse=True)  # newest first
+            assert [str(r[5]) for r in rows if str(r[1]) == "mark"] == ["load to 3 A"]
+            assert not note.has_class("-open")
+            await _quit(app, pilot, pipeline)
+        assert app.return_value is not None and app.return_value.startswith("complete")
+
+    asyncio.run(run())
+    (run_dir,) = [p for p in tmp_path.iterdir() if p.is_dir()]
+    assert read_run_json(run_dir)["status"] == "complete"
+
+
+def test_history_keeps_a_one_sample_dip_at_any_span() -> None:
+    history = TrendHistory(shown_channels(SCENARIO.rig))
+    t0 = 1_800_000_000_000_000
+    utc = t0 + np.arange(0, 120_000_000, 1000, dtype=np.int64)  # two minutes at 1 kHz
+    values = np.tile(np.array([12.0, 2.0, 7.3], dtype=np.float32), (len(utc), 1))
+    values[60_000, 0] = 3.0
+    for chunk in np.array_split(np.arange(len(utc)), 7):
+        history.add(utc[chunk], values[chunk])
+    for span_s in (10.0, 60.0, 600.0):
+        lo, hi = history.columns(0, span_s, 50)
+        assert np.nanmax(hi) == pytest.approx(12.0)
+        assert (np.nanmin(lo) == pytest.approx(3.0)) == (span_s > 60.0 - 1e-9)
+    _, power_hi = history.columns(3, 60.0, 50)
+    assert np.nanmax(power_hi) == pytest.approx(24.0)  # out_w = out_v x out_a
+
+
+def test_values_keep_their_sign_and_width() -> None:
+    assert value_text(12.0) == "+12.00"
+    assert value_text(-15.02) == "-15.02"
+    assert value_text(3.4871) == "+3.487"
+    assert value_text(None).strip() == "-.--"
