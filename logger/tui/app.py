@@ -7,6 +7,8 @@ run cleanly (the parts are sealed in a worker thread while the screen says so) a
 
 from __future__ import annotations
 
+import os
+import threading
 from typing import ClassVar
 
 from textual import work
@@ -151,7 +153,24 @@ class RailtapApp(App[str]):
         self.exit(message.summary)
 
 
-def run_screen(pipeline: Pipeline) -> str | None:
+def run_screen(pipeline: Pipeline, grace_s: float = 5.0) -> str | None:
     """Show the live screen over a started pipeline until the user quits or the run ends; the run is
-    stopped and sealed when this returns (or, if the screen itself failed, the caller must stop it)."""
-    return RailtapApp(pipeline).run()
+    stopped and sealed when this returns (or, if the screen itself failed, the caller must stop it).
+
+    If the terminal goes away (a closed window, a dropped SSH session), the hangup signal stops and seals the
+    run, but the screen can then block for ever writing to the dead terminal. So once the run is sealed, the
+    screen has ``grace_s`` to close; after that the process ends without it (exit status 129, as for a
+    hangup), its data already safe on disk.
+    """
+    closed = threading.Event()
+
+    def watch() -> None:
+        pipeline.wait()
+        if not closed.wait(grace_s):
+            os._exit(129)
+
+    threading.Thread(target=watch, name="railtap-screen-watch", daemon=True).start()
+    try:
+        return RailtapApp(pipeline).run()
+    finally:
+        closed.set()

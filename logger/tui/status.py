@@ -33,14 +33,15 @@ class StatusPanel(Static):
 
     def show(self, snap: Snapshot) -> None:
         """Rewrite the panel from a snapshot."""
-        text = status_text(snap)
+        text = status_text(snap, self.content_size.width)
         if text.plain != self._plain:
             self._plain = text.plain
             self.update(text, layout=False)
 
 
-def status_text(snap: Snapshot) -> Text:
-    """The panel's lines, most important first so a short panel still shows them."""
+def status_text(snap: Snapshot, width: int = 0) -> Text:
+    """The panel's lines, most important first so a short panel still shows them; the run folder's name
+    is cut to ``width`` (when given) so it keeps to one line."""
     link = snap.link
     text = Text(no_wrap=False)
     text.append(f"{snap.state}", STATE_STYLES.get(snap.state, ""))
@@ -54,8 +55,10 @@ def status_text(snap: Snapshot) -> Text:
         text.append("not recording yet\n", "dim")
     else:
         folder = (rec.folder or "-").rstrip("/").rsplit("/", 1)[-1]
-        text.append(f"{folder}\n", "bold")
+        if 0 < width < len(folder):
+            folder = folder[: width - 1] + "\u2026"
         text.append(f"{rec.rows:,} rows  {size_text(rec.bytes_on_disk)}  {elapsed_text(rec.elapsed_s)}\n")
+        text.append(f"{folder}\n", "bold")
         if rec.error:
             text.append(f"recorder: {rec.error}\n", "bold red")
     text.append(snap.message, "italic")
