@@ -26,7 +26,7 @@ from logger.tui.events_table import EventTable
 from logger.tui.history import TrendHistory
 from logger.tui.mark import MarkInput
 from logger.tui.messages import MarkNote, RunSealed
-from logger.tui.readouts import Readouts
+from logger.tui.readouts import Readout, Readouts
 from logger.tui.status import StatusPanel
 from logger.tui.trend import Trend
 
@@ -100,11 +100,15 @@ class RailtapApp(App[str]):
     def action_pause(self) -> None:
         self.paused = not self.paused
         self.query_one(Banner).paused = self.paused
+        self.query_one(Trend).set_class(self.paused, "-paused")
+        for readout in self.query(Readout):
+            readout.set_class(self.paused, "-paused")
         self.notify("display paused; recording goes on" if self.paused else "display running", timeout=2)
 
     def action_reset(self) -> None:
-        self.pipeline.reset_minmax()
+        self.history.pull(self.pipeline.ring)  # samples from before the reset must not count after it
         self.history.reset_power()
+        self.pipeline.reset_minmax()
         self.notify("min/max reset", timeout=2)
 
     def action_mark(self) -> None:

@@ -76,6 +76,8 @@ class Banner(Static):
             kind, line = ("-alert" if snap.state == "failed" else "-warn"), f"{snap.state.upper()}: {snap.message}"
         elif self.paused:
             kind, line = "-muted", "display paused (recording goes on); press p to go on"
+        if self.paused and kind != "-muted":
+            line = f"[paused] {line}"
         if self.bell_on and not self.sealing:
             line += "  [bell on]"
         for name in ("-alert", "-warn", "-muted"):

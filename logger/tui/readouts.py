@@ -33,6 +33,7 @@ class Readout(Widget):
     Readout .unit { width: 2; height: 3; content-align: left bottom; padding-left: 1; color: $text-muted; }
     Readout .plain { display: none; height: 1; text-style: bold; text-align: center; }
     Readout .range { height: 1; color: $text-muted; text-align: center; }
+    Readout.-paused { border: round $warning; }
     Readout.-compact { height: 4; }
     Readout.-compact Horizontal { display: none; }
     Readout.-compact .plain { display: block; }

@@ -38,6 +38,7 @@ class Trend(Widget):
         border-subtitle-color: $text-muted;
         padding: 0 1 0 0;
     }
+    Trend.-paused { border: round $warning; }
     Trend > .trend--data { color: $success; }
     Trend > .trend--low { color: $error; text-style: bold; }
     Trend > .trend--threshold { color: $warning; }
