@@ -1,8 +1,8 @@
 """The live screen: polls the pipeline's snapshot ten times a second and never touches the ingest thread.
 
 Keys: ``p`` pauses the display (ingest and recording go on), ``r`` resets min/max, ``m`` adds a mark with a
-note, ``s`` changes the trend's span, ``c`` its channel, ``b`` toggles the bell, ``q`` or ``ctrl+q`` stops the
-run cleanly (the parts are sealed in a worker thread while the screen says so) and leaves.
+note, ``s`` changes the trend's span, ``c`` its channel, ``b`` toggles the bell, ``q``, ``ctrl+q`` or ``ctrl+c``
+stops the run cleanly (the parts are sealed in a worker thread while the screen says so) and leaves.
 """
 
 from __future__ import annotations
@@ -53,6 +53,7 @@ class RailtapApp(App[str]):
         Binding("b", "bell", "bell"),
         Binding("q", "quit", "quit"),
         Binding("ctrl+q", "quit", "quit", show=False, priority=True),
+        Binding("ctrl+c", "quit", "quit", show=False),
     ]
 
     def __init__(self, pipeline: Pipeline) -> None:
