@@ -19,11 +19,13 @@ FAULT_KINDS = ("brownout", "dropout", "overvoltage", "overcurrent", "flicker")
 
 
 class Banner(Static):
-    """One line across the top; red while something is wrong, so it is seen from across the bench."""
+    """A line across the top (up to three when the message is long); red while something is wrong, so it
+    is seen from across the bench."""
 
     DEFAULT_CSS = """
     Banner {
-        height: 1;
+        height: auto;
+        max-height: 3;
         width: 1fr;
         padding: 0 1;
         background: $primary 30%;
@@ -84,4 +86,4 @@ class Banner(Static):
             self.set_class(name == kind, name)
         if line != self._line:
             self._line = line
-            self.update(line, layout=False)
+            self.update(line)
