@@ -44,7 +44,7 @@ async def _until(pilot, ready: Callable[[], bool], timeout_s: float = 15.0) -> N
 
 def _kinds(app: RailtapApp) -> list[str]:
     table = app.query_one(EventTable)
-    return [str(table.get_row_at(k)[1]) for k in range(table.row_count)]
+    return [str(table.get_row_at(k)[0]) for k in range(table.row_count)]
 
 
 async def _key(app: RailtapApp, pilot, key: str) -> None:
@@ -110,8 +110,8 @@ def test_mark_key_adds_a_mark_row_and_quit_seals_the_run(tmp_path: Path) -> None
             await _until(pilot, lambda: "mark" in _kinds(app), 1.0)
             table = app.query_one(EventTable)
             rows = [table.get_row_at(k) for k in range(table.row_count)]
-            assert [r[0] for r in rows] == sorted((r[0] for r in rows), reverse=True)  # newest first
-            assert [str(r[5]) for r in rows if str(r[1]) == "mark"] == ["load to 3 A"]
+            assert [r[5] for r in rows] == sorted((r[5] for r in rows), reverse=True)  # newest first
+            assert [str(r[4]) for r in rows if str(r[0]) == "mark"] == ["load to 3 A"]
             assert not note.has_class("-open")
             await _quit(app, pilot, pipeline)
         assert app.return_value is not None and app.return_value.startswith("complete")

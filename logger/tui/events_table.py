@@ -15,7 +15,7 @@ LINK_KINDS = ("frame_gap", "crc_burst", "link_lost", "device_reset")
 
 
 class EventTable(DataTable):
-    """Events as rows: number, kind, channel, start (local time), how long, residual or detail.
+    """Events as rows: kind, channel, start (local time), how long, residual or detail, number.
 
     Rows are added only for events not shown yet (by id) and the oldest are removed past ``keep``; the
     run's ``_events.parquet`` has every one.
@@ -37,20 +37,22 @@ class EventTable(DataTable):
         self.border_title = "events (newest first)"
 
     def on_mount(self) -> None:
-        self.add_column("#", key="id")
+        # The event number goes last: it orders the rows, and on a narrow screen the columns that say what
+        # happened and when come first.
         self.add_column("kind", key="kind")
         self.add_column("channel", key="channel")
         self.add_column("start", key="start")
         self.add_column("lasted", key="lasted")
         self.add_column("residual / detail", key="detail")
+        self.add_column("#", key="id")
 
     def add_events(self, newest_first: tuple[Event, ...]) -> list[Event]:
         """Add the events not shown yet; returns them, oldest first."""
         fresh = [e for e in newest_first if e.id is not None and e.id > self.last_id][::-1]
         for event in fresh:
             key = str(event.id)
-            self.add_row(event.id, _kind(event.kind), event.channel or "-", local_time(event.start_us),
-                         duration_text(event.duration_s), event.detail, key=key)
+            self.add_row(_kind(event.kind), event.channel or "-", local_time(event.start_us),
+                         duration_text(event.duration_s), event.detail, event.id, key=key)
             self._keys.append(key)
             self.last_id = event.id
         while len(self._keys) > self.keep:
