@@ -5,13 +5,16 @@ from __future__ import annotations
 
 import asyncio
 import time
-from collections.abc import Callable
+from collections.abc import Callable, Iterator
 from pathlib import Path
 
 import numpy as np
 import pytest
+from textual.widgets import Digits, Static
 
+from logger.live import LinkHealth, Ring, Snapshot
 from logger.pipeline import Pipeline, Settings
+from logger.rig import Rig
 from logger.sim.scenario import load_scenario
 from logger.sources.simulated import SimSource
 from logger.store import read_run_json
@@ -27,11 +30,55 @@ SCENARIO = load_scenario("demo-bench")
 SIZE = (100, 30)
 
 
-def _pipeline(tmp_path: Path, speed: float = 100.0) -> Pipeline:
-    source = SimSource(SCENARIO.make_device(1), speed=speed, duration_s=SCENARIO.duration_s)
-    pipeline = Pipeline(source, SCENARIO.rig, Settings(record_root=tmp_path))
-    pipeline.start()
-    return pipeline
+@pytest.fixture
+def start(tmp_path: Path) -> Iterator[Callable[..., Pipeline]]:
+    """Starts a pipeline on the simulated demo bench; any still running at the end are stopped and sealed."""
+    started: list[Pipeline] = []
+
+    def make(speed: float = 100.0) -> Pipeline:
+        source = SimSource(SCENARIO.make_device(1), speed=speed, duration_s=SCENARIO.duration_s)
+        pipeline = Pipeline(source, SCENARIO.rig, Settings(record_root=tmp_path))
+        pipeline.start()
+        started.append(pipeline)
+        return pipeline
+
+    yield make
+    for pipeline in started:
+        pipeline.stop()
+
+
+class FakePipeline:
+    """Stands in for a pipeline with one fixed snapshot, so what the screen shows can be checked exactly."""
+
+    def __init__(self, rig: Rig, latest: list[float], low: list[float], high: list[float]) -> None:
+        self.rig = rig
+        self.ring = Ring(1024, len(rig.channels))
+        self.ring.extend(np.array([1_800_000_000_000_000]), np.array([latest], dtype=np.float32))
+        self.stop_reason = "stopped by user"
+        self.final = {"status": "complete"}
+        self.marks: list[str] = []
+        self._stopped = False
+        self._snap = Snapshot(
+            state="running", message="receiving", channels=tuple(c.name for c in rig.channels),
+            units=tuple(c.unit for c in rig.channels), latest=np.array(latest), minimum=np.array(low),
+            maximum=np.array(high), recording=None,
+            link=LinkHealth("fake", True, 1000, 1000.0, 0, 0, 0, 0, 0, 0.0),
+        )
+
+    def snapshot(self) -> Snapshot:
+        return self._snap
+
+    def wait(self, timeout: float | None = None) -> bool:
+        return self._stopped
+
+    def request_stop(self, reason: str = "stopped by user") -> None:
+        self._stopped = True
+
+    def reset_minmax(self) -> None:
+        pass
+
+    def mark(self, note: str) -> None:
+        self.marks.append(note)
 
 
 async def _until(pilot, ready: Callable[[], bool], timeout_s: float = 15.0) -> None:
@@ -58,29 +105,31 @@ async def _quit(app: RailtapApp, pilot, pipeline: Pipeline) -> None:
     await _until(pilot, lambda: pipeline.wait(0), 20.0)
 
 
-def test_readouts_show_calibrated_values_and_power(tmp_path: Path) -> None:
-    pipeline = _pipeline(tmp_path, speed=10.0)
+def test_readouts_show_sign_unit_range_and_power() -> None:
+    rig = load_scenario("split-15v").rig
+    assert [c.name for c in rig.channels] == ["pos_v", "pos_a", "neg_v", "neg_a"]
+    pipeline = FakePipeline(rig, [15.02, 0.5, -14.97, 0.25], [14.9, 0.4, -15.1, 0.2], [15.1, 0.6, -14.8, 0.3])
 
     async def run() -> None:
         app = RailtapApp(pipeline)
         async with app.run_test(size=SIZE) as pilot:
-            await _until(pilot, lambda: pipeline.snapshot().latest is not None)
-            await pilot.pause(0.3)
+            await pilot.pause(0.2)
             cards = {card.channel_name: card for card in app.query(Readout)}
-            assert list(cards) == ["out_v", "out_a", "meter_v", "out_w"]
-            latest = pipeline.snapshot().latest
-            out_v = float(cards["out_v"].query_one("Digits").value)
-            assert out_v == pytest.approx(float(latest[0]), abs=0.5)  # 12 V rail, shown with its sign
-            assert cards["out_v"].query_one("Digits").value.startswith("+")
-            out_w = float(cards["out_w"].query_one("Digits").value)
-            assert out_w == pytest.approx(float(latest[0] * latest[1]), rel=0.2)
-            await _quit(app, pilot, pipeline)
+            assert list(cards) == ["pos_v", "pos_a", "neg_v", "neg_a", "pos_w", "neg_w"]
+            assert cards["pos_v"].query_one(Digits).value == "+15.02"
+            assert cards["neg_v"].query_one(Digits).value == "-14.97"  # a negative rail reads below zero
+            assert str(cards["neg_v"].query_one(".range", Static).content) == "-15.10 .. -14.80"  # min .. max
+            assert cards["pos_w"].query_one(Digits).value == "+7.510"  # 15.02 V x 0.5 A
+            assert cards["neg_w"].query_one(Digits).value == "-3.743"  # -14.97 V x 0.25 A
+            assert cards["pos_w"].unit == "W"
+            await _key(app, pilot, "q")
+            await _until(pilot, lambda: app.return_value is not None, 5.0)
 
     asyncio.run(run())
 
 
-def test_brownout_reaches_the_event_list_within_a_second(tmp_path: Path) -> None:
-    pipeline = _pipeline(tmp_path)
+def test_brownout_reaches_the_event_list_within_a_second(start: Callable[..., Pipeline]) -> None:
+    pipeline = start()
 
     async def run() -> None:
         app = RailtapApp(pipeline)
@@ -89,14 +138,16 @@ def test_brownout_reaches_the_event_list_within_a_second(tmp_path: Path) -> None
             happened = time.monotonic()
             await _until(pilot, lambda: "brownout" in _kinds(app), 1.0)
             assert time.monotonic() - happened < 1.0
+            out_v = app.query_one(Readout).query_one(Digits).value
+            assert out_v.startswith("+") and 0.0 <= float(out_v) < 13.0  # the 12 V rail, live
             assert "BROWNOUT" in str(app.query_one("#banner").content)
             await _quit(app, pilot, pipeline)
 
     asyncio.run(run())
 
 
-def test_mark_key_adds_a_mark_row_and_quit_seals_the_run(tmp_path: Path) -> None:
-    pipeline = _pipeline(tmp_path, speed=10.0)
+def test_mark_key_adds_a_mark_row_and_quit_seals_the_run(start: Callable[..., Pipeline], tmp_path: Path) -> None:
+    pipeline = start(speed=10.0)
 
     async def run() -> None:
         app = RailtapApp(pipeline)
