@@ -19,12 +19,14 @@ from logger.sim.scenario import load_scenario
 from logger.sources.simulated import SimSource
 from logger.store import read_run_json
 from logger.tui import RailtapApp
+from logger.tui.banner import Banner
 from logger.tui.channels import shown_channels
 from logger.tui.events_table import EventTable
 from logger.tui.fmt import value_text
 from logger.tui.history import TrendHistory
 from logger.tui.mark import MarkInput
 from logger.tui.readouts import Readout
+from logger.tui.trend import Trend
 
 SCENARIO = load_scenario("demo-bench")
 SIZE = (100, 30)
@@ -124,6 +126,29 @@ def test_readouts_show_sign_unit_range_and_power() -> None:
             assert cards["pos_w"].unit == "W"
             await _key(app, pilot, "q")
             await _until(pilot, lambda: app.return_value is not None, 5.0)
+
+    asyncio.run(run())
+
+
+def test_keys_change_span_channel_bell_and_pause_without_stopping_the_run() -> None:
+    pipeline = FakePipeline(SCENARIO.rig, [12.0, 2.0, 7.3], [11.9, 0.5, 7.2], [12.1, 3.5, 7.4])
+
+    async def run() -> None:
+        app = RailtapApp(pipeline)
+        async with app.run_test(size=SIZE) as pilot:
+            trend = app.query_one(Trend)
+            assert trend.border_title == "trend: out_v (V), last 10 s"
+            for key in "ssc":
+                await _key(app, pilot, key)
+            assert trend.border_title == "trend: out_a (A), last 10 min"
+            await _key(app, pilot, "b")
+            await _key(app, pilot, "p")
+            banner = str(app.query_one(Banner).content)
+            assert "paused" in banner and "[bell on]" in banner
+            assert not pipeline.wait(0)  # pausing the display leaves the run alone
+            await _key(app, pilot, "q")
+            await _until(pilot, lambda: app.return_value is not None, 5.0)
+        assert pipeline.wait(0)
 
     asyncio.run(run())
 

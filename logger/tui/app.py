@@ -62,6 +62,7 @@ class RailtapApp(App[str]):
         self.history = TrendHistory(shown_channels(pipeline.rig))
         self.paused = False
         self.sealing = False
+        self._seen_id = 0
 
     def compose(self) -> ComposeResult:
         yield Banner(self.pipeline.rig.name, id="banner")
@@ -86,7 +87,11 @@ class RailtapApp(App[str]):
         except NoMatches:  # the screen is going away as the app exits
             return
         table = self.query_one(EventTable)
-        fresh = [] if self.paused else table.add_events(snap.events)
+        fresh = [e for e in snap.events if e.id is not None and e.id > self._seen_id][::-1]
+        if fresh:
+            self._seen_id = fresh[-1].id
+        if not self.paused:
+            table.add_events(snap.events)
         if banner.show(snap, fresh):
             self.bell()
         self.query_one(StatusPanel).show(snap)
@@ -105,6 +110,7 @@ class RailtapApp(App[str]):
         for readout in self.query(Readout):
             readout.set_class(self.paused, "-paused")
         self.notify("display paused; recording goes on" if self.paused else "display running", timeout=2)
+        self.poll()
 
     def action_reset(self) -> None:
         self.history.pull(self.pipeline.ring)  # samples from before the reset must not count after it
@@ -129,6 +135,7 @@ class RailtapApp(App[str]):
         banner = self.query_one(Banner)
         banner.bell_on = not banner.bell_on
         self.notify(f"bell {'on' if banner.bell_on else 'off'} for new brownouts and dropouts", timeout=2)
+        self.poll()
 
     async def action_quit(self) -> None:
         self._seal("stopped by user")
