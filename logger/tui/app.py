@@ -79,9 +79,10 @@ class RailtapApp(App[str]):
         self.poll()
 
     def poll(self) -> None:
-        """Read one snapshot and show it; a display error is shown, never raised into ingest."""
+        """Read one snapshot and show it. Ingest never waits for this: if drawing fails, the screen ends and
+        its caller stops and seals the run, so no sample is lost to a display bug."""
         snap = self.pipeline.snapshot()
-        self.history.pull(self.pipeline.ring)
+        fresh_samples = self.history.pull(self.pipeline.ring)
         try:
             banner = self.query_one(Banner)
         except NoMatches:  # the screen is going away as the app exits
@@ -97,7 +98,8 @@ class RailtapApp(App[str]):
         self.query_one(StatusPanel).show(snap)
         if not self.paused:
             self.query_one(Readouts).show(snap)
-            self.query_one(Trend).refresh()
+            if fresh_samples:  # nothing new (link down, device silent): the trend stays as drawn
+                self.query_one(Trend).refresh()
         if not self.sealing and self.pipeline.wait(0):
             self._seal(f"run ended: {self.pipeline.stop_reason}")
 
