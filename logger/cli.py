@@ -77,6 +77,7 @@ def _parser() -> argparse.ArgumentParser:
     sim.add_argument("--scenario", metavar="NAME|FILE", help=f"a simulated scenario (default: {DEFAULT_SCENARIO})")
     sim.add_argument("--speed", type=float, default=1.0, help="simulated seconds per real second")
     sim.add_argument("--seed", type=int, default=1)
+    sim.add_argument("--write-rig", type=Path, metavar="FILE", help="also write the scenario's rig file here")
     sim.set_defaults(run=cmd_sim)
 
     ports = sub.add_parser("ports", help="list serial ports")
@@ -156,11 +157,15 @@ def cmd_sim(args: argparse.Namespace) -> int:
     stop = threading.Event()
     _on_signals(lambda: stop.set())
     scenario = _scenario(args.scenario or DEFAULT_SCENARIO)
-    rig_file = Path(f"{scenario.name}.rig.toml")
+    rig_file = args.write_rig or Path(f"{scenario.name}.rig.toml")
+    if args.write_rig is not None:
+        args.write_rig.write_text(scenario.rig.text, encoding="utf-8")
+        how = f"its rig file is {rig_file}"
+    else:
+        how = f"write its rig file with `railtap sim --scenario {scenario.name} --pty --write-rig {rig_file}`"
 
     def ready(path: str) -> None:
-        rig_file.write_text(scenario.rig.text, encoding="utf-8")
-        print(f"simulated rig {scenario.name!r} on {path}; its rig file is {rig_file}; connect with "
+        print(f"simulated rig {scenario.name!r} on {path}; {how}; connect with "
               f"`railtap record --port {path} --rig {rig_file}`; Ctrl-C stops", flush=True)
 
     device = scenario.make_device(args.seed)
