@@ -21,7 +21,7 @@ from logger.clock import ClockFit, Unwrapper
 from logger.events import Event, EventDetector
 from logger.events.link import LinkWatch
 from logger.events.log import EventLog
-from logger.live import LinkHealth, RateMeter, Ring, Snapshot
+from logger.live import LinkHealth, RateMeter, Ring, Snapshot, Totals
 from logger.recording import Recorder, run_metadata
 from logger.rig import Rig, RigError
 from logger.sources.base import Chunk, LinkLost, Source, SourceError
@@ -87,6 +87,7 @@ class Pipeline:
         self.detector: EventDetector | None = None
         self._minmax: tuple[np.ndarray, np.ndarray] | None = None
         self.rate = RateMeter()
+        self.totals = Totals(rig.power_pairs())
         self._first_us: int | None = None
         self._last_us: int | None = None
         self._last_utc_us: int | None = None
@@ -276,6 +277,7 @@ class Pipeline:
         if len(utc) == 0:
             return
         self.ring.extend(utc, values)
+        self.totals.add(utc, values)
         lo, hi = values.min(axis=0), values.max(axis=0)
         if self._minmax is not None:
             lo, hi = np.minimum(lo, self._minmax[0]), np.maximum(hi, self._minmax[1])
@@ -384,6 +386,8 @@ class Pipeline:
             recording=self.recorder.state() if self.recorder is not None else None,
             events=self.events.recent(50),
             active=tuple(self.detector.active()) if self.detector is not None else (),
+            charge_ah=self.totals.charge_ah,
+            energy_wh=self.totals.energy_wh,
         )
 
     def mark(self, note: str) -> Event:
@@ -392,7 +396,9 @@ class Pipeline:
         return self.events.add(Event("mark", at, detail=note))
 
     def reset_minmax(self) -> None:
+        """Forget min/max and start the charge and energy counters again from zero."""
         self._minmax = None
+        self.totals.reset()
 
     def _link_health(self) -> LinkHealth:
         c = self.decoder.counters

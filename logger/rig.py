@@ -60,6 +60,27 @@ class Device:
 
 
 @dataclass(frozen=True)
+class PowerPair:
+    """One rail's volts and amps channels, as positions in the rig's channel order."""
+
+    rail: str
+    volts: int
+    amps: int
+
+    @property
+    def name(self) -> str:
+        """The rail's power, as a column name: ``out_w``."""
+        return f"{self.rail}_w"
+
+
+def _rail_of(name: str) -> str:
+    for suffix in ("_v", "_a", "_volts", "_amps"):
+        if name.endswith(suffix):
+            return name[: -len(suffix)]
+    return name
+
+
+@dataclass(frozen=True)
 class Rig:
     name: str
     channels: tuple[Channel, ...]
@@ -68,6 +89,19 @@ class Rig:
     """Where it was read from, for messages and metadata."""
     text: str = ""
     """The file as written, stored with every run."""
+
+    def power_pairs(self) -> tuple[PowerPair, ...]:
+        """Each volts channel with the amps channel of the same rail, found by name (``out_v`` and ``out_a``
+        are the rail ``out``): their product is the rail's power, its integrals charge and energy."""
+        pairs = []
+        for i, v in enumerate(self.channels):
+            if v.role != "volts":
+                continue
+            for j, a in enumerate(self.channels):
+                if a.role == "amps" and _rail_of(a.name) == _rail_of(v.name):
+                    pairs.append(PowerPair(_rail_of(v.name), i, j))
+                    break
+        return tuple(pairs)
 
     def channel(self, name: str) -> Channel:
         for ch in self.channels:

@@ -11,16 +11,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from logger.events.rules import rules_for
-from logger.rig import Rig
-
-
-@dataclass(frozen=True)
-class PowerPair:
-    """Power of one rail: ``volts`` and ``amps`` are column indices in the rig's channel order."""
-
-    name: str
-    volts: int
-    amps: int
+from logger.rig import PowerPair, Rig
 
 
 @dataclass(frozen=True)
@@ -46,13 +37,6 @@ class Shown:
         return np.column_stack([values, *power]).astype(np.float32, copy=False)
 
 
-def _rail(name: str) -> str:
-    for suffix in ("_v", "_a", "_volts", "_amps"):
-        if name.endswith(suffix):
-            return name[: -len(suffix)]
-    return name
-
-
 def shown_channels(rig: Rig) -> Shown:
     """The readouts and trend channels for a rig, with power for every volts/amps pair on one rail."""
     names = [ch.name for ch in rig.channels]
@@ -61,14 +45,7 @@ def shown_channels(rig: Rig) -> Shown:
     for ch in rig.channels:
         dip = rules_for(ch).dip_below
         thresholds.append(None if dip is None else (-dip if ch.negative else dip))
-    pairs = []
-    for i, v in enumerate(rig.channels):
-        if v.role != "volts":
-            continue
-        for j, a in enumerate(rig.channels):
-            if a.role == "amps" and _rail(a.name) == _rail(v.name):
-                pairs.append(PowerPair(f"{_rail(v.name)}_w", i, j))
-                break
+    pairs = rig.power_pairs()
     for pair in pairs:
         names.append(pair.name)
         units.append("W")

@@ -1,4 +1,5 @@
-"""Big readouts: one card per channel with its calibrated value, unit, sign, and min/max since reset."""
+"""Big readouts: one card per channel with its calibrated value, unit, sign, and min/max since reset; power
+cards also carry the rail's charge (Ah) and energy (Wh) since the start or the last reset."""
 
 from __future__ import annotations
 
@@ -70,6 +71,13 @@ class Readout(Widget):
                                                 layout=False)
 
 
+    def show_totals(self, charge_ah: float, energy_wh: float) -> None:
+        """For a power card: charge and energy since the start or the last reset, on the card's lower edge."""
+        text = f"{charge_ah:.4g} Ah  {energy_wh:.4g} Wh"
+        if self.border_subtitle != text:
+            self.border_subtitle = text
+
+
 class Readouts(Horizontal):
     """A row of readouts: the rig's channels, then power for each volts/amps pair."""
 
@@ -94,7 +102,10 @@ class Readouts(Horizontal):
             cards[k].show(_at(latest, k), _at(snap.minimum, k), _at(snap.maximum, k))
         for k, pair in enumerate(shown.pairs):
             power = None if latest is None else float(latest[pair.volts] * latest[pair.amps])
-            cards[shown.measured + k].show(power, _at(self.history.power_min, k), _at(self.history.power_max, k))
+            card = cards[shown.measured + k]
+            card.show(power, _at(self.history.power_min, k), _at(self.history.power_max, k))
+            if k < len(snap.charge_ah):
+                card.show_totals(snap.charge_ah[k], snap.energy_wh[k])
 
 
 def _at(values: np.ndarray | None, k: int) -> float | None:
