@@ -36,6 +36,11 @@ class Calibrator:
         picked = counts[:, self.inputs].astype(np.float64)
         return ((picked - self.offset) * self.gain).astype(np.float32)
 
+    def at_limit(self, counts: np.ndarray) -> tuple[bool, ...]:
+        """For one row of selected counts: which channels sit at the bottom or top of the ADC's range, where
+        the true value may lie anywhere beyond what was read."""
+        return tuple(bool(c <= 0 or c >= self.full_scale) for c in counts)
+
     def select(self, counts: np.ndarray) -> np.ndarray:
         """The raw counts of the rig's channels, in the rig's order."""
         return counts[:, self.inputs]

@@ -356,8 +356,11 @@ def status_line(snap: Snapshot) -> str:
     """One line for a terminal or a log: time, values, link and recording state."""
     parts = [time.strftime("%H:%M:%S")]
     if snap.latest is not None:
-        parts.append("  ".join(f"{n} {v:8.3f} {u}" for n, v, u in zip(snap.channels, snap.latest, snap.units,
-                                                                    strict=True)))
+        limits = snap.at_limit or (False,) * len(snap.channels)
+        parts.append("  ".join(
+            f"{n} {v:8.3f} {u}{' (at ADC limit)' if at else ''}"
+            for n, v, u, at in zip(snap.channels, snap.latest, snap.units, limits, strict=True)
+        ))
     link = snap.link
     parts.append(f"{link.rate_hz:6.0f} frames/s, lost {link.lost}, rejected {link.rejected}")
     if snap.recording is not None:

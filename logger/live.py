@@ -157,3 +157,5 @@ class Snapshot:
     charge_ah: tuple[float, ...] = ()
     """Per volts/amps pair (``Rig.power_pairs()``), since the start or the last reset."""
     energy_wh: tuple[float, ...] = ()
+    at_limit: tuple[bool, ...] = ()
+    """Per channel: the newest reading's counts are at 0 or full scale, so the value may lie beyond it."""

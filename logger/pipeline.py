@@ -87,6 +87,7 @@ class Pipeline:
         self.detector: EventDetector | None = None
         self._minmax: tuple[np.ndarray, np.ndarray] | None = None
         self.rate = RateMeter()
+        self._at_limit: tuple[bool, ...] = ()
         self.totals = Totals(rig.power_pairs())
         self._first_us: int | None = None
         self._last_us: int | None = None
@@ -262,6 +263,7 @@ class Pipeline:
         self._note(self.link.frames(u.gaps, u.resets, utc, self.header.rate_hz, self._last_utc_us))
         self._track(utc, values, device_us)
         if len(utc):
+            self._at_limit = self.calibrator.at_limit(counts[-1])
             self._note(self.detector.feed(utc, values))
         if self.recorder is not None:
             self.recorder.add_batch(sample_batch(self._schema, utc, device_us, seq, values, counts))
@@ -380,6 +382,7 @@ class Pipeline:
             channels=self._names,
             units=tuple(ch.unit for ch in self.rig.channels),
             latest=latest,
+            at_limit=self._at_limit,
             minimum=lo,
             maximum=hi,
             link=self._link_health(),

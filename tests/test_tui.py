@@ -219,3 +219,22 @@ def test_values_keep_their_sign_and_width() -> None:
     assert value_text(-15.02) == "-15.02"
     assert value_text(3.4871) == "+3.487"
     assert value_text(None).strip() == "-.--"
+
+
+def test_a_reading_at_the_adc_limit_is_flagged() -> None:
+    from dataclasses import replace
+
+    rig = load_scenario("split-15v").rig
+    fake = FakePipeline(rig, [15.0, 0.5, -15.0, 0.4], [14.9, 0.4, -15.1, 0.3], [15.1, 0.6, -14.9, 0.5])
+    fake._snap = replace(fake._snap, at_limit=(True, False, False, False))
+
+    async def run() -> None:
+        app = RailtapApp(fake)
+        async with app.run_test(size=SIZE) as pilot:
+            await pilot.pause(0.3)
+            first = app.query(Readout).first()
+            assert first.has_class("-at-limit") and "ADC limit" in str(first.border_title)
+            assert not list(app.query(Readout))[1].has_class("-at-limit")
+            await _quit(app, pilot, fake)
+
+    asyncio.run(run())

@@ -35,6 +35,7 @@ class Readout(Widget):
     Readout .plain { display: none; height: 1; text-style: bold; text-align: center; }
     Readout .range { height: 1; color: $text-muted; text-align: center; }
     Readout.-paused { border: round $warning; }
+    Readout.-at-limit { border: round $error; }
     Readout.-compact { height: 4; }
     Readout.-compact Horizontal { display: none; }
     Readout.-compact .plain { display: block; }
@@ -71,6 +72,12 @@ class Readout(Widget):
                                                 layout=False)
 
 
+    def mark_limit(self, at_limit: bool) -> None:
+        """Flag a reading at the end of the ADC's range: the true value may lie beyond what is shown."""
+        if at_limit != self.has_class("-at-limit"):
+            self.set_class(at_limit, "-at-limit")
+            self.border_title = f"{self.channel_name} (at ADC limit)" if at_limit else self.channel_name
+
     def show_totals(self, charge_ah: float, energy_wh: float) -> None:
         """For a power card: charge and energy since the start or the last reset, on the card's lower edge."""
         text = f"{charge_ah:.4g} Ah  {energy_wh:.4g} Wh"
@@ -100,6 +107,7 @@ class Readouts(Horizontal):
         latest = snap.latest
         for k in range(shown.measured):
             cards[k].show(_at(latest, k), _at(snap.minimum, k), _at(snap.maximum, k))
+            cards[k].mark_limit(k < len(snap.at_limit) and snap.at_limit[k])
         for k, pair in enumerate(shown.pairs):
             power = None if latest is None else float(latest[pair.volts] * latest[pair.amps])
             card = cards[shown.measured + k]
