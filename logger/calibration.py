@@ -36,6 +36,11 @@ class Calibrator:
         picked = counts[:, self.inputs].astype(np.float64)
         return ((picked - self.offset) * self.gain).astype(np.float32)
 
+    def zero(self, k: int, counts: np.ndarray) -> float:
+        """Make channel ``k`` read zero at the mean of these raw counts (a tare); returns the new offset."""
+        self.offset[k] = float(np.mean(counts))
+        return float(self.offset[k])
+
     def at_limit(self, counts: np.ndarray) -> tuple[bool, ...]:
         """For one row of selected counts: which channels sit at the bottom or top of the ADC's range, where
         the true value may lie anywhere beyond what was read."""

@@ -88,6 +88,7 @@ class Pipeline:
         self._minmax: tuple[np.ndarray, np.ndarray] | None = None
         self.rate = RateMeter()
         self._at_limit: tuple[bool, ...] = ()
+        self._zero_requests: deque[str] = deque()
         self.totals = Totals(rig.power_pairs())
         self._first_us: int | None = None
         self._last_us: int | None = None
@@ -259,6 +260,7 @@ class Pipeline:
         device_us, seq, raw = u.device_us[within], u.seq[within], batch.counts[u.keep][within]
         utc = self.clock.to_utc_us(device_us)
         counts = self.calibrator.select(raw)
+        self._apply_zeros(counts, utc)
         values = self.calibrator.apply(raw)
         self._note(self.link.frames(u.gaps, u.resets, utc, self.header.rate_hz, self._last_utc_us))
         self._track(utc, values, device_us)
@@ -267,6 +269,16 @@ class Pipeline:
             self._note(self.detector.feed(utc, values))
         if self.recorder is not None:
             self.recorder.add_batch(sample_batch(self._schema, utc, device_us, seq, values, counts))
+
+    def _apply_zeros(self, counts: np.ndarray, utc: np.ndarray) -> None:
+        while self._zero_requests and len(utc):
+            name = self._zero_requests.popleft()
+            k = self._names.index(name)
+            moment = max(1, round(0.05 * self.header.rate_hz))  # the readings of the moment asked: 50 ms
+            offset = self.calibrator.zero(k, counts[:moment, k])
+            unit = self.rig.channel(name).unit
+            note = f"zeroed {name}: {offset:.1f} counts taken as 0 {unit}"
+            self.events.add(Event("mark", int(utc[0]), channel=name, value=offset, detail=note))
 
     def _within_duration(self, device_us: np.ndarray) -> slice:
         """Rows up to the end of ``--duration`` (measured on the device clock from the first sample)."""
@@ -397,6 +409,14 @@ class Pipeline:
         """A user's note at this moment (the time of the newest sample, else the host clock)."""
         at = self._last_utc_us if self._last_utc_us is not None else int(time.time() * 1e6)
         return self.events.add(Event("mark", at, detail=note))
+
+    def zero(self, channel: str) -> None:
+        """Take the current reading of an amps channel as its zero (a tare, with no current flowing): done by
+        the ingest thread on the next batch, noted in the event list. Raw counts are always kept, so the run
+        can be calibrated again later whatever was zeroed."""
+        if self.rig.channel(channel).role != "amps":
+            raise ValueError(f"{channel} is not an amps channel; only current channels are zeroed")
+        self._zero_requests.append(channel)
 
     def reset_minmax(self) -> None:
         """Forget min/max and start the charge and energy counters again from zero."""

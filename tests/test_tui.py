@@ -267,3 +267,25 @@ def test_screen_and_headless_record_the_same_run(tmp_path: Path) -> None:
     columns = ["kind", "channel", "duration_s", "value"]
     ea, eb = pd.read_parquet(plain / "_events.parquet"), pd.read_parquet(watched / "_events.parquet")
     pd.testing.assert_frame_equal(ea[columns], eb[columns], atol=0.002)
+
+
+def test_zero_key_tares_the_current_channel(start: Callable[..., Pipeline]) -> None:
+    pipeline = start(speed=5.0)
+
+    async def run() -> None:
+        app = RailtapApp(pipeline)
+        async with app.run_test(size=SIZE) as pilot:
+            await _until(pilot, lambda: pipeline.recorder is not None and pipeline.ring.written > 100)
+            await _key(app, pilot, "z")
+            await _until(pilot, lambda: "mark" in _kinds(app), 2.0)
+            (zeroed,) = [e for e in pipeline.events.recent() if e.kind == "mark"]
+            assert zeroed.channel == "out_a" and "zeroed out_a" in zeroed.detail
+            # The load draws current, so the readings just after the tare are about 0 A (the load steps only
+            # every 7 s of simulated time; 20 ms after the tare it has not moved).
+            await pilot.pause(0.3)
+            utc, values = pipeline.ring.latest(pipeline.ring.capacity)
+            after = values[(utc >= zeroed.start_us) & (utc < zeroed.start_us + 20_000), 1]
+            assert len(after) > 5 and abs(float(np.median(after))) < 0.05
+            await _quit(app, pilot, pipeline)
+
+    asyncio.run(run())

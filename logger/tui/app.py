@@ -51,6 +51,7 @@ class RailtapApp(App[str]):
         Binding("s", "span", "span"),
         Binding("c", "channel", "channel"),
         Binding("b", "bell", "bell"),
+        Binding("z", "zero", "zero current"),
         Binding("q", "quit", "quit"),
         Binding("ctrl+q", "quit", "quit", show=False, priority=True),
         Binding("ctrl+c", "quit", "quit", show=False),
@@ -136,6 +137,18 @@ class RailtapApp(App[str]):
 
     def action_channel(self) -> None:
         self.query_one(Trend).next_channel()
+
+    def action_zero(self) -> None:
+        """Zero the current channel the trend shows, or the first one (with no current flowing)."""
+        amps = [ch.name for ch in self.pipeline.rig.channels if ch.role == "amps"]
+        if not amps:
+            self.notify("no current channel to zero", timeout=2)
+            return
+        trend = self.query_one(Trend)
+        shown = trend.history.shown.names[trend.channel]
+        name = shown if shown in amps else amps[0]
+        self.pipeline.zero(name)
+        self.notify(f"{name} zeroed at its present reading (do this with no current flowing)", timeout=3)
 
     def action_bell(self) -> None:
         banner = self.query_one(Banner)
