@@ -289,3 +289,30 @@ def test_zero_key_tares_the_current_channel(start: Callable[..., Pipeline]) -> N
             await _quit(app, pilot, pipeline)
 
     asyncio.run(run())
+
+
+SNAPSHOT = Path(__file__).parent / "snapshots" / "screen_100x30.svg"
+
+
+def test_main_screen_snapshot_at_100x30() -> None:
+    """The whole screen on fixed data, against a stored SVG made with Textual's own screenshot export.
+
+    After a deliberate change to the screen, look at the new picture and store it with
+    ``RAILTAP_UPDATE_SNAPSHOTS=1 .venv/bin/python -m pytest tests/test_tui.py -k snapshot``.
+    """
+    import os
+
+    fake = FakePipeline(SCENARIO.rig, [12.0, 2.0, 7.3], [11.9, 0.5, 7.2], [12.1, 3.5, 7.4])
+
+    async def run() -> str:
+        app = RailtapApp(fake)
+        async with app.run_test(size=(100, 30)) as pilot:
+            await pilot.pause(0.5)
+            svg = app.export_screenshot()
+            await _quit(app, pilot, fake)
+        return svg
+
+    svg = asyncio.run(run())
+    if os.environ.get("RAILTAP_UPDATE_SNAPSHOTS"):
+        SNAPSHOT.write_text(svg, encoding="utf-8")
+    assert svg == SNAPSHOT.read_text(encoding="utf-8"), f"the screen changed; compare with {SNAPSHOT}"
