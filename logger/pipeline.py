@@ -81,7 +81,6 @@ class Pipeline:
         self._held_bytes = 0
         self._held_time = float("nan")
         self._fed_at = 0.0
-        self._byte_rate = 0.0
         self.events = EventLog()
         self.link = LinkWatch(self.settings.gap_event_s)
         self.detector: EventDetector | None = None
@@ -158,13 +157,8 @@ class Pipeline:
             return False
         if chunk.data:
             self._take(chunk)
-        wait = self.settings.batch_s - (time.monotonic() - self._fed_at)
-        if self._held_bytes >= 65536 or wait <= 0:
+        if self._held_bytes >= 65536 or time.monotonic() - self._fed_at >= self.settings.batch_s:
             self._drain()
-        elif 0 < len(chunk.data) < 2048 and self._byte_rate * wait < 16384:
-            # A slow trickle: let it gather in the port's buffer (tens of kB on any OS) and take it in one
-            # read, instead of waking for every USB packet. A fast stream is never made to wait.
-            self._stop.wait(wait)
         self._watch_header()
         return not self._duration_reached()
 
@@ -180,9 +174,7 @@ class Pipeline:
 
     def _drain(self) -> None:
         """Decode everything held; every byte had arrived by the host time of the last read."""
-        now = time.monotonic()
-        self._byte_rate = self._held_bytes / max(now - self._fed_at, 1e-3)
-        self._fed_at = now
+        self._fed_at = time.monotonic()
         if not self._held:
             return
         data, host_time = b"".join(self._held), self._held_time
