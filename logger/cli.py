@@ -59,8 +59,10 @@ def _parser() -> argparse.ArgumentParser:
     rec.set_defaults(run=cmd_record)
 
     live = sub.add_parser("live", help="record a rig to a run folder, watching it on the live screen")
+    live.add_argument("port_arg", nargs="?", metavar="PORT", help="serial port or pyserial URL (same as --port)")
     _source_options(live)
     _record_options(live)
+    _screen_options(live)
     live.set_defaults(run=cmd_live)
 
     demo = sub.add_parser("demo", help="record the built-in simulated rig (no hardware needed)")
@@ -69,6 +71,7 @@ def _parser() -> argparse.ArgumentParser:
     demo.add_argument("--seed", type=int, default=1, help="random seed of the simulated rig")
     demo.add_argument("--scenario", metavar="NAME|FILE", help=f"a simulated scenario (default: {DEFAULT_SCENARIO})")
     demo.add_argument("--headless", action="store_true", help="status lines instead of the live screen")
+    _screen_options(demo)
     demo.set_defaults(run=cmd_demo)
 
     sim = sub.add_parser("sim", help="serve the simulated rig on a pseudo-terminal, or list its scenarios")
@@ -122,6 +125,11 @@ def _record_options(p: argparse.ArgumentParser) -> None:
     p.add_argument("--quiet", action="store_true", help="no status lines, only the final summary")
 
 
+def _screen_options(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--no-record", action="store_true",
+                   help="watch without recording; press w on the screen to start (and stop) a run")
+
+
 # -- commands ----------------------------------------------------------------------------------------
 
 
@@ -131,6 +139,10 @@ def cmd_record(args: argparse.Namespace) -> int:
 
 
 def cmd_live(args: argparse.Namespace) -> int:
+    if args.port_arg is not None:
+        if args.port is not None or args.sim or args.replay is not None:
+            raise UsageError("give the port once: either PORT or --port, and not with --sim or --replay")
+        args.port = args.port_arg
     rig = _rig(args)
     return _record(_source(args, rig), rig, args, screen=True)
 
@@ -275,6 +287,7 @@ def _record(source: Source, rig: Rig, args: argparse.Namespace, screen: bool = F
         part_seconds=args.part_minutes * 60.0,
         keep_raw=args.keep_raw,
         duration_s=args.duration,
+        record_at_start=not getattr(args, "no_record", False),
     )
     pipeline = Pipeline(source, rig, settings)
     pipeline.start()
@@ -331,9 +344,8 @@ def _recover_leftovers(root: Path) -> None:
 
 def _report(pipeline: Pipeline) -> int:
     snap = pipeline.snapshot()
-    final: dict[str, Any] | None = pipeline.final
-    if final is not None:
-        print(f"{final.get('folder', pipeline.recorder.folder)}: {final.get('rows', 0)} rows, "
+    for final in pipeline.sealed:
+        print(f"{final['folder']}: {final.get('rows', 0)} rows, "
               f"{len(final.get('parts', []))} part(s); {final.get('stop_reason', pipeline.stop_reason)}")
     link = snap.link
     drift = f"{link.drift_ppm:+.1f} ppm" if pipeline.clock.fitted else "not measured (needs 30 s)"

@@ -158,4 +158,8 @@ class Snapshot:
     """Per volts/amps pair (``Rig.power_pairs()``), since the start or the last reset."""
     energy_wh: tuple[float, ...] = ()
     at_limit: tuple[bool, ...] = ()
+    recording_on: bool = True
+    """Recording now, or about to be from the first header on."""
+    last_run: str | None = None
+    """The folder of the run sealed last, when recording was stopped and started again."""
     """Per channel: the newest reading's counts are at 0 or full scale, so the value may lie beyond it."""

@@ -47,6 +47,8 @@ class Settings:
     """Reads are gathered for this long before decoding: fewer, larger batches cost less CPU."""
     header_wait_s: float = 10.0
     retry_s: float = 1.0
+    record_at_start: bool = True
+    """False: watch only until :meth:`Pipeline.set_recording` starts a run (needs ``record_root``)."""
 
 
 class Pipeline:
@@ -68,6 +70,11 @@ class Pipeline:
         self.error: str | None = None
         self.stop_reason = "stopped by user"
         self.final: dict[str, Any] | None = None
+        """The final metadata of the run sealed last (None if nothing was recorded)."""
+        self.sealed: list[dict[str, Any]] = []
+        """Every run this pipeline recorded and sealed, oldest first (recording can be stopped and started)."""
+        self._record_requests: deque[bool] = deque()
+        self._sealers: list[threading.Thread] = []
         self.answers: deque[Answer] = deque(maxlen=20)
         self.reconnects = 0
         self._names = tuple(ch.name for ch in rig.channels)
@@ -155,6 +162,8 @@ class Pipeline:
             self._drain()
             self.stop_reason = "source ended"
             return False
+        if self._record_requests:
+            self._switch_recording()
         if chunk.data:
             self._take(chunk)
         if self._held_bytes >= 65536 or time.monotonic() - self._fed_at >= self.settings.batch_s:
@@ -166,7 +175,7 @@ class Pipeline:
         """Hold a read until enough has come to decode as one batch (reads at low rates are tiny)."""
         if self.recorder is not None:
             self.recorder.add_raw(chunk)
-        elif self.settings.keep_raw:
+        elif self.settings.keep_raw and self.header is None:
             self._pending_raw.append(chunk)
         self._held.append(chunk.data)
         self._held_bytes += len(chunk.data)
@@ -220,7 +229,7 @@ class Pipeline:
         capacity = max(1024, int(self.settings.live_seconds * header.rate_hz))
         self.ring = Ring(capacity, len(self._names))
         self.detector = EventDetector(self.rig, header.rate_hz)
-        if self.settings.record_root is not None:
+        if self.settings.record_root is not None and self.settings.record_at_start:
             self._open_recorder(header)
         self.state, self.message = "running", f"receiving from {self.source.name}"
         pending, self._pending, self._pending_frames = self._pending, [], 0
@@ -316,6 +325,31 @@ class Pipeline:
             return True
         return False
 
+    def _switch_recording(self) -> None:
+        """Start or stop recording as asked, between reads. A stopped run is sealed on a thread of its own,
+        so ingest goes straight back to the port; the next start opens a new run folder."""
+        while self._record_requests:
+            on = self._record_requests.popleft()
+            if on and self.recorder is None and self.header is not None:
+                self._open_recorder(self.header)
+                self.events.add(Event("mark", self._now_us(), detail=f"recording started: {self.recorder.folder}"))
+            elif not on and self.recorder is not None:
+                old, self.recorder = self.recorder, None
+                self.events.add(Event("mark", self._now_us(), detail=f"recording stopped: {old.folder}"))
+                self.events.sink = None
+                sealer = threading.Thread(target=self._seal, args=(old, "recording stopped by user"),
+                                          name="railtap-seal", daemon=True)
+                self._sealers.append(sealer)
+                sealer.start()
+
+    def _seal(self, recorder: Recorder, reason: str) -> None:
+        final = recorder.stop(reason)
+        self.final = None if final is None else {**final, "folder": str(recorder.folder)}
+        if self.final is not None:
+            self.sealed.append(self.final)
+        elif recorder.error and recorder is not self.recorder:
+            self.message = f"{recorder.folder}: {recorder.error}; `railtap recover` can finish it"
+
     def _watch_header(self) -> None:
         if self.header is not None:
             return
@@ -358,6 +392,7 @@ class Pipeline:
 
     def _finish(self) -> None:
         self.source.close()
+        self._record_requests.clear()
         if self.header is None and self.decoder.counters.frames and not self.error:
             self._fail(
                 f"{self.decoder.counters.frames} frames arrived but never a header line, so nothing could be "
@@ -365,8 +400,10 @@ class Pipeline:
             )
         if self.detector is not None:
             self._note(self.detector.finish())
+        for sealer in self._sealers:  # runs stopped earlier first, so ``final`` is the last run's
+            sealer.join()
         if self.recorder is not None:
-            self.final = self.recorder.stop(self.stop_reason)
+            self._seal(self.recorder, self.stop_reason)
             if self.recorder.error and not self.error:
                 self._fail(self.recorder.error)
         if self.state != "failed":
@@ -391,6 +428,8 @@ class Pipeline:
             maximum=hi,
             link=self._link_health(),
             recording=self.recorder.state() if self.recorder is not None else None,
+            recording_on=self.recording,
+            last_run=self.final.get("folder") if self.final else None,
             events=self.events.recent(50),
             active=tuple(self.detector.active()) if self.detector is not None else (),
             charge_ah=self.totals.charge_ah,
@@ -399,8 +438,27 @@ class Pipeline:
 
     def mark(self, note: str) -> Event:
         """A user's note at this moment (the time of the newest sample, else the host clock)."""
-        at = self._last_utc_us if self._last_utc_us is not None else int(time.time() * 1e6)
-        return self.events.add(Event("mark", at, detail=note))
+        return self.events.add(Event("mark", self._now_us(), detail=note))
+
+    def set_recording(self, on: bool) -> None:
+        """Start recording to a new run folder under ``record_root``, or stop and seal the present one; done
+        by the ingest thread at its next read. Raises ValueError when there is nowhere to record to."""
+        if on and self.settings.record_root is None:
+            raise ValueError("this run was started without a folder to record to")
+        self._record_requests.append(on)
+
+    @property
+    def recording(self) -> bool:
+        """Whether samples are being recorded now, or will be from the first header on."""
+        if self._record_requests:
+            return self._record_requests[-1]
+        if self.header is None:
+            return self.settings.record_root is not None and self.settings.record_at_start
+        return self.recorder is not None
+
+    def _now_us(self) -> int:
+        """The time of the newest sample, else the host clock."""
+        return self._last_utc_us if self._last_utc_us is not None else int(time.time() * 1e6)
 
     def zero(self, channel: str) -> None:
         """Take the current reading of an amps channel as its zero (a tare, with no current flowing): done by

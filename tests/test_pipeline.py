@@ -242,3 +242,36 @@ def test_socket_url_link_drops_and_comes_back(tmp_path: Path) -> None:
     samples = pd.read_parquet(run)
     assert samples["seq"].is_unique and samples["seq"].is_monotonic_increasing
     assert pipeline.unwrapper.lost >= 400  # the half second nobody heard, counted from the sequence gap
+
+
+def test_recording_stops_and_starts_again_into_a_new_run_folder(tmp_path: Path) -> None:
+    """Watch first, then record, stop (sealed while ingest goes on), record again: two complete runs whose
+    samples follow each other without overlap, and ingest never stopped in between."""
+    source = SimSource(SimDevice(seed=3), speed=20.0, duration_s=None)
+    pipeline = Pipeline(source, RIG, Settings(record_root=tmp_path, record_at_start=False))
+    pipeline.start()
+
+    def wait_for(ready, timeout_s: float = 20.0) -> None:
+        deadline = time.monotonic() + timeout_s
+        while not ready():
+            assert time.monotonic() < deadline, "timed out"
+            time.sleep(0.02)
+
+    wait_for(lambda: pipeline.snapshot().latest is not None)
+    assert not pipeline.recording and pipeline.recorder is None and not list(tmp_path.iterdir())
+    for on in (True, False, True):
+        frames = pipeline.decoder.counters.frames
+        pipeline.set_recording(on)
+        assert pipeline.recording is on
+        wait_for(lambda start=frames: pipeline.decoder.counters.frames > start + 2000)
+    pipeline.stop()
+    assert pipeline.error is None
+    assert len(pipeline.sealed) == 2 and pipeline.final == pipeline.sealed[-1]
+    runs = sorted(Path(f["folder"]) for f in pipeline.sealed)
+    first, second = (pd.read_parquet(run, columns=["seq", "utc"]) for run in runs)
+    assert len(first) > 2000 and len(second) > 2000
+    assert first["utc"].max() < second["utc"].min()
+    notes = pd.read_parquet(runs[0] / "_events.parquet")["detail"].tolist()
+    assert any(n.startswith("recording started") for n in notes)
+    for run in runs:
+        assert json.loads((run / "_run.json").read_text())["status"] == "complete"

@@ -1,7 +1,8 @@
 """The live screen: polls the pipeline's snapshot ten times a second and never touches the ingest thread.
 
 Keys: ``p`` pauses the display (ingest and recording go on), ``r`` resets min/max, ``m`` adds a mark with a
-note, ``s`` changes the trend's span, ``c`` its channel, ``b`` toggles the bell, ``q``, ``ctrl+q`` or ``ctrl+c``
+note, ``s`` changes the trend's span, ``c`` its channel, ``b`` toggles the bell, ``z`` zeroes a current channel,
+``w`` stops recording (sealing the run) or starts a new run, ``q``, ``ctrl+q`` or ``ctrl+c``
 stops the run cleanly (the parts are sealed in a worker thread while the screen says so) and leaves.
 """
 
@@ -52,6 +53,7 @@ class RailtapApp(App[str]):
         Binding("c", "channel", "channel"),
         Binding("b", "bell", "bell"),
         Binding("z", "zero", "zero current"),
+        Binding("w", "record", "record on/off"),
         Binding("q", "quit", "quit"),
         Binding("ctrl+q", "quit", "quit", show=False, priority=True),
         Binding("ctrl+c", "quit", "quit", show=False),
@@ -149,6 +151,16 @@ class RailtapApp(App[str]):
         name = shown if shown in amps else amps[0]
         self.pipeline.zero(name)
         self.notify(f"{name} zeroed at its present reading (do this with no current flowing)", timeout=3)
+
+    def action_record(self) -> None:
+        """Stop recording (the run is sealed while the screen goes on) or start a new run folder."""
+        on = not self.pipeline.recording
+        try:
+            self.pipeline.set_recording(on)
+        except ValueError as exc:
+            self.notify(str(exc), severity="warning", timeout=3)
+            return
+        self.notify("recording to a new run folder" if on else "recording stopped; sealing the run", timeout=3)
 
     def action_bell(self) -> None:
         banner = self.query_one(Banner)

@@ -51,15 +51,23 @@ def status_text(snap: Snapshot, width: int = 0) -> Text:
     drift = f"{link.drift_ppm:+.1f} ppm" if link.drift_ppm else "-"
     text.append(f"reconnects {link.reconnects}  drift {drift}\n")
     rec = snap.recording
-    if rec is None:
-        text.append("not recording yet\n", "dim")
-    else:
-        folder = (rec.folder or "-").rstrip("/").rsplit("/", 1)[-1]
-        if 0 < width < len(folder):
-            folder = folder[: width - 1] + "\u2026"
+    if rec is not None:
         text.append(f"{rec.rows:,} rows  {size_text(rec.bytes_on_disk)}  {elapsed_text(rec.elapsed_s)}\n")
-        text.append(f"{folder}\n", "bold")
+        text.append(f"{_folder_name(rec.folder, width)}\n", "bold")
         if rec.error:
             text.append(f"recorder: {rec.error}\n", "bold red")
+    elif snap.recording_on:
+        text.append("recording from the device header on\n", "dim")
+    else:
+        text.append("NOT RECORDING", "bold yellow")
+        text.append(" (w starts)\n", "dim")
+        if snap.last_run:
+            text.append(f"last: {_folder_name(snap.last_run, width - 6)}\n", "dim")
     text.append(snap.message, "italic")
     return text
+
+
+def _folder_name(folder: str | None, width: int) -> str:
+    """The run folder's own name, cut to ``width`` (when given) so it keeps to one line."""
+    name = (folder or "-").rstrip("/").rsplit("/", 1)[-1]
+    return name[: width - 1] + "\u2026" if 0 < width < len(name) else name
