@@ -81,6 +81,8 @@ def _parser() -> argparse.ArgumentParser:
     sim.add_argument("--speed", type=float, default=1.0, help="simulated seconds per real second")
     sim.add_argument("--seed", type=int, default=1)
     sim.add_argument("--write-rig", type=Path, metavar="FILE", help="also write the scenario's rig file here")
+    sim.add_argument("--link", type=Path, metavar="PATH",
+                     help="also name the pseudo-terminal PATH (a symlink), so a restarted simulator keeps its port")
     sim.set_defaults(run=cmd_sim)
 
     ports = sub.add_parser("ports", help="list serial ports")
@@ -177,14 +179,21 @@ def cmd_sim(args: argparse.Namespace) -> int:
         how = f"write its rig file with `railtap sim --scenario {scenario.name} --pty --write-rig {rig_file}`"
 
     def ready(path: str) -> None:
-        print(f"simulated rig {scenario.name!r} on {path}; {how}; connect with "
-              f"`railtap record --port {path} --rig {rig_file}`; Ctrl-C stops", flush=True)
+        if args.link is not None:
+            args.link.unlink(missing_ok=True)
+            args.link.symlink_to(path)
+            path = str(args.link)
+        print(f"simulated rig {scenario.name!r} on {path}; {how}; watch it with "
+              f"`railtap live {path} --rig {rig_file}`; Ctrl-C stops", flush=True)
 
     device = scenario.make_device(args.seed)
     try:
         serve_on_pty(device, speed=args.speed, seed=args.seed, stop_event=stop, on_ready=ready)
     except KeyboardInterrupt:
         stop.set()
+    finally:
+        if args.link is not None and args.link.is_symlink():
+            args.link.unlink()
     return 0
 
 

@@ -174,6 +174,14 @@ class ClockFit:
         """How fast the device clock runs against the host's, in parts per million (positive: fast)."""
         return (1.0 / self._slope - 1.0) * 1e6
 
+    def restart(self) -> None:
+        """The device has restarted: its clock is a new one, related to the host by a new offset. The drift
+        measured so far is kept (same crystal) until 30 s of the new clock measure it again."""
+        self._minima.clear()
+        self._current = None
+        self._origin_us = None
+        self._intercept = None
+
     def observe(self, device_us: int, host_time: float) -> None:
         """Note that a frame stamped ``device_us`` (unwrapped) had arrived by ``host_time``."""
         if self._origin_us is None:

@@ -123,6 +123,8 @@ class LinkHealth:
     reconnects: int
     drift_ppm: float
     decoder: dict[str, int] = field(default_factory=dict)
+    down_since: float | None = None
+    """When the link was lost (UTC seconds), while the pipeline is reconnecting."""
 
 
 @dataclass(frozen=True)
@@ -141,7 +143,8 @@ class Snapshot:
     """Everything a screen or a status line shows, frozen at one moment."""
 
     state: str
-    """waiting, running, reconnecting, stopped or failed."""
+    """waiting, running, garbled (bytes but no valid line), silent (no bytes), reconnecting, stopped or
+    failed."""
     message: str
     channels: tuple[str, ...]
     units: tuple[str, ...]

@@ -30,6 +30,8 @@ from logger.wire import Answer, Decoder, DeviceHeader, FrameBatch, encode_line
 
 ASK_HEADER = encode_line("?H")
 MAX_PENDING_FRAMES = 1 << 20
+QUIET_S = 2.0
+"""After this long without a valid frame the screen is told why: garbage only, or nothing at all."""
 
 
 @dataclass(frozen=True)
@@ -88,6 +90,10 @@ class Pipeline:
         self._held_bytes = 0
         self._held_time = float("nan")
         self._fed_at = 0.0
+        self._bytes_at = self._frames_at = time.monotonic()
+        self._frames_seen = self._rejects_seen = 0
+        self.down_since: float | None = None
+        """When the link was lost (UTC seconds), while reconnecting."""
         self.events = EventLog()
         self.link = LinkWatch(self.settings.gap_event_s)
         self.detector: EventDetector | None = None
@@ -111,7 +117,7 @@ class Pipeline:
         self.decoder.joined_midstream()
         self._send(ASK_HEADER)
         self._asked_at = time.monotonic()
-        self._started_at = time.monotonic()
+        self._started_at = self._bytes_at = self._frames_at = time.monotonic()
         self.state, self.message = "waiting", f"connected to {self.source.name}; waiting for the device header"
         self._thread.start()
 
@@ -169,6 +175,7 @@ class Pipeline:
         if self._held_bytes >= 65536 or time.monotonic() - self._fed_at >= self.settings.batch_s:
             self._drain()
         self._watch_header()
+        self._watch_flow()
         return not self._duration_reached()
 
     def _take(self, chunk: Chunk) -> None:
@@ -177,6 +184,7 @@ class Pipeline:
             self.recorder.add_raw(chunk)
         elif self.settings.keep_raw and self.header is None:
             self._pending_raw.append(chunk)
+        self._bytes_at = time.monotonic()
         self._held.append(chunk.data)
         self._held_bytes += len(chunk.data)
         self._held_time = chunk.host_time
@@ -199,6 +207,8 @@ class Pipeline:
             else:
                 self.answers.append(item)
         self.rate.mark(self.decoder.counters.frames)
+        if self.decoder.counters.frames != self._frames_seen:
+            self._frames_seen, self._frames_at = self.decoder.counters.frames, time.monotonic()
         if self._last_utc_us is not None:
             self._note(self.link.rejects(self.decoder.counters.rejected, self._last_utc_us))
 
@@ -256,6 +266,8 @@ class Pipeline:
             return
         if self._first_us is None:
             self._first_us = int(u.device_us[0])
+        if u.resets:
+            self.clock.restart()
         self.clock.observe(int(u.device_us[-1]), host_time)
         within = self._within_duration(u.device_us)
         device_us, seq, raw = u.device_us[within], u.seq[within], batch.counts[u.keep][within]
@@ -307,8 +319,9 @@ class Pipeline:
 
     def _reconnect(self, why: str) -> bool:
         """Wait out an unplug: retry the source every ``retry_s`` until it is back or the run is stopped."""
-        lost_at = time.time()
-        self.state, self.message = "reconnecting", f"link lost ({why}); retrying every {self.settings.retry_s:g} s"
+        lost_at = self.down_since = time.time()
+        self.state, self.message = "reconnecting", (
+            f"link lost ({why}); retrying every {self.settings.retry_s:g} s, and the run goes on when it is back")
         self.source.close()
         while not self._stop.wait(self.settings.retry_s):
             try:
@@ -317,6 +330,8 @@ class Pipeline:
                 self.message = f"link lost; still retrying: {exc}"
                 continue
             self.reconnects += 1
+            self.down_since = None
+            self._bytes_at = self._frames_at = time.monotonic()
             self.decoder.joined_midstream()
             back = time.time()
             self.events.add(Event("link_lost", int(lost_at * 1e6), int(back * 1e6), detail=why))
@@ -349,6 +364,33 @@ class Pipeline:
             self.sealed.append(self.final)
         elif recorder.error and recorder is not self.recorder:
             self.message = f"{recorder.folder}: {recorder.error}; `railtap recover` can finish it"
+
+    def _watch_flow(self) -> None:
+        """Say plainly why no samples come: bytes that never make a valid line (a wrong baud rate, most
+        often), or no bytes at all (a device without power, stuck, or resetting). Back to running when
+        frames flow again."""
+        if self.state not in ("waiting", "running", "garbled", "silent"):
+            return
+        now = time.monotonic()
+        quiet = now - self._frames_at
+        rejected = self.decoder.counters.rejected
+        if quiet < QUIET_S:
+            if self.state in ("garbled", "silent"):
+                self.state, self.message = "running", f"receiving from {self.source.name} again"
+            self._rejects_seen = rejected
+            return
+        state = self.state if self.header is None else None
+        if now - self._bytes_at < QUIET_S and rejected > self._rejects_seen:
+            self.state, self.message = state or "garbled", (
+                f"bytes arrive but no valid line for {quiet:.0f} s ({rejected:,} rejected): most likely the "
+                f"baud rate is wrong; {self.source.name} must match the firmware (--baud, or device.baud in "
+                "the rig file)"
+            )
+        elif now - self._bytes_at >= QUIET_S and (self.header is not None or self._frames_seen == 0):
+            self.state, self.message = state or "silent", (
+                f"nothing from the device for {now - self._bytes_at:.0f} s: is it powered, and its firmware "
+                "running? (the run goes on when data comes back)"
+            )
 
     def _watch_header(self) -> None:
         if self.header is not None:
@@ -477,7 +519,8 @@ class Pipeline:
         c = self.decoder.counters
         return LinkHealth(
             source=self.source.name,
-            connected=self.state in ("running", "waiting"),
+            connected=self.state in ("running", "waiting", "garbled", "silent"),
+            down_since=self.down_since,
             frames=c.frames,
             rate_hz=self.rate.per_second(),
             lost=self.unwrapper.lost,

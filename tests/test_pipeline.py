@@ -275,3 +275,76 @@ def test_recording_stops_and_starts_again_into_a_new_run_folder(tmp_path: Path) 
     assert any(n.startswith("recording started") for n in notes)
     for run in runs:
         assert json.loads((run / "_run.json").read_text())["status"] == "complete"
+
+
+class _WrongBaud:
+    """Stands in for a port opened at the wrong baud rate: bytes keep coming, none of them a valid line."""
+
+    name = "/dev/ttyFAKE @ 9600"
+
+    def __init__(self) -> None:
+        self.rng = np.random.default_rng(5)
+
+    def open(self) -> None:
+        pass
+
+    def read(self):
+        from logger.sources.base import Chunk
+
+        time.sleep(0.02)
+        return Chunk(self.rng.integers(0, 256, 200, dtype=np.uint8).tobytes(), time.time())
+
+    def write(self, data: bytes) -> None:
+        pass
+
+    def close(self) -> None:
+        pass
+
+
+def test_wrong_baud_rate_gets_a_plain_message(tmp_path: Path) -> None:
+    pipeline = Pipeline(_WrongBaud(), RIG, Settings(record_root=tmp_path))
+    pipeline.start()
+    deadline = time.monotonic() + 10
+    while "baud rate" not in pipeline.snapshot().message and time.monotonic() < deadline:
+        time.sleep(0.05)
+    snap = pipeline.snapshot()
+    pipeline.stop()
+    assert "most likely the baud rate is wrong" in snap.message and "\n" not in snap.message
+    assert "/dev/ttyFAKE @ 9600" in snap.message and snap.link.rejected > 0 and snap.link.frames == 0
+    assert not list(tmp_path.iterdir())
+
+
+class _Stalls(SimSource):
+    """The simulated rig, whose reads come back empty for a while when asked (a stuck device)."""
+
+    quiet_until = 0.0
+
+    def read(self):
+        from logger.sources.base import Chunk
+
+        if time.monotonic() < self.quiet_until:
+            time.sleep(0.05)
+            return Chunk(b"", time.time())
+        return super().read()
+
+    def pause(self, seconds: float) -> None:
+        self.quiet_until = time.monotonic() + seconds
+
+
+def test_a_device_that_falls_silent_is_named_and_flow_resumes(tmp_path: Path) -> None:
+    """The device sends nothing for 3 s, then carries on: the state goes silent, then running again."""
+    source = _Stalls(SimDevice(seed=4), speed=1.0, duration_s=None)
+    pipeline = Pipeline(source, RIG, Settings(record_root=tmp_path))
+    pipeline.start()
+    deadline = time.monotonic() + 10
+    while pipeline.state != "running" and time.monotonic() < deadline:
+        time.sleep(0.05)
+    source.pause(3.0)
+    states = set()
+    while time.monotonic() < deadline + 5 and not ("silent" in states and pipeline.state == "running"):
+        states.add(pipeline.state)
+        if pipeline.state == "silent":
+            assert "nothing from the device" in pipeline.message
+        time.sleep(0.05)
+    pipeline.stop()
+    assert "silent" in states and pipeline.error is None

@@ -26,6 +26,7 @@ from logger.tui.fmt import value_text
 from logger.tui.history import TrendHistory
 from logger.tui.mark import MarkInput
 from logger.tui.readouts import Readout
+from logger.tui.status import StatusPanel
 from logger.tui.trend import Trend
 
 SCENARIO = load_scenario("demo-bench")
@@ -37,9 +38,11 @@ def start(tmp_path: Path) -> Iterator[Callable[..., Pipeline]]:
     """Starts a pipeline on the simulated demo bench; any still running at the end are stopped and sealed."""
     started: list[Pipeline] = []
 
-    def make(speed: float = 100.0) -> Pipeline:
+    def make(speed: float = 100.0, unplug: tuple[float, float] | None = None, **settings) -> Pipeline:
         source = SimSource(SCENARIO.make_device(1), speed=speed, duration_s=SCENARIO.duration_s)
-        pipeline = Pipeline(source, SCENARIO.rig, Settings(record_root=tmp_path))
+        if unplug is not None:
+            source.unplug(*unplug)
+        pipeline = Pipeline(source, SCENARIO.rig, Settings(record_root=tmp_path, **settings))
         pipeline.start()
         started.append(pipeline)
         return pipeline
@@ -184,7 +187,7 @@ def test_mark_key_adds_a_mark_row_and_quit_seals_the_run(start: Callable[..., Pi
             assert note.has_focus
             note.value = "load to 3 A"
             await _key(app, pilot, "enter")
-            await _until(pilot, lambda: "mark" in _kinds(app), 1.0)
+            await _until(pilot, lambda: "mark" in _kinds(app), 3.0)
             table = app.query_one(EventTable)
             rows = [table.get_row_at(k) for k in range(table.row_count)]
             assert [r[5] for r in rows] == sorted((r[5] for r in rows), reverse=True)  # newest first
@@ -198,6 +201,48 @@ def test_mark_key_adds_a_mark_row_and_quit_seals_the_run(start: Callable[..., Pi
     assert read_run_json(run_dir)["status"] == "complete"
 
 
+def test_unplug_shows_a_disconnected_screen_and_it_comes_back_by_itself(start: Callable[..., Pipeline]) -> None:
+    """Unplugged 0.5 s in for 2 s of wall time: a red DISCONNECTED banner with how long, greyed readouts
+    marked "no data", then the same run carries on, with the outage as a link_lost row."""
+    pipeline = start(speed=10.0, unplug=(5.0, 20.0), retry_s=0.2)
+
+    async def run() -> None:
+        app = RailtapApp(pipeline)
+        async with app.run_test(size=SIZE) as pilot:
+            banner = app.query_one(Banner)
+            await _until(pilot, lambda: "DISCONNECTED" in str(banner.content), 10.0)
+            assert banner.has_class("-alert") and "retrying every 0.2 s" in str(banner.content)
+            cards = list(app.query(Readout))
+            assert all(c.has_class("-stale") and "(no data)" in c.border_title for c in cards)
+            await _until(pilot, lambda: pipeline.reconnects == 1 and "DISCONNECTED" not in str(banner.content), 10.0)
+            await _until(pilot, lambda: not cards[0].has_class("-stale"), 2.0)
+            await _until(pilot, lambda: "link_lost" in _kinds(app), 2.0)
+            await _quit(app, pilot, pipeline)
+        assert len(pipeline.sealed) == 1
+
+    asyncio.run(run())
+
+
+def test_w_stops_recording_and_starts_a_new_run(start: Callable[..., Pipeline]) -> None:
+    pipeline = start(speed=10.0)
+
+    async def run() -> None:
+        app = RailtapApp(pipeline)
+        async with app.run_test(size=SIZE) as pilot:
+            await _until(pilot, lambda: pipeline.recorder is not None)
+            status = app.query_one(StatusPanel)
+            await _key(app, pilot, "w")
+            await _until(pilot, lambda: len(pipeline.sealed) == 1, 10.0)
+            await _until(pilot, lambda: "NOT RECORDING" in str(status.content), 1.0)
+            await _until(pilot, lambda: "last: " in str(status.content), 1.0)
+            await _key(app, pilot, "w")
+            await _until(pilot, lambda: pipeline.recorder is not None, 5.0)
+            await _quit(app, pilot, pipeline)
+        assert len(pipeline.sealed) == 2
+
+    asyncio.run(run())
+
+
 def test_history_keeps_a_one_sample_dip_at_any_span() -> None:
     history = TrendHistory(shown_channels(SCENARIO.rig))
     t0 = 1_800_000_000_000_000
@@ -206,7 +251,7 @@ def test_history_keeps_a_one_sample_dip_at_any_span() -> None:
     values[60_000, 0] = 3.0
     for chunk in np.array_split(np.arange(len(utc)), 7):
         history.add(utc[chunk], values[chunk])
-    for span_s in (10.0, 60.0, 600.0):
+    for span_s in (10.0, 60.0, 600.0, 3600.0):  # the last from the 1 s tier
         lo, hi = history.columns(0, span_s, 50)
         assert np.nanmax(hi) == pytest.approx(12.0)
         assert (np.nanmin(lo) == pytest.approx(3.0)) == (span_s > 60.0 - 1e-9)

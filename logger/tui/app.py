@@ -15,15 +15,15 @@ from typing import ClassVar
 from textual import work
 from textual.app import App, ComposeResult
 from textual.binding import Binding, BindingType
-from textual.containers import Horizontal
+from textual.containers import Horizontal, Vertical
 from textual.css.query import NoMatches
-from textual.widgets import Footer
+from textual.widgets import DataTable, Footer
 from textual.worker import get_current_worker
 
 from logger.pipeline import Pipeline
 from logger.tui.banner import Banner
 from logger.tui.channels import shown_channels
-from logger.tui.events_table import EventTable
+from logger.tui.events_table import EventDetail, EventTable
 from logger.tui.history import TrendHistory
 from logger.tui.mark import MarkInput
 from logger.tui.messages import MarkNote, RunSealed
@@ -42,18 +42,21 @@ class RailtapApp(App[str]):
     AUTO_FOCUS = "EventTable"
     HORIZONTAL_BREAKPOINTS: ClassVar[list[tuple[int, str]]] = [(0, "-narrow"), (120, "-wide")]
     CSS = """
-    #lower { height: 1fr; min-height: 7; }
+    #lower { height: 1fr; min-height: 8; }
+    #events-col { width: 1fr; }
+    Screen.-narrow EventTable { scrollbar-size-horizontal: 0; }
+    Screen.-narrow EventDetail { max-height: 2; }
     Screen.-wide StatusPanel { width: 46; }
     """
     BINDINGS: ClassVar[list[BindingType]] = [
         Binding("p", "pause", "pause"),
-        Binding("r", "reset", "reset min/max"),
+        Binding("r", "reset", "reset"),
         Binding("m", "mark", "mark"),
         Binding("s", "span", "span"),
         Binding("c", "channel", "channel"),
         Binding("b", "bell", "bell"),
-        Binding("z", "zero", "zero current"),
-        Binding("w", "record", "record on/off"),
+        Binding("z", "zero", "zero"),
+        Binding("w", "record", "record"),
         Binding("q", "quit", "quit"),
         Binding("ctrl+q", "quit", "quit", show=False, priority=True),
         Binding("ctrl+c", "quit", "quit", show=False),
@@ -72,7 +75,9 @@ class RailtapApp(App[str]):
         yield Readouts(self.history)
         yield Trend(self.history, id="trend")
         with Horizontal(id="lower"):
-            yield EventTable(id="events")
+            with Vertical(id="events-col"):
+                yield EventTable(id="events")
+                yield EventDetail(id="detail")
             yield StatusPanel(id="status")
         yield MarkInput(id="mark")
         yield Footer()
@@ -95,8 +100,8 @@ class RailtapApp(App[str]):
         fresh = [e for e in snap.events if e.id is not None and e.id > self._seen_id][::-1]
         if fresh:
             self._seen_id = fresh[-1].id
-        if not self.paused:
-            table.add_events(snap.events)
+        if not self.paused and table.add_events(snap.events):
+            self.query_one(EventDetail).show(table.selected())
         if banner.show(snap, fresh):
             self.bell()
         self.query_one(StatusPanel).show(snap)
@@ -109,6 +114,10 @@ class RailtapApp(App[str]):
                 self.query_one(Trend).refresh()
         if not self.sealing and self.pipeline.wait(0):
             self._seal(f"run ended: {self.pipeline.stop_reason}")
+
+    def on_data_table_row_highlighted(self, message: DataTable.RowHighlighted) -> None:
+        """Moving through the event list spells out the event under the cursor."""
+        self.query_one(EventDetail).show(self.query_one(EventTable).selected())
 
     # -- keys -------------------------------------------------------------------------------------
 

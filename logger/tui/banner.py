@@ -1,8 +1,8 @@
 """The banner line at the top: what is going on now, in words, and the bell when a new fault starts.
 
 It shows, in order of importance: the run being sealed; a brownout, dropout, overvoltage or overcurrent going
-on, or one that ended less than ``hold_s`` ago; a link or recording that is not running; a paused display;
-otherwise a quiet line with the rig's name.
+on; a link that is down or carries no valid data; a fault that ended less than ``hold_s`` ago; a pipeline
+still waiting for its device or stopped; a paused display; otherwise a quiet line with the rig's name.
 """
 
 from __future__ import annotations
@@ -16,6 +16,7 @@ from logger.live import Snapshot
 from logger.tui.fmt import event_title
 
 FAULT_KINDS = ("brownout", "dropout", "overvoltage", "overcurrent", "flicker")
+NO_DATA = {"reconnecting": "DISCONNECTED", "garbled": "NO VALID DATA", "silent": "NO DATA", "failed": "FAILED"}
 
 
 class Banner(Static):
@@ -72,10 +73,12 @@ class Banner(Static):
             kind, line = "-warn", self.sealing
         elif snap.active:
             kind, line = "-alert", "NOW: " + "; ".join(event_title(e) for e in snap.active)
+        elif snap.state in NO_DATA:
+            kind, line = "-alert", f"{NO_DATA[snap.state]}{_for(snap.link.down_since)}: {snap.message}"
         elif held:
             kind, line = "-alert", f"JUST NOW: {event_title(self._recent)}"
         elif snap.state != "running":
-            kind, line = ("-alert" if snap.state == "failed" else "-warn"), f"{snap.state.upper()}: {snap.message}"
+            kind, line = "-warn", f"{snap.state.upper()}: {snap.message}"
         elif self.paused:
             kind, line = "-muted", "display paused (recording goes on); press p to go on"
         if self.paused and kind != "-muted":
@@ -87,3 +90,11 @@ class Banner(Static):
         if line != self._line:
             self._line = line
             self.update(line)
+
+
+def _for(since: float | None) -> str:
+    """`` for 1 min 12 s`` since a UTC time, or nothing."""
+    if since is None:
+        return ""
+    seconds = max(0, int(time.time() - since))
+    return f" for {seconds // 60} min {seconds % 60} s" if seconds >= 60 else f" for {seconds} s"

@@ -1,14 +1,15 @@
-"""The event list: newest first, one row per event as the pipeline numbers it, appended and never rebuilt."""
+"""The event list: newest first, one row per event as the pipeline numbers it, appended and never rebuilt;
+and the line under it that spells out the event the cursor is on."""
 
 from __future__ import annotations
 
 from collections import deque
 
 from rich.text import Text
-from textual.widgets import DataTable
+from textual.widgets import DataTable, Static
 
 from logger.events.model import Event
-from logger.tui.fmt import duration_text, local_time
+from logger.tui.fmt import duration_text, event_details, local_time
 
 ALERT_KINDS = ("brownout", "dropout", "overvoltage", "overcurrent", "flicker")
 LINK_KINDS = ("frame_gap", "crc_burst", "link_lost", "device_reset")
@@ -34,6 +35,7 @@ class EventTable(DataTable):
         self.keep = keep
         self.last_id = 0
         self._keys: deque[str] = deque()
+        self._events: dict[str, Event] = {}
         self.border_title = "events (newest first)"
 
     def on_mount(self) -> None:
@@ -49,18 +51,44 @@ class EventTable(DataTable):
     def add_events(self, newest_first: tuple[Event, ...]) -> list[Event]:
         """Add the events not shown yet; returns them, oldest first."""
         fresh = [e for e in newest_first if e.id is not None and e.id > self.last_id][::-1]
+        if not fresh:
+            return fresh
+        held = self.selected() if self.cursor_row > 0 else None  # a row picked by the user stays picked
         for event in fresh:
             key = str(event.id)
             self.add_row(_kind(event.kind), event.channel or "-", local_time(event.start_us),
                          duration_text(event.duration_s), event.detail, event.id, key=key)
             self._keys.append(key)
+            self._events[key] = event
             self.last_id = event.id
         while len(self._keys) > self.keep:
-            self.remove_row(self._keys.popleft())
-        if fresh:
-            self.sort("id", reverse=True)
-            self.border_title = f"events (newest first): {self.last_id} so far"
+            key = self._keys.popleft()
+            self.remove_row(key)
+            self._events.pop(key, None)
+        self.sort("id", reverse=True)
+        if held is not None and str(held.id) in self._events:
+            self.move_cursor(row=self.get_row_index(str(held.id)), animate=False)
+        self.border_title = f"events (newest first): {self.last_id} so far"
         return fresh
+
+    def selected(self) -> Event | None:
+        """The event under the cursor (the newest while the cursor stays on the top row)."""
+        if not self.row_count:
+            return None
+        key = self.coordinate_to_cell_key((self.cursor_row, 0)).row_key.value
+        return self._events.get(key)
+
+
+class EventDetail(Static):
+    """Every field of the event under the list's cursor, wrapped to the width (the list's own detail
+    column is cut short on a narrow terminal)."""
+
+    DEFAULT_CSS = """
+    EventDetail { height: auto; max-height: 4; padding: 0 1; background: $boost; color: $text; }
+    """
+
+    def show(self, event: Event | None) -> None:
+        self.update("" if event is None else event_details(event))
 
 
 def _kind(kind: str) -> Text:

@@ -56,3 +56,15 @@ def event_title(event: Event) -> str:
     lasted = f" for {duration_text(event.duration_s)}" if event.duration_s is not None else " now"
     detail = f": {event.detail}" if event.detail and event.detail != "going on" else ""
     return f"{event.kind.upper()} on {event.channel or 'link'}{lasted}{detail}"
+
+
+def event_details(event: Event) -> str:
+    """Every field an event has, in words, for the line under the event list."""
+    text = f"#{event.id} {event.kind} {event.channel or 'link'} at {local_time(event.start_us)}"
+    if event.end_us is not None:
+        text += f", {duration_text(event.duration_s)}"
+    elif event.kind not in ("mark", "device_reset"):
+        text += " (going on)"
+    if event.episode is not None:
+        text += f", in flicker #{event.episode}"
+    return f"{text}: {event.detail}" if event.detail else text

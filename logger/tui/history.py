@@ -1,9 +1,10 @@
-"""Ten minutes of min/max per 10 ms bucket, kept by the screen from the pipeline's live ring.
+"""Min/max of every shown channel in fixed time buckets, kept by the screen from the pipeline's live ring.
 
-The live ring holds only the last minute of raw samples; the trend wants up to ten minutes. Each poll the
-screen copies the samples that are new since the last one, folds them into fixed time buckets (lowest and
-highest value of each channel per bucket) and keeps those, so a brownout of one sample still shows as a
-spike at any span. Memory is fixed: 60,000 buckets whatever the sample rate.
+The live ring holds only the last minute of raw samples; the trend wants up to an hour. Each poll the screen
+copies the samples that are new since the last one and folds them into two tiers of buckets (lowest and
+highest value of each channel per bucket): 10 ms buckets for the last ten minutes, 1 s buckets for the last
+hour and more. A brownout of one sample therefore still shows as a spike at any span. Memory is fixed
+(about 64,000 buckets) whatever the sample rate.
 """
 
 from __future__ import annotations
@@ -16,18 +17,66 @@ from logger.live import Ring
 from logger.tui.channels import Shown
 
 
+class Buckets:
+    """Lowest and highest value per column in buckets of ``bucket_s``, for the last ``span_s`` or more."""
+
+    def __init__(self, width: int, bucket_s: float, span_s: float) -> None:
+        self.width = width
+        self.span_s = span_s
+        self.bucket_us = round(bucket_s * 1e6)
+        self.ring = Ring(math.ceil(span_s / bucket_s) + 8, 2 * width)
+        self._pending: tuple[int, np.ndarray] | None = None
+        """The newest bucket, still filling: kept out of the ring until a later one starts."""
+
+    def add(self, utc_us: np.ndarray, full: np.ndarray) -> None:
+        """Fold a batch of values (oldest first, one column per shown channel) into the buckets."""
+        idx = utc_us // self.bucket_us
+        starts = np.flatnonzero(np.r_[True, idx[1:] != idx[:-1]])
+        both = np.hstack([np.minimum.reduceat(full, starts, axis=0), np.maximum.reduceat(full, starts, axis=0)])
+        keys = idx[starts]
+        if self._pending is not None:
+            key, row = self._pending
+            if key == keys[0]:
+                both[0] = np.concatenate([np.minimum(row[: self.width], both[0, : self.width]),
+                                          np.maximum(row[self.width :], both[0, self.width :])])
+            else:
+                self.ring.extend(np.array([key * self.bucket_us]), row[None, :])
+        if len(keys) > 1:
+            self.ring.extend(keys[:-1] * self.bucket_us, both[:-1])
+        self._pending = (int(keys[-1]), both[-1].copy())
+
+    def columns(self, channel: int, end_us: int, span_s: float, count: int) -> tuple[np.ndarray, np.ndarray]:
+        """Lowest and highest value of ``channel`` in each of ``count`` equal slices of ``span_s`` up to
+        ``end_us``; NaN where a slice has no data."""
+        lo = np.full(count, np.nan)
+        hi = np.full(count, np.nan)
+        span_us = round(span_s * 1e6)
+        want = min(self.ring.written, math.ceil(span_us / self.bucket_us) + 1)
+        t, rows = self.ring.latest(want)
+        if self._pending is not None:
+            t = np.r_[t, self._pending[0] * self.bucket_us]
+            rows = np.vstack([rows, self._pending[1][None, :]])
+        start = end_us - span_us
+        keep = t >= start
+        t, rows = t[keep], rows[keep]
+        if len(t):
+            col = np.clip((t - start) * count // span_us, 0, count - 1)
+            np.fmin.at(lo, col, rows[:, channel].astype(np.float64))
+            np.fmax.at(hi, col, rows[:, self.width + channel].astype(np.float64))
+        return lo, hi
+
+
 class TrendHistory:
     """Bucketed min/max of every shown channel, plus the min/max since reset of the power columns."""
 
-    def __init__(self, shown: Shown, bucket_s: float = 0.01, span_s: float = 600.0) -> None:
+    def __init__(self, shown: Shown, fine_s: float = 0.01, fine_span_s: float = 600.0,
+                 coarse_s: float = 1.0, coarse_span_s: float = 4200.0) -> None:
         self.shown = shown
         self.width = len(shown.names)
-        self.bucket_us = round(bucket_s * 1e6)
-        self.buckets = Ring(math.ceil(span_s / bucket_s) + 8, 2 * self.width)
+        self.tiers = (Buckets(self.width, fine_s, fine_span_s), Buckets(self.width, coarse_s, coarse_span_s))
         self.last_utc_us: int | None = None
         self.power_min: np.ndarray | None = None
         self.power_max: np.ndarray | None = None
-        self._pending: tuple[int, np.ndarray] | None = None
         self._seen = 0
 
     def pull(self, ring: Ring | None) -> int:
@@ -49,23 +98,11 @@ class TrendHistory:
         return len(utc)
 
     def add(self, utc_us: np.ndarray, values: np.ndarray) -> None:
-        """Fold a batch of rig values (oldest first) into the buckets."""
+        """Fold a batch of rig values (oldest first) into every tier."""
         full = self.shown.with_power(values)
         self._track_power(full)
-        idx = utc_us // self.bucket_us
-        starts = np.flatnonzero(np.r_[True, idx[1:] != idx[:-1]])
-        both = np.hstack([np.minimum.reduceat(full, starts, axis=0), np.maximum.reduceat(full, starts, axis=0)])
-        keys = idx[starts]
-        if self._pending is not None:
-            key, row = self._pending
-            if key == keys[0]:
-                both[0] = np.concatenate([np.minimum(row[: self.width], both[0, : self.width]),
-                                          np.maximum(row[self.width :], both[0, self.width :])])
-            else:
-                self.buckets.extend(np.array([key * self.bucket_us]), row[None, :])
-        if len(keys) > 1:
-            self.buckets.extend(keys[:-1] * self.bucket_us, both[:-1])
-        self._pending = (int(keys[-1]), both[-1].copy())
+        for tier in self.tiers:
+            tier.add(utc_us, full)
         self.last_utc_us = int(utc_us[-1])
 
     def _track_power(self, full: np.ndarray) -> None:
@@ -82,23 +119,9 @@ class TrendHistory:
 
     def columns(self, channel: int, span_s: float, count: int) -> tuple[np.ndarray, np.ndarray]:
         """Lowest and highest value of ``channel`` in each of ``count`` equal slices of the last ``span_s``
-        (ending at the newest sample); NaN where a slice has no data."""
-        lo = np.full(count, np.nan)
-        hi = np.full(count, np.nan)
+        (ending at the newest sample), from the finest tier that covers the span; NaN where a slice has no
+        data."""
         if self.last_utc_us is None or count <= 0:
-            return lo, hi
-        span_us = round(span_s * 1e6)
-        want = min(self.buckets.written, math.ceil(span_us / self.bucket_us) + 1)
-        t, rows = self.buckets.latest(want)
-        if self._pending is not None:
-            t = np.r_[t, self._pending[0] * self.bucket_us]
-            rows = np.vstack([rows, self._pending[1][None, :]])
-        start = self.last_utc_us - span_us
-        keep = t >= start
-        t, rows = t[keep], rows[keep]
-        if len(t) == 0:
-            return lo, hi
-        col = np.clip((t - start) * count // span_us, 0, count - 1)
-        np.fmin.at(lo, col, rows[:, channel].astype(np.float64))
-        np.fmax.at(hi, col, rows[:, self.width + channel].astype(np.float64))
-        return lo, hi
+            return np.full(max(count, 0), np.nan), np.full(max(count, 0), np.nan)
+        tier = next((t for t in self.tiers if span_s <= t.span_s), self.tiers[-1])
+        return tier.columns(channel, self.last_utc_us, span_s, count)

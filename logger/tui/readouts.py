@@ -36,6 +36,9 @@ class Readout(Widget):
     Readout .range { height: 1; color: $text-muted; text-align: center; }
     Readout.-paused { border: round $warning; }
     Readout.-at-limit { border: round $error; }
+    Readout.-stale { border: dashed $warning; }
+    Readout.-stale Digits { color: $text-disabled; }
+    Readout.-stale .plain { color: $text-disabled; }
     Readout.-compact { height: 4; }
     Readout.-compact Horizontal { display: none; }
     Readout.-compact .plain { display: block; }
@@ -48,6 +51,7 @@ class Readout(Widget):
         self.border_title = name
         self.border_subtitle = "min .. max"
         self._shown: tuple[str, float | None, float | None] | None = None
+        self._totals_inline = False
 
     def compose(self) -> ComposeResult:
         with Horizontal():
@@ -68,21 +72,33 @@ class Readout(Widget):
         self._shown = shown
         self.query_one(Digits).update(text)
         self.query_one(".plain", Static).update(f"{text} {self.unit}", layout=False)
-        self.query_one(".range", Static).update(f"{value_text(low, False)} .. {value_text(high, False)}",
-                                                layout=False)
+        if not self._totals_inline:
+            self.query_one(".range", Static).update(f"{value_text(low, False)} .. {value_text(high, False)}",
+                                                    layout=False)
 
 
-    def mark_limit(self, at_limit: bool) -> None:
-        """Flag a reading at the end of the ADC's range: the true value may lie beyond what is shown."""
-        if at_limit != self.has_class("-at-limit"):
-            self.set_class(at_limit, "-at-limit")
-            self.border_title = f"{self.channel_name} (at ADC limit)" if at_limit else self.channel_name
+    def mark(self, *, at_limit: bool = False, stale: bool = False) -> None:
+        """Flag a reading at the end of the ADC's range (the true value may lie beyond what is shown), or
+        one that is stale because no samples are coming (the last value stays, greyed)."""
+        if (at_limit, stale) == (self.has_class("-at-limit"), self.has_class("-stale")):
+            return
+        self.set_class(at_limit, "-at-limit")
+        self.set_class(stale, "-stale")
+        note = "no data" if stale else "at ADC limit" if at_limit else ""
+        self.border_title = f"{self.channel_name} ({note})" if note else self.channel_name
 
     def show_totals(self, charge_ah: float, energy_wh: float) -> None:
-        """For a power card: charge and energy since the start or the last reset, on the card's lower edge."""
+        """For a power card: charge and energy since the start or the last reset, on the card's lower edge;
+        on a narrow card they take the place of the min/max line instead."""
         text = f"{charge_ah:.4g} Ah  {energy_wh:.4g} Wh"
-        if self.border_subtitle != text:
+        if len(text) + 6 <= self.size.width:
+            if self._totals_inline:
+                self._totals_inline, self._shown = False, None  # the min/max line is back on the next show
             self.border_subtitle = text
+            return
+        self._totals_inline = True
+        self.border_subtitle = "charge, energy"
+        self.query_one(".range", Static).update(f"{charge_ah:.3g}Ah {energy_wh:.3g}Wh", layout=False)
 
 
 class Readouts(Horizontal):
@@ -105,12 +121,14 @@ class Readouts(Horizontal):
         shown = self.history.shown
         cards = list(self.query(Readout))
         latest = snap.latest
+        stale = latest is not None and snap.state != "running"
         for k in range(shown.measured):
             cards[k].show(_at(latest, k), _at(snap.minimum, k), _at(snap.maximum, k))
-            cards[k].mark_limit(k < len(snap.at_limit) and snap.at_limit[k])
+            cards[k].mark(at_limit=k < len(snap.at_limit) and snap.at_limit[k], stale=stale)
         for k, pair in enumerate(shown.pairs):
             power = None if latest is None else float(latest[pair.volts] * latest[pair.amps])
             card = cards[shown.measured + k]
+            card.mark(stale=stale)
             card.show(power, _at(self.history.power_min, k), _at(self.history.power_max, k))
             if k < len(snap.charge_ah):
                 card.show_totals(snap.charge_ah[k], snap.energy_wh[k])

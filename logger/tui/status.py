@@ -8,7 +8,8 @@ from textual.widgets import Static
 from logger.live import Snapshot
 from logger.tui.fmt import elapsed_text, size_text
 
-STATE_STYLES = {"running": "bold green", "waiting": "bold yellow", "reconnecting": "bold yellow",
+STATE_STYLES = {"running": "bold green", "waiting": "bold yellow", "reconnecting": "bold red",
+                "garbled": "bold red", "silent": "bold red",
                 "stopped": "bold", "failed": "bold red"}
 
 

@@ -18,12 +18,14 @@ from textual.widget import Widget
 from logger.tui.fmt import value_text
 from logger.tui.history import TrendHistory
 
-SPANS_S = (10.0, 60.0, 600.0)
+SPANS_S = (10.0, 60.0, 600.0, 3600.0)
 GUTTER = 8
 
 
 def span_label(span_s: float) -> str:
-    return f"{span_s:g} s" if span_s < 60 else f"{span_s / 60:g} min"
+    if span_s < 60:
+        return f"{span_s:g} s"
+    return f"{span_s / 60:g} min" if span_s < 3600 else f"{span_s / 3600:g} h"
 
 
 class Trend(Widget):
