@@ -1,0 +1,1 @@
+"""Calibration: fitting curves to reference points, profiles on disk, and applying them to raw counts."""
