@@ -1,15 +1,16 @@
 """Raw ADC counts to calibrated values, vectorised over batches.
 
-For now each channel is a straight line fixed by the rig file and the device header:
+A channel without a calibration profile is a straight line fixed by the rig file and the device header:
 ``value = (counts - offset_counts) * vref / 2**bits * units_per_pin_volt``; the LSB is ``vref / 2**bits``
-(the usual convention for an N-bit converter). Multi-point calibration profiles will replace the line per
-channel without changing how batches flow through here.
+(the usual convention for an N-bit converter). A channel whose rig entry names a profile uses the profile's
+curve instead (:mod:`logger.cal`), and its readings outside the profile's calibrated span are flagged.
 """
 
 from __future__ import annotations
 
 import numpy as np
 
+from logger.cal.assess import Curve
 from logger.rig import Rig, RigError
 from logger.wire.frames import DeviceHeader, FrameBatch
 
@@ -30,16 +31,39 @@ class Calibrator:
         self.gain = np.array([lsb_v * ch.units_per_pin_volt() for ch in rig.channels], dtype=np.float64)
         self.offset = np.array([ch.offset_counts for ch in rig.channels], dtype=np.float64)
         self.full_scale = (1 << header.adc_bits) - 1
+        self.curves: dict[int, Curve] = {}
+        self.spans = np.array([(-np.inf, np.inf)] * len(rig.channels))
+        for k, ch in enumerate(rig.channels):
+            if ch.profile is None:
+                continue
+            if ch.profile.adc_bits is not None and ch.profile.adc_bits != header.adc_bits:
+                raise RigError(f"{ch.profile_path}: made with a {ch.profile.adc_bits}-bit converter, but the device "
+                               f"sends {header.adc_bits}-bit counts; calibrate {ch.name} again on this device")
+            self.curves[k] = ch.profile.curve
+            self.spans[k] = ch.profile.span_counts
 
     def apply(self, counts: np.ndarray) -> np.ndarray:
         """Calibrated values, float32, shape (frames, rig channels)."""
         picked = counts[:, self.inputs].astype(np.float64)
-        return ((picked - self.offset) * self.gain).astype(np.float32)
+        values = (picked - self.offset) * self.gain
+        for k, curve in self.curves.items():
+            values[:, k] = curve.value(picked[:, k])
+        return values.astype(np.float32)
 
     def zero(self, k: int, counts: np.ndarray) -> float:
-        """Make channel ``k`` read zero at the mean of these raw counts (a tare); returns the new offset."""
-        self.offset[k] = float(np.mean(counts))
-        return float(self.offset[k])
+        """Make channel ``k`` read zero at the mean of these raw counts (a tare); returns that mean. A profiled
+        channel's curve is shifted; the profile file is left as it is."""
+        mean = float(np.mean(counts))
+        if k in self.curves:
+            self.curves[k] = self.curves[k].shifted(-float(self.curves[k].value(mean)))
+        else:
+            self.offset[k] = mean
+        return mean
+
+    def outside(self, counts: np.ndarray) -> np.ndarray:
+        """For selected counts (frames, rig channels): which readings lie outside their profile's calibrated
+        span (never for channels without a profile)."""
+        return (counts < self.spans[:, 0]) | (counts > self.spans[:, 1])
 
     def at_limit(self, counts: np.ndarray) -> tuple[bool, ...]:
         """For one row of selected counts: which channels sit at the bottom or top of the ADC's range, where

@@ -12,6 +12,9 @@ from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
 from logger import __version__
+from logger.cal.assess import MODELS
+from logger.cal.capture import DEFAULT_MAX_SD, DEFAULT_SAMPLES
+from logger.cal.session import CalError
 from logger.events import Event
 from logger.live import Snapshot
 from logger.pipeline import Pipeline, Settings
@@ -41,7 +44,7 @@ def main(argv: list[str] | None = None) -> int:
         return 2
     try:
         return args.run(args)
-    except (UsageError, RigError, ScenarioError, SourceError, StoreError) as exc:
+    except (UsageError, RigError, ScenarioError, SourceError, StoreError, CalError) as exc:
         print(f"railtap: {exc}", file=sys.stderr)
         return 2
     except KeyboardInterrupt:
@@ -84,6 +87,25 @@ def _parser() -> argparse.ArgumentParser:
     sim.add_argument("--link", type=Path, metavar="PATH",
                      help="also name the pseudo-terminal PATH (a symlink), so a restarted simulator keeps its port")
     sim.set_defaults(run=cmd_sim)
+
+    cal = sub.add_parser("cal", help="calibrate a channel against a reference meter (or from a CSV of points)")
+    cal.add_argument("channel", help="the rig channel to calibrate, e.g. out_v")
+    _source_options(cal)
+    what = cal.add_mutually_exclusive_group()
+    what.add_argument("--csv", type=Path, metavar="FILE", help="fit points from a CSV (columns reference,counts)")
+    what.add_argument("--one-point", action="store_true", help="quick fix: adjust the gain only, from one point")
+    what.add_argument("--zero", action="store_true", help="zero a current channel with no current flowing")
+    cal.add_argument("--samples", type=int, default=DEFAULT_SAMPLES, help="raw samples averaged per point")
+    cal.add_argument("--max-sd", type=float, default=DEFAULT_MAX_SD,
+                     help="refuse a point noisier than this many counts (standard deviation)")
+    cal.add_argument("--model", default="auto", choices=("auto", *MODELS), help="curve to save (default: recommended)")
+    cal.add_argument("--out", type=Path, metavar="FILE", help="profile file (default: the rig's, or cal/CHANNEL.json)")
+    cal.add_argument("--reference-note", default="", help="the reference instrument, e.g. its model and last check")
+    cal.add_argument("--temperature-note", default="", help="e.g. 23 C bench, tap warmed up 20 min")
+    cal.add_argument("--due-days", type=int, default=365, help="days until the profile is due again (0: never)")
+    cal.add_argument("--u-ref", type=float, metavar="VALUE",
+                     help="standard uncertainty of the reference readings, in the channel's unit, if known")
+    cal.set_defaults(run=cmd_cal)
 
     ports = sub.add_parser("ports", help="list serial ports")
     ports.set_defaults(run=cmd_ports)
@@ -197,6 +219,43 @@ def cmd_sim(args: argparse.Namespace) -> int:
     return 0
 
 
+def cmd_cal(args: argparse.Namespace) -> int:
+    from logger.cal import session
+
+    rig = _rig(args)
+    names = [ch.name for ch in rig.channels]
+    if args.channel not in names:
+        raise UsageError(f"{args.channel}: no such channel in {rig.source or rig.name}; it has {', '.join(names)}")
+    ch, k = rig.channel(args.channel), names.index(args.channel)
+    opts = session.CalOptions(args.samples, args.max_sd, args.model, args.out, args.reference_note,
+                              args.temperature_note, args.due_days, args.u_ref)
+    say = session.terminal_say
+    if args.csv is not None:
+        session.fit_and_save(rig, ch, session.points_from_csv(args.csv, args.u_ref), opts, say)
+        return 0
+    pipeline = Pipeline(_source(args, rig), rig, Settings(record_root=None))
+    pipeline.start()
+    try:
+        session.wait_for_device(pipeline)
+        bits, vref = pipeline.header.adc_bits, pipeline.header.vref_mv
+        if args.zero:
+            session.zero(pipeline, rig, ch, k, opts, input, say)
+        elif args.one_point:
+            points = session.collect_points(pipeline, ch, k, opts, input, say, most=1)
+            if not points:
+                raise UsageError("no point taken; nothing saved")
+            session.one_point(rig, ch, points[0], opts, say, bits, vref)
+        else:
+            points = session.collect_points(pipeline, ch, k, opts, input, say)
+            session.fit_and_save(rig, ch, points, opts, say, bits, vref)
+    except (KeyboardInterrupt, EOFError):
+        print("\nrailtap: calibration given up; nothing saved", file=sys.stderr)
+        return 130
+    finally:
+        pipeline.stop("calibration over")
+    return 0
+
+
 def cmd_ports(args: argparse.Namespace) -> int:
     from logger.sources.serial_port import list_ports, no_ports_hint
 
@@ -243,6 +302,14 @@ def cmd_rig_check(args: argparse.Namespace) -> int:
         sign = ", negative rail" if ch.negative else ""
         nominal = f", nominal {ch.nominal:g} {ch.unit}" if ch.nominal is not None else ""
         print(f"  input {ch.input}: {ch.name} ({ch.role}, {scale}{sign}{nominal})")
+        if ch.profile is not None:
+            prof = ch.profile
+            lo, hi = sorted(float(v) for v in prof.value(list(prof.span_counts)))
+            print(f"    calibration profile {ch.profile_path} replaces that scaling: {prof.model}, "
+                  f"{len(prof.points)} point(s), {lo:.4g} to {hi:.4g} {ch.unit}, made {prof.created[:10]}, "
+                  f"due {prof.due or 'never'}")
+    for warning in rig.warnings():
+        print(f"warning: {warning}")
     return 0
 
 
@@ -298,6 +365,8 @@ def _record(source: Source, rig: Rig, args: argparse.Namespace, screen: bool = F
         duration_s=args.duration,
         record_at_start=not getattr(args, "no_record", False),
     )
+    for warning in rig.warnings():
+        print(f"railtap: warning: {warning}", file=sys.stderr)
     pipeline = Pipeline(source, rig, settings)
     pipeline.start()
     _on_signals(lambda: pipeline.request_stop("stopped by signal"))

@@ -161,6 +161,8 @@ class Snapshot:
     """Per volts/amps pair (``Rig.power_pairs()``), since the start or the last reset."""
     energy_wh: tuple[float, ...] = ()
     at_limit: tuple[bool, ...] = ()
+    outside_cal: tuple[bool, ...] = ()
+    """Per channel: the newest reading lies outside its calibration profile's span (extrapolated)."""
     recording_on: bool = True
     """Recording now, or about to be from the first header on."""
     last_run: str | None = None

@@ -21,6 +21,7 @@ from logger.clock import ClockFit, Unwrapper
 from logger.events import Event, EventDetector
 from logger.events.link import LinkWatch
 from logger.events.log import EventLog
+from logger.events.outside import OutsideWatch
 from logger.live import LinkHealth, RateMeter, Ring, Snapshot, Totals
 from logger.recording import Recorder, run_metadata
 from logger.rig import Rig, RigError
@@ -67,6 +68,8 @@ class Pipeline:
         self.calibrator: Calibrator | None = None
         self.recorder: Recorder | None = None
         self.ring: Ring | None = None
+        self.counts_ring: Ring | None = None
+        """The same recent rows as raw counts (the rig's channels, its order): what calibration averages."""
         self.state = "waiting"
         self.message = f"opening {source.name}"
         self.error: str | None = None
@@ -100,6 +103,8 @@ class Pipeline:
         self._minmax: tuple[np.ndarray, np.ndarray] | None = None
         self.rate = RateMeter()
         self._at_limit: tuple[bool, ...] = ()
+        self._outside: tuple[bool, ...] = ()
+        self.outside_watch: OutsideWatch | None = None
         self._zero_requests: deque[str] = deque()
         self.totals = Totals(rig.power_pairs())
         self._first_us: int | None = None
@@ -230,6 +235,7 @@ class Pipeline:
         if first or header.channels != self.header.channels or header.adc_bits != self.header.adc_bits \
                 or header.vref_mv != self.header.vref_mv:
             self.calibrator = Calibrator(self.rig, header)
+            self._watch_spans()
         self.header = header
         if first:
             self._begin(header)
@@ -238,6 +244,7 @@ class Pipeline:
         """First header: size the live ring, open the run folder, then flush what waited for the header."""
         capacity = max(1024, int(self.settings.live_seconds * header.rate_hz))
         self.ring = Ring(capacity, len(self._names))
+        self.counts_ring = Ring(capacity, len(self._names))
         self.detector = EventDetector(self.rig, header.rate_hz)
         if self.settings.record_root is not None and self.settings.record_at_start:
             self._open_recorder(header)
@@ -276,12 +283,26 @@ class Pipeline:
         self._apply_zeros(counts, utc)
         values = self.calibrator.apply(raw)
         self._note(self.link.frames(u.gaps, u.resets, utc, self.header.rate_hz, self._last_utc_us))
-        self._track(utc, values, device_us)
+        self._track(utc, values, counts, device_us)
         if len(utc):
             self._at_limit = self.calibrator.at_limit(counts[-1])
             self._note(self.detector.feed(utc, values))
+            if self.outside_watch is not None:
+                outside = self.calibrator.outside(counts)
+                self._outside = tuple(bool(b) for b in outside[-1])
+                self._note(self.outside_watch.feed(utc, outside, values))
         if self.recorder is not None:
             self.recorder.add_batch(sample_batch(self._schema, utc, device_us, seq, values, counts))
+
+    def _watch_spans(self) -> None:
+        """Flag readings outside the calibrated span of every channel that has a profile."""
+        curves = self.calibrator.curves
+        if not curves:
+            return
+        if self.outside_watch is not None:
+            self._note(self.outside_watch.finish())
+        spans = {k: tuple(sorted(map(float, curve.value(self.calibrator.spans[k])))) for k, curve in curves.items()}
+        self.outside_watch = OutsideWatch(self._names, spans, tuple(ch.unit for ch in self.rig.channels))
 
     def _apply_zeros(self, counts: np.ndarray, utc: np.ndarray) -> None:
         while self._zero_requests and len(utc):
@@ -300,10 +321,11 @@ class Pipeline:
         end_us = self._first_us + round(self.settings.duration_s * 1e6)
         return slice(0, np.searchsorted(device_us, end_us, side="left"))
 
-    def _track(self, utc: np.ndarray, values: np.ndarray, device_us: np.ndarray) -> None:
+    def _track(self, utc: np.ndarray, values: np.ndarray, counts: np.ndarray, device_us: np.ndarray) -> None:
         if len(utc) == 0:
             return
         self.ring.extend(utc, values)
+        self.counts_ring.extend(utc, counts)
         self.totals.add(utc, values)
         lo, hi = values.min(axis=0), values.max(axis=0)
         if self._minmax is not None:
@@ -442,6 +464,8 @@ class Pipeline:
             )
         if self.detector is not None:
             self._note(self.detector.finish())
+        if self.outside_watch is not None:
+            self._note(self.outside_watch.finish())
         for sealer in self._sealers:  # runs stopped earlier first, so ``final`` is the last run's
             sealer.join()
         if self.recorder is not None:
@@ -466,6 +490,7 @@ class Pipeline:
             units=tuple(ch.unit for ch in self.rig.channels),
             latest=latest,
             at_limit=self._at_limit,
+            outside_cal=self._outside,
             minimum=lo,
             maximum=hi,
             link=self._link_health(),

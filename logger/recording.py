@@ -159,6 +159,11 @@ def run_metadata(rig: Rig, header: DeviceHeader, source: str) -> dict[str, Any]:
             {"name": ch.name, "role": ch.role, "unit": ch.unit, "nominal": ch.nominal, "input": ch.input}
             for ch in rig.channels
         ],
+        "calibration": {
+            ch.name: {"profile_path": ch.profile_path, "profile": ch.profile.to_dict()} if ch.profile is not None
+            else {"scaling": "rig file (divider, shunt_ohm, gain, offset_counts)"}
+            for ch in rig.channels
+        },
     }
 
 

@@ -13,6 +13,8 @@ from importlib import resources
 from pathlib import Path
 from typing import Any
 
+from logger.cal.profile import Profile, ProfileError, load_profile
+
 ROLES = ("volts", "amps", "aux")
 UNITS = {"volts": "V", "amps": "A"}
 _NAME = re.compile(r"^[a-z][a-z0-9_]{0,23}$")
@@ -44,6 +46,9 @@ class Channel:
     unit: str = ""
     events: dict[str, float] = field(default_factory=dict)
     """Detector settings that differ from the defaults (see :mod:`logger.events.rules`)."""
+    profile: Profile | None = None
+    """The channel's calibration profile, when the rig names one; it replaces the scaling above."""
+    profile_path: str | None = None
 
     def units_per_pin_volt(self) -> float:
         """Calibrated units per volt at the ADC pin, sign included."""
@@ -103,6 +108,11 @@ class Rig:
                     break
         return tuple(pairs)
 
+    def warnings(self) -> list[str]:
+        """Things to tell the user at start that do not stop a run: calibration profiles past due."""
+        return [f"{ch.profile_path}: calibration of {ch.name} was due {ch.profile.due}; redo it with "
+                f"`railtap cal {ch.name}`" for ch in self.channels if ch.profile is not None and ch.profile.overdue()]
+
     def channel(self, name: str) -> Channel:
         for ch in self.channels:
             if ch.name == name:
@@ -144,7 +154,8 @@ def rig_from_dict(doc: dict[str, Any], source: str = "<rig>", text: str = "") ->
     raw_channels = doc.get("channel")
     if not isinstance(raw_channels, list) or not raw_channels:
         raise RigError(f"{source}: no [[channel]] tables; at least one channel is needed")
-    channels = tuple(_channel(checker, i, t) for i, t in enumerate(raw_channels))
+    base = Path(source).parent if source and not source.startswith("<") else Path()
+    channels = tuple(_channel(checker, i, t, base) for i, t in enumerate(raw_channels))
     _check_unique(source, channels)
     return Rig(name=name, channels=channels, device=device, source=source, text=text)
 
@@ -182,7 +193,7 @@ def _device(c: _Checker, table: dict[str, Any]) -> Device:
                   vref_mv=c.get(table, "vref_mv", int, None, w))
 
 
-def _channel(c: _Checker, index: int, table: dict[str, Any]) -> Channel:
+def _channel(c: _Checker, index: int, table: dict[str, Any], base: Path) -> Channel:
     w = f"channel[{index}]."
     name = c.get(table, "name", str, None, w)
     if name is None or not _NAME.match(name):
@@ -203,15 +214,35 @@ def _channel(c: _Checker, index: int, table: dict[str, Any]) -> Channel:
     if low is not None and high is not None and low >= high:
         raise c.fail(f"{w}low", f"less than high ({high})")
     given = {k: v for k, v in numbers.items() if v is not None}
+    unit = c.get(table, "unit", str, UNITS.get(role, ""), w)
+    profile_path = c.get(table, "profile", str, None, w)
     return Channel(
         name=name,
         role=role,
         input=_input(c, table, w),
         negative=c.get(table, "negative", bool, False, w),
-        unit=c.get(table, "unit", str, UNITS.get(role, ""), w),
+        unit=unit,
         events=events,
+        profile=_profile(c, base, profile_path, name, unit, w),
+        profile_path=profile_path,
         **given,
     )
+
+
+def _profile(c: _Checker, base: Path, path: str | None, name: str, unit: str, where: str) -> Profile | None:
+    """The calibration profile a channel names (a path relative to the rig file), checked against it."""
+    if path is None:
+        return None
+    try:
+        profile = load_profile(base / path)
+    except ProfileError as exc:
+        raise RigError(f"{c.source}: {where}profile: {exc}") from None
+    if profile.channel != name:
+        raise c.fail(f"{where}profile", f"a profile made for {name!r}; {path} was made for {profile.channel!r} "
+                     f"(make one with `railtap cal {name}`)")
+    if profile.unit != unit:
+        raise c.fail(f"{where}profile", f"a profile in {unit!r}; {path} is in {profile.unit!r}")
+    return profile
 
 
 EVENT_KEYS = (

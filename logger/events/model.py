@@ -9,7 +9,7 @@ from typing import Any
 _EPOCH = datetime(1970, 1, 1, tzinfo=UTC)
 
 KINDS = ("brownout", "dropout", "overvoltage", "overcurrent", "flicker", "frame_gap", "crc_burst",
-         "link_lost", "device_reset", "mark")
+         "link_lost", "device_reset", "outside_cal", "mark")
 
 
 @dataclass(frozen=True)

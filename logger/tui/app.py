@@ -84,6 +84,8 @@ class RailtapApp(App[str]):
 
     def on_mount(self) -> None:
         self._polls = 0
+        for warning in self.pipeline.rig.warnings():
+            self.notify(warning, severity="warning", timeout=15)
         self.set_interval(POLL_S, self.poll)
         self.poll()
 

@@ -1,0 +1,238 @@
+"""Calibration end to end: points taken from a simulated ADC with known errors, the settle check, profiles on
+disk, the rig naming them, and readings outside the calibrated span flagged."""
+
+from __future__ import annotations
+
+import contextlib
+import json
+from datetime import UTC, datetime, timedelta
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from logger.cal.assess import CalPoint, assess, gain_only
+from logger.cal.capture import judge
+from logger.cal.profile import ProfileError, load_profile, save_profile
+from logger.cal.session import (
+    CalError,
+    CalOptions,
+    collect_points,
+    fit_and_save,
+    one_point,
+    points_from_csv,
+    wait_for_device,
+)
+from logger.calibration import Calibrator
+from logger.cli import main
+from logger.events.outside import OutsideWatch
+from logger.pipeline import Pipeline, Settings
+from logger.rig import RigError, load_rig, parse_rig
+from logger.sim.adc import Adc, AdcSpec
+from logger.sim.device import SimDevice
+from logger.sources.simulated import SimSource
+from logger.wire import DeviceHeader
+
+RIG_TEXT = """
+name = "cal-bench"
+[[channel]]
+name = "out_v"
+role = "volts"
+input = 0
+divider = 11.0
+nominal = 12.0
+"""
+RIG = parse_rig(RIG_TEXT, "<test rig>")
+LSB_V = 3.3 / 4096 * 11.0
+"""One count of the 12-bit, 3.3 V converter behind an 11:1 divider, in rail volts (FS / 2^N; common practice)."""
+
+
+class ReferenceBench:
+    """A rail held wherever the test sets it, read by a converter with a known offset, gain error and a
+    bow-shaped non-linearity (the errors a calibration has to take out)."""
+
+    channels = ("in0",)
+    adc_bits = 12
+    vref_mv = 3300
+    spec = AdcSpec(noise_lsb=0.8, inl_lsb=3.0, offset_lsb={"out_v": 7.0}, gain_error={"out_v": 0.004})
+
+    def __init__(self) -> None:
+        self.level_v = 1.0
+        self.adc = Adc(self.spec, RIG.channels, np.random.default_rng(11))
+
+    def counts(self, t_s: np.ndarray) -> np.ndarray:
+        return self.adc.counts(np.full((len(t_s), 1), self.level_v))
+
+    def true_code(self, volts: np.ndarray) -> np.ndarray:
+        """What the converter reads on average at these rail volts (its errors, no noise)."""
+        code = self.adc.ideal_codes(volts[:, None])[:, 0] * 1.004 + 7.0
+        u = code / 4096
+        return code + 3.0 * 4 * u * (1 - u)
+
+
+def _session(bench: ReferenceBench, answers: list[str]):
+    """Feeds scripted answers; a number also moves the rail there before the point is taken."""
+    said: list[str] = []
+
+    def ask(prompt: str) -> str:
+        said.append(prompt)
+        answer = answers.pop(0)
+        with contextlib.suppress(ValueError):
+            bench.level_v = float(answer)
+        return answer
+
+    return ask, said.append, said
+
+
+def _pipeline(bench: ReferenceBench) -> Pipeline:
+    device = SimDevice(bench, rate_hz=1000.0, seed=3)
+    pipeline = Pipeline(SimSource(device, speed=20.0), RIG, Settings(record_root=None))
+    pipeline.start()
+    return pipeline
+
+
+def test_five_points_from_a_nonlinear_adc_give_a_profile_good_to_half_an_lsb(tmp_path: Path) -> None:
+    """Round trip: the converter's bow is quadratic in the code, so the quadratic is recommended, and it
+    reads the true rail to within half an LSB over the whole span, where the rig's plain divider scaling
+    is several LSB out (offset 7 counts, gain 0.4 %)."""
+    bench = ReferenceBench()
+    pipeline = _pipeline(bench)
+    ask, say, said = _session(bench, ["1.0", "4.0", "7.0", "10.0", "13.0", ""])
+    try:
+        wait_for_device(pipeline)
+        points = collect_points(pipeline, RIG.channels[0], 0, CalOptions(samples=1000), ask, say)
+    finally:
+        pipeline.stop()
+    assert [p.reference for p in points] == [1.0, 4.0, 7.0, 10.0, 13.0]
+    path = fit_and_save(RIG, RIG.channels[0], points, CalOptions(out=tmp_path / "out_v.json"), say, 12, 3300)
+    profile = load_profile(path)
+    report = "".join(said)
+    assert profile.model == "quadratic", report
+    assert "recommended: quadratic" in report and report.count("point ") >= 5
+    volts = np.linspace(1.0, 13.0, 50)
+    codes = bench.true_code(volts)
+    assert np.max(np.abs(profile.value(codes) - volts)) < 0.5 * LSB_V
+    assert np.max(np.abs(codes * LSB_V - volts)) > 3 * LSB_V  # the uncalibrated scaling, for contrast
+    assert profile.adc_bits == 12 and profile.span_counts[0] == pytest.approx(points[0].counts)
+
+
+def test_an_unsettled_point_is_refused_with_its_numbers() -> None:
+    # A window's halves differ by 2 sd / sqrt(n) from white noise alone (standard error of a difference of
+    # two means: common practice, no source); four of those is allowed.
+    rng = np.random.default_rng(5)
+    quiet = 2000.0 + rng.normal(0, 1.0, 2000)
+    assert judge(quiet).settled
+    moving = quiet + np.linspace(0, 3.0, 2000)  # a slow creep of 3 counts, quieter than the noise
+    verdict = judge(moving)
+    assert not verdict.settled and "still moving" in verdict.why and verdict.drift == pytest.approx(1.5, abs=0.2)
+    noisy = 2000.0 + rng.normal(0, 9.0, 2000)
+    assert "too noisy: sd 9" in judge(noisy, max_sd=4.0).why
+    assert "end of the converter's range" in judge(np.full(100, 4095.0), full_scale=4095).why
+
+
+def test_gain_only_from_one_point_is_exact_there_and_keeps_the_zero(tmp_path: Path) -> None:
+    point = CalPoint(12.07, 1370.0, 1.1, 2000, u_reference=0.006)
+    curve = gain_only(point, offset_counts=4.0).curve
+    assert curve.value(1370.0) == pytest.approx(12.07) and curve.value(4.0) == pytest.approx(0.0)
+    assert curve.uncertainty(1370.0)[0] == pytest.approx(0.006)  # the reference's own, at the point
+    said: list[str] = []
+    path = one_point(RIG, RIG.channels[0], point, CalOptions(out=tmp_path / "q.json"), said.append)
+    profile = load_profile(path)
+    assert profile.model == "gain-only" and "not checked anywhere else" in profile.notes[0]
+    assert any("warning: gain-only" in s for s in said)
+
+
+def test_too_few_or_narrow_points_are_warned_about() -> None:
+    two = [CalPoint(5.0, 560.0), CalPoint(6.0, 672.0)]
+    a = assess(two, in_use=(0.0, 13.2), unit="V")
+    assert a.recommended == "line" and "quadratic" not in a.candidates
+    assert any("2 points" in w for w in a.warnings)
+    assert any("cover 5 to 6 V but the channel is used from 0 to 13.2 V" in w for w in a.warnings)
+    with pytest.raises(ValueError, match="at least 2 points"):
+        assess(two[:1])
+
+
+def test_a_straight_converter_gets_a_line(tmp_path: Path) -> None:
+    rng = np.random.default_rng(9)
+    counts = np.linspace(100, 4000, 7)
+    points = [CalPoint(0.0089 * c - 0.03 + rng.normal(0, 0.001), c, 1.0, 2000) for c in counts]
+    a = assess(points, unit="V")
+    assert a.recommended == "line", a.why
+
+
+def test_profile_round_trip_due_date_and_the_rig_naming_it(tmp_path: Path) -> None:
+    points = [CalPoint(v, v / LSB_V + 3, 1.0, 1000) for v in (1.0, 5.0, 9.0, 13.0)]
+    opts = CalOptions(out=tmp_path / "cal" / "out_v.json", reference_note="bench DMM, checked 2026-06",
+                      temperature_note="23 C")
+    path = fit_and_save(RIG, RIG.channels[0], points, opts, lambda s: None)
+    saved = load_profile(path)
+    assert saved.reference_note == "bench DMM, checked 2026-06" and saved.temperature_note == "23 C"
+    assert saved.curve.value(500.0) == pytest.approx(load_profile(path).curve.value(500.0))
+    rig_file = tmp_path / "rig.toml"
+    rig_file.write_text(RIG_TEXT + 'profile = "cal/out_v.json"\n')
+    rig = load_rig(rig_file)
+    assert rig.channels[0].profile is not None and rig.warnings() == []
+    past = (datetime.now(UTC) - timedelta(days=2)).date().isoformat()
+    doc = json.loads(path.read_text())
+    path.write_text(json.dumps({**doc, "due": past}))
+    assert "was due" in load_rig(rig_file).warnings()[0]
+    path.write_text(json.dumps({**doc, "channel": "out_a"}))
+    with pytest.raises(RigError, match="made for 'out_a'"):
+        load_rig(rig_file)
+    path.write_text("{not json")
+    with pytest.raises(RigError, match="not a calibration profile"):
+        load_rig(rig_file)
+
+
+def test_profile_is_applied_to_batches_and_outside_readings_are_flagged(tmp_path: Path) -> None:
+    points = [CalPoint(v, v / LSB_V + 3, 1.0, 1000) for v in (2.0, 6.0, 10.0, 13.0)]
+    path = fit_and_save(RIG, RIG.channels[0], points, CalOptions(out=tmp_path / "p.json", model="line"),
+                        lambda s: None, adc_bits=12, vref_mv=3300)
+    rig_file = tmp_path / "rig.toml"
+    rig_file.write_text(RIG_TEXT + f'profile = "{path.name}"\n')
+    rig = load_rig(rig_file)
+    cal = Calibrator(rig, DeviceHeader("t", "1", 12, 3300, 1000.0, ("in0",), "boot"))
+    counts = np.array([[3 + 1.0 / LSB_V], [3 + 7.0 / LSB_V], [3 + 14.0 / LSB_V]])
+    assert cal.apply(counts)[:, 0] == pytest.approx([1.0, 7.0, 14.0], abs=1e-3)
+    assert cal.outside(counts)[:, 0].tolist() == [True, False, True]
+    with pytest.raises(RigError, match="10-bit"):
+        Calibrator(rig, DeviceHeader("t", "1", 10, 3300, 1000.0, ("in0",), "boot"))
+
+
+def test_outside_watch_makes_one_event_per_excursion() -> None:
+    watch = OutsideWatch(("out_v",), {0: (2.0, 13.0)}, ("V",), merge_s=1.0)
+    t = 1_800_000_000_000_000 + np.arange(0, 10_000_000, 1000)  # 10 s at 1 kHz
+    v = np.full(len(t), 12.0)
+    v[2000:2100] = 13.5  # 2.0-2.1 s
+    v[2500:2600] = 13.8  # 0.4 s later: the same excursion
+    v[6000:6200] = 1.0  # 6.0-6.2 s: another
+    outside = ((v < 2.0) | (v > 13.0))[:, None]
+    events = []
+    for part in np.array_split(np.arange(len(t)), 13):
+        events += watch.feed(t[part], outside[part], v[part, None])
+    events += watch.finish()
+    assert [(e.kind, e.value) for e in events] == [("outside_cal", 13.8), ("outside_cal", 1.0)]
+    assert events[0].start_us == t[2000] and events[0].end_us == t[2599]
+    assert "outside the calibrated 2 to 13 V" in events[0].detail
+
+
+def test_csv_points_and_their_errors(tmp_path: Path, capsys) -> None:
+    good = tmp_path / "points.csv"
+    good.write_text("reference,counts,counts_sd\n0.5,60,1\n4,452,1\n8,900,1.2\n12,1350,1\n")
+    assert [p.counts for p in points_from_csv(good)] == [60, 452, 900, 1350]
+    rig_file = tmp_path / "rig.toml"
+    rig_file.write_text(RIG_TEXT)
+    assert main(["cal", "out_v", "--rig", str(rig_file), "--csv", str(good)]) == 0
+    assert (tmp_path / "cal" / "out_v.json").exists()
+    assert "recommended:" in capsys.readouterr().err
+    bad = tmp_path / "bad.csv"
+    bad.write_text("volts,raw\n1,2\n")
+    with pytest.raises(CalError, match="reference,counts"):
+        points_from_csv(bad)
+    bad.write_text("reference,counts\n1,two\n")
+    with pytest.raises(CalError, match="line 2"):
+        points_from_csv(bad)
+    assert main(["cal", "out_x", "--rig", str(rig_file), "--csv", str(good)]) == 2
+    with pytest.raises(ProfileError, match="no such calibration profile"):
+        load_profile(tmp_path / "missing.json")
+    save_profile(load_profile(tmp_path / "cal" / "out_v.json"), tmp_path / "copy.json")
