@@ -11,6 +11,7 @@ from __future__ import annotations
 import numpy as np
 
 from logger.cal.assess import Curve
+from logger.cal.profile import Profile
 from logger.rig import Rig, RigError
 from logger.wire.frames import DeviceHeader, FrameBatch
 
@@ -33,14 +34,18 @@ class Calibrator:
         self.full_scale = (1 << header.adc_bits) - 1
         self.curves: dict[int, Curve] = {}
         self.spans = np.array([(-np.inf, np.inf)] * len(rig.channels))
+        self.adc_bits = header.adc_bits
         for k, ch in enumerate(rig.channels):
-            if ch.profile is None:
-                continue
-            if ch.profile.adc_bits is not None and ch.profile.adc_bits != header.adc_bits:
-                raise RigError(f"{ch.profile_path}: made with a {ch.profile.adc_bits}-bit converter, but the device "
-                               f"sends {header.adc_bits}-bit counts; calibrate {ch.name} again on this device")
-            self.curves[k] = ch.profile.curve
-            self.spans[k] = ch.profile.span_counts
+            if ch.profile is not None:
+                self.use(k, ch.profile, ch.profile_path)
+
+    def use(self, k: int, profile: Profile, where: str | None = None) -> None:
+        """Calibrate channel ``k`` with a profile's curve; flag readings outside its span."""
+        if profile.adc_bits is not None and profile.adc_bits != self.adc_bits:
+            raise RigError(f"{where or 'profile'}: made with a {profile.adc_bits}-bit converter, but the device "
+                           f"sends {self.adc_bits}-bit counts; calibrate {profile.channel} again on this device")
+        self.curves[k] = profile.curve
+        self.spans[k] = profile.span_counts
 
     def apply(self, counts: np.ndarray) -> np.ndarray:
         """Calibrated values, float32, shape (frames, rig channels)."""

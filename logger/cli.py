@@ -447,9 +447,10 @@ def status_line(snap: Snapshot) -> str:
     parts = [time.strftime("%H:%M:%S")]
     if snap.latest is not None:
         limits = snap.at_limit or (False,) * len(snap.channels)
+        outside = snap.outside_cal or (False,) * len(snap.channels)
         parts.append("  ".join(
-            f"{n} {v:8.3f} {u}{' (at ADC limit)' if at else ''}"
-            for n, v, u, at in zip(snap.channels, snap.latest, snap.units, limits, strict=True)
+            f"{n} {v:8.3f} {u}{' (at ADC limit)' if at else ' (outside cal span)' if out else ''}"
+            for n, v, u, at, out in zip(snap.channels, snap.latest, snap.units, limits, outside, strict=True)
         ))
     link = snap.link
     parts.append(f"{link.rate_hz:6.0f} frames/s, lost {link.lost}, rejected {link.rejected}")

@@ -16,6 +16,7 @@ from typing import Any
 
 import numpy as np
 
+from logger.cal.profile import Profile
 from logger.calibration import Calibrator, stand_in_header
 from logger.clock import ClockFit, Unwrapper
 from logger.events import Event, EventDetector
@@ -106,6 +107,7 @@ class Pipeline:
         self._outside: tuple[bool, ...] = ()
         self.outside_watch: OutsideWatch | None = None
         self._zero_requests: deque[str] = deque()
+        self._profile_requests: deque[tuple[str, Profile]] = deque()
         self.totals = Totals(rig.power_pairs())
         self._first_us: int | None = None
         self._last_us: int | None = None
@@ -175,6 +177,8 @@ class Pipeline:
             return False
         if self._record_requests:
             self._switch_recording()
+        if self._profile_requests and self.calibrator is not None:
+            self._apply_profiles()
         if chunk.data:
             self._take(chunk)
         if self._held_bytes >= 65536 or time.monotonic() - self._fed_at >= self.settings.batch_s:
@@ -293,6 +297,18 @@ class Pipeline:
                 self._note(self.outside_watch.feed(utc, outside, values))
         if self.recorder is not None:
             self.recorder.add_batch(sample_batch(self._schema, utc, device_us, seq, values, counts))
+
+    def _apply_profiles(self) -> None:
+        while self._profile_requests:
+            name, profile = self._profile_requests.popleft()
+            try:
+                self.calibrator.use(self._names.index(name), profile)
+            except RigError as exc:
+                self.message = str(exc)
+                continue
+            self._watch_spans()
+            self.events.add(Event("mark", self._now_us(), channel=name,
+                                  detail=f"calibration applied: {profile.model}, {len(profile.points)} points"))
 
     def _watch_spans(self) -> None:
         """Flag readings outside the calibrated span of every channel that has a profile."""
@@ -534,6 +550,12 @@ class Pipeline:
         if self.rig.channel(channel).role != "amps":
             raise ValueError(f"{channel} is not an amps channel; only current channels are zeroed")
         self._zero_requests.append(channel)
+
+    def use_profile(self, channel: str, profile: Profile) -> None:
+        """Calibrate ``channel`` with ``profile`` from the next batch on (noted in the event list); raw counts
+        are kept, so a recording can be calibrated again afterwards whatever was used live."""
+        self.rig.channel(channel)
+        self._profile_requests.append((channel, profile))
 
     def reset_minmax(self) -> None:
         """Forget min/max and start the charge and energy counters again from zero."""

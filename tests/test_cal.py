@@ -236,3 +236,55 @@ def test_csv_points_and_their_errors(tmp_path: Path, capsys) -> None:
     with pytest.raises(ProfileError, match="no such calibration profile"):
         load_profile(tmp_path / "missing.json")
     save_profile(load_profile(tmp_path / "cal" / "out_v.json"), tmp_path / "copy.json")
+
+
+def test_calibration_panel_on_the_live_screen(tmp_path: Path, monkeypatch) -> None:
+    """k opens the panel for the trend's channel; three typed references become settled points while the
+    screen runs; ctrl+s saves the profile beside the rig and applies it to the live readings."""
+    import asyncio
+
+    from textual.widgets import Input
+
+    from logger.tui import RailtapApp
+    from logger.tui.calpanel import CalPanel
+
+    monkeypatch.chdir(tmp_path)
+    bench = ReferenceBench()
+    pipeline = _pipeline(bench)
+
+    async def run() -> None:
+        app = RailtapApp(pipeline)
+        async with app.run_test(size=(100, 30)) as pilot:
+            app.simulate_key("k")
+            await pilot.pause(0.1)
+            panel = app.query_one(CalPanel)
+            field = panel.query_one(Input)
+            assert panel.has_class("-open") and field.has_focus
+            for n, volts in enumerate((2.0, 7.0, 12.0), start=1):
+                bench.level_v = volts
+                field.value = str(volts)
+                app.simulate_key("enter")
+                for _ in range(300):
+                    await pilot.pause(0.05)
+                    if len(panel.points) == n:
+                        break
+                assert len(panel.points) == n
+            app.simulate_key("ctrl+s")
+            await pilot.pause(0.1)
+            for _ in range(100):
+                await pilot.pause(0.05)
+                if 0 in pipeline.calibrator.curves:
+                    break
+            assert 0 in pipeline.calibrator.curves
+            app.simulate_key("escape")
+            await pilot.pause(0.1)
+            assert not panel.has_class("-open")
+            pipeline.request_stop()
+
+    try:
+        asyncio.run(run())
+    finally:
+        pipeline.stop()
+    profile = load_profile(tmp_path / "cal" / "out_v.json")
+    assert [p.reference for p in profile.points] == [2.0, 7.0, 12.0]
+    assert any(e.detail.startswith("calibration applied") for e in pipeline.events.recent(20))

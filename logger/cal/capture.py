@@ -18,8 +18,10 @@ import numpy as np
 from logger.live import Ring
 
 DEFAULT_SAMPLES = 2000
-DEFAULT_MAX_SD = 4.0
-"""Counts; a 12-bit converter on a quiet tap is usually within one or two."""
+DEFAULT_MAX_SD = 25.0
+"""Counts. Ripple on a rail makes the spread wide without making the mean unsure (a window holds many
+ripple cycles), so this only stops a point taken on a badly noisy or oscillating tap; the drift test
+is what waits for the rail to settle."""
 
 
 @dataclass(frozen=True)

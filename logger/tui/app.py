@@ -2,8 +2,9 @@
 
 Keys: ``p`` pauses the display (ingest and recording go on), ``r`` resets min/max, ``m`` adds a mark with a
 note, ``s`` changes the trend's span, ``c`` its channel, ``b`` toggles the bell, ``z`` zeroes a current channel,
-``w`` stops recording (sealing the run) or starts a new run, ``q``, ``ctrl+q`` or ``ctrl+c``
-stops the run cleanly (the parts are sealed in a worker thread while the screen says so) and leaves.
+``w`` stops recording (sealing the run) or starts a new run, ``k`` opens the calibration panel; ``q``,
+``ctrl+q`` or ``ctrl+c`` stops the run cleanly (the parts are sealed in a worker thread while the screen
+says so) and leaves.
 """
 
 from __future__ import annotations
@@ -22,6 +23,7 @@ from textual.worker import get_current_worker
 
 from logger.pipeline import Pipeline
 from logger.tui.banner import Banner
+from logger.tui.calpanel import CalPanel
 from logger.tui.channels import shown_channels
 from logger.tui.events_table import EventDetail, EventTable
 from logger.tui.history import TrendHistory
@@ -57,6 +59,7 @@ class RailtapApp(App[str]):
         Binding("b", "bell", "bell"),
         Binding("z", "zero", "zero"),
         Binding("w", "record", "record"),
+        Binding("k", "calibrate", "calibrate"),
         Binding("q", "quit", "quit"),
         Binding("ctrl+q", "quit", "quit", show=False, priority=True),
         Binding("ctrl+c", "quit", "quit", show=False),
@@ -80,7 +83,8 @@ class RailtapApp(App[str]):
                 yield EventDetail(id="detail")
             yield StatusPanel(id="status")
         yield MarkInput(id="mark")
-        yield Footer()
+        yield CalPanel(self.pipeline, id="cal")
+        yield Footer(compact=True)
 
     def on_mount(self) -> None:
         self._polls = 0
@@ -107,6 +111,7 @@ class RailtapApp(App[str]):
         if banner.show(snap, fresh):
             self.bell()
         self.query_one(StatusPanel).show(snap)
+        self.query_one(CalPanel).poll()
         if not self.paused:
             self.query_one(Readouts).show(snap)
             self._polls += 1
@@ -172,6 +177,12 @@ class RailtapApp(App[str]):
             self.notify(str(exc), severity="warning", timeout=3)
             return
         self.notify("recording to a new run folder" if on else "recording stopped; sealing the run", timeout=3)
+
+    def action_calibrate(self) -> None:
+        """Take calibration points for the channel the trend shows (or the first), with the screen running."""
+        trend = self.query_one(Trend)
+        measured = len(self.pipeline.rig.channels)
+        self.query_one(CalPanel).open(trend.channel if trend.channel < measured else 0)
 
     def action_bell(self) -> None:
         banner = self.query_one(Banner)

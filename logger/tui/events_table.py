@@ -13,6 +13,7 @@ from logger.tui.fmt import duration_text, event_details, local_time
 
 ALERT_KINDS = ("brownout", "dropout", "overvoltage", "overcurrent", "flicker")
 LINK_KINDS = ("frame_gap", "crc_burst", "link_lost", "device_reset")
+QUALITY_KINDS = ("outside_cal",)
 
 
 class EventTable(DataTable):
@@ -94,6 +95,6 @@ class EventDetail(Static):
 def _kind(kind: str) -> Text:
     if kind in ALERT_KINDS:
         return Text(kind, style="bold red")
-    if kind in LINK_KINDS:
+    if kind in LINK_KINDS or kind in QUALITY_KINDS:
         return Text(kind, style="yellow")
     return Text(kind, style="cyan" if kind == "mark" else "")

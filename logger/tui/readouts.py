@@ -36,6 +36,7 @@ class Readout(Widget):
     Readout .range { height: 1; color: $text-muted; text-align: center; }
     Readout.-paused { border: round $warning; }
     Readout.-at-limit { border: round $error; }
+    Readout.-outside { border: round $warning; }
     Readout.-stale { border: dashed $warning; }
     Readout.-stale Digits { color: $text-disabled; }
     Readout.-stale .plain { color: $text-disabled; }
@@ -61,7 +62,8 @@ class Readout(Widget):
         yield Static("-.-- .. -.--", classes="range")
 
     def on_resize(self) -> None:
-        self.set_class(self.content_size.width < DIGITS_MIN_WIDTH, "-compact")
+        if isinstance(self.parent, Readouts):
+            self.parent.fit_digits()
 
     def show(self, value: float | None, low: float | None, high: float | None) -> None:
         """Show a value and its range since reset (None where not known yet)."""
@@ -77,14 +79,16 @@ class Readout(Widget):
                                                     layout=False)
 
 
-    def mark(self, *, at_limit: bool = False, stale: bool = False) -> None:
-        """Flag a reading at the end of the ADC's range (the true value may lie beyond what is shown), or
-        one that is stale because no samples are coming (the last value stays, greyed)."""
-        if (at_limit, stale) == (self.has_class("-at-limit"), self.has_class("-stale")):
+    def mark(self, *, at_limit: bool = False, stale: bool = False, outside: bool = False) -> None:
+        """Flag a reading at the end of the ADC's range (the true value may lie beyond what is shown), one
+        outside its calibrated span (extrapolated), or one that is stale because no samples are coming (the
+        last value stays, greyed)."""
+        flags = {"-at-limit": at_limit, "-stale": stale, "-outside": outside}
+        if all(self.has_class(name) == on for name, on in flags.items()):
             return
-        self.set_class(at_limit, "-at-limit")
-        self.set_class(stale, "-stale")
-        note = "no data" if stale else "at ADC limit" if at_limit else ""
+        for name, on in flags.items():
+            self.set_class(on, name)
+        note = "no data" if stale else "at ADC limit" if at_limit else "outside cal span" if outside else ""
         self.border_title = f"{self.channel_name} ({note})" if note else self.channel_name
 
     def show_totals(self, charge_ah: float, energy_wh: float) -> None:
@@ -116,6 +120,13 @@ class Readouts(Horizontal):
         for name, unit in zip(self.history.shown.names, self.history.shown.units, strict=True):
             yield Readout(name, unit)
 
+    def fit_digits(self) -> None:
+        """Big digits on every card, or on none: a row of mixed sizes is hard to read across."""
+        cards = list(self.query(Readout))
+        narrow = min(card.content_size.width for card in cards) < DIGITS_MIN_WIDTH
+        for card in cards:
+            card.set_class(narrow, "-compact")
+
     def show(self, snap: Snapshot) -> None:
         """Update every card from a snapshot (and the power min/max the history keeps)."""
         shown = self.history.shown
@@ -124,7 +135,8 @@ class Readouts(Horizontal):
         stale = latest is not None and snap.state != "running"
         for k in range(shown.measured):
             cards[k].show(_at(latest, k), _at(snap.minimum, k), _at(snap.maximum, k))
-            cards[k].mark(at_limit=k < len(snap.at_limit) and snap.at_limit[k], stale=stale)
+            cards[k].mark(at_limit=k < len(snap.at_limit) and snap.at_limit[k], stale=stale,
+                          outside=k < len(snap.outside_cal) and snap.outside_cal[k])
         for k, pair in enumerate(shown.pairs):
             power = None if latest is None else float(latest[pair.volts] * latest[pair.amps])
             card = cards[shown.measured + k]
