@@ -17,7 +17,7 @@ from logger.plan.values import PlanError, format_value, parse_value, positive
 _NAME = re.compile(r"[a-z][a-z0-9_]{0,23}")
 """Channel names the rig file accepts."""
 
-_VALUES = "values take SI prefixes and resistor codes: 10k, 4k7, 1M, 0.01, 100m (milli), 250u (micro)"
+_VALUES = "Values take SI prefixes and resistor codes: 10k, 4k7, 1M, 0.01, 100m (milli), 250u (micro)"
 
 
 def add_plan_command(sub: argparse._SubParsersAction) -> None:
@@ -82,7 +82,8 @@ def _zener_parser(actions: argparse._SubParsersAction) -> None:
     p = actions.add_parser("zener", help="series resistor of a Zener feed for a meter powered from the rail",
                            description="Size the series resistor of a Zener shunt regulator feeding a panel meter "
                                        f"from a rail above what its regulator tolerates. {_VALUES}.")
-    p.add_argument("--vin-min", required=True, metavar="V", help="lowest rail voltage the meter must run at, volts")
+    p.add_argument("--vin-min", required=True, metavar="V",
+                   help="lowest rail voltage at which the Zener must still regulate, volts")
     p.add_argument("--vin-max", required=True, metavar="V", help="highest rail voltage, volts")
     p.add_argument("--vz", required=True, metavar="V", help="Zener voltage, volts (e.g. 12)")
     p.add_argument("--meter-a", required=True, metavar="A", help="the meter's current while it runs, amps (e.g. 10m)")
@@ -97,7 +98,7 @@ def _zener_parser(actions: argparse._SubParsersAction) -> None:
     p.add_argument("--resistor-ohm", metavar="OHM", help="check this series resistor instead of choosing one")
     p.add_argument("--resistor-w", metavar="W", help="the series resistor's power rating, watts")
     _derate_option(p)
-    _adc_options(p, bits_help=" (for the meter node's divider in the rig-file lines)")
+    _adc_options(p, bits_help="; used for the meter node's divider in the rig-file lines")
     _rig_options(p, "meter_v", 2, None, "")
     p.set_defaults(run=run_zener)
 

@@ -6,9 +6,10 @@ from __future__ import annotations
 from logger.plan import series
 from logger.plan.divider import DividerSpec, choose_pair, pair_text
 from logger.plan.report import Report, channel_header, device_comment
-from logger.plan.values import format_value, toml_float
+from logger.plan.values import PlanError, format_value, toml_float
 from logger.plan.zener import (
     Feed,
+    ZenerSpec,
     iz_max_a,
     largest_ohm,
     nominal_ohm,
@@ -23,42 +24,60 @@ from logger.plan.zener import (
 def report(feed: Feed, name: str = "meter_v", input_index: int = 2, vref_v: float = 3.3, bits: int = 12) -> Report:
     """The feed plan as printed: limits, the choice, dissipations, the trade-off and rig-file lines."""
     s = feed.spec
-    low, high, derated = window(s)
-    rail = (format_value(s.vin_max_v, 'V') if s.vin_min_v == s.vin_max_v
+    rail = (format_value(s.vin_max_v, "V") if s.vin_min_v == s.vin_max_v
             else f"{format_value(s.vin_min_v, 'V')} to {format_value(s.vin_max_v, 'V')}")
     rep = Report(f"Zener feed for a meter on a {rail} rail: {format_value(s.vz_v, 'V')} {format_value(s.pz_w, 'W')} "
                  f"Zener, meter drawing {format_value(s.meter_a, 'A')}")
-    least = "disconnected" if s.meter_off_a == 0 else f"drawing {format_value(s.meter_off_a, 'A')}"
+    _limits(rep, s)
+    _choice(rep, feed)
+    _trade_off(rep, feed)
+    rep.warnings += warnings(feed)
+    _rig_lines(rep, feed, name, input_index, vref_v, bits)
+    return rep
+
+
+def _least(s: ZenerSpec) -> str:
+    return "disconnected" if s.meter_off_a == 0 else f"drawing {format_value(s.meter_off_a, 'A')}"
+
+
+def _limits(rep: Report, s: ZenerSpec) -> None:
+    """Rows for the two design limits, the derated one and the nominal between them."""
     rep.row("Zener's largest current", f"{format_value(iz_max_a(s), 'A')} ({format_value(s.pz_w, 'W')} / "
                                        f"{format_value(s.vz_v, 'V')})")
     rep.row("smallest resistor", f"{format_value(smallest_ohm(s), 'ohm')} (Zener at its full rating at "
-                                 f"{format_value(s.vin_max_v, 'V')}, meter {least})")
+                                 f"{format_value(s.vin_max_v, 'V')}, meter {_least(s)})")
     rep.row("smallest, derated", f"{format_value(smallest_ohm(s, s.derate), 'ohm')} (Zener at "
                                  f"{s.derate * 100:.0f} % of its rating)")
     rep.row("largest resistor", f"{format_value(largest_ohm(s), 'ohm')} (Zener keeps {format_value(s.iz_min_a, 'A')} "
                                 f"with the meter running at {format_value(s.vin_min_v, 'V')})")
+    try:
+        low, high, derated = window(s)
+    except PlanError as exc:
+        rep.warnings.append(str(exc).split(": ", 1)[1])
+        return
     rep.row("nominal", f"{format_value(nominal_ohm(s), 'ohm')} (middle of {format_value(low, 'ohm')} .. "
                        f"{format_value(high, 'ohm')} on a log scale)")
-    rep.row("chosen" if feed.chosen else "given", f"{format_value(feed.r_ohm, 'ohm')}"
-                                                  f"{f' ({s.series})' if feed.chosen else ''}")
+    if not derated:
+        rep.notes.append(f"no resistor keeps the Zener within {s.derate * 100:.0f} % of its rating and regulating "
+                         f"at {format_value(s.vin_min_v, 'V')}; a Zener rated "
+                         f"{format_value(zener_needed_w(s) / s.derate, 'W')} or more would")
+
+
+def _choice(rep: Report, feed: Feed) -> None:
+    """Rows for the chosen (or given) resistor: dissipations and how low an input it still works from."""
+    s = feed.spec
+    rep.row("chosen" if feed.chosen else "given",
+            format_value(feed.r_ohm, "ohm") + (f" ({s.series})" if feed.chosen else ""))
     rep.row(f"resistor at {format_value(s.vin_max_v, 'V')}",
             f"{format_value(feed.resistor_w, 'W')}: needs a {size_text(feed.resistor_w / s.derate)} part to stay "
             f"within {s.derate * 100:.0f} % of its rating")
     rep.row(f"Zener at {format_value(s.vin_max_v, 'V')}",
-            f"{format_value(feed.zener_worst_w, 'W')} meter {least} ({100 * feed.zener_worst_w / s.pz_w:.0f} % "
+            f"{format_value(feed.zener_worst_w, 'W')} meter {_least(s)} ({100 * feed.zener_worst_w / s.pz_w:.0f} % "
             f"of rating), {format_value(feed.zener_running_w, 'W')} meter running")
     rep.row("regulates down to", f"{format_value(feed.regulates_to_v, 'V')} input")
     floor = (f"meter at {format_value(s.meter_min_v, 'V')}" if s.meter_min_v is not None
              else "meter needing the full Zener voltage; --meter-min-v gives its real floor")
     rep.row("meter runs down to", f"{format_value(feed.meter_runs_to_v, 'V')} input ({floor})")
-    _trade_off(rep, feed)
-    rep.warnings += warnings(feed)
-    if not derated:
-        rep.notes.append(f"no resistor keeps the Zener within {s.derate * 100:.0f} % of its rating and regulating "
-                         f"at {format_value(s.vin_min_v, 'V')}; a Zener rated "
-                         f"{format_value(zener_needed_w(s) / s.derate, 'W')} or more would")
-    _rig_lines(rep, feed, name, input_index, vref_v, bits)
-    return rep
 
 
 def _trade_off(rep: Report, feed: Feed) -> None:
