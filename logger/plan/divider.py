@@ -25,7 +25,7 @@ import numpy as np
 
 from logger.plan import series
 from logger.plan.report import Report, channel_header, device_comment
-from logger.plan.values import PlanError, format_value, percent, short_ohms, toml_float
+from logger.plan.values import PlanError, exceeds, format_value, percent, short_ohms, toml_float
 
 RATIO_WEIGHT = {"E12": 0.05, "E24": 0.05, "E96": 0.01}
 """Ratio error that costs as much as doubling the divider's resistance: 5 % of the range is under a tenth of a
@@ -179,22 +179,22 @@ def warnings(d: Divider) -> list[str]:
     """Lines for what would clip, break or burn with this pair."""
     s, over = d.spec, d.spec.overvoltage_v
     out = []
-    if d.pin_v(s.max_v) > s.vref_v:
+    if exceeds(d.pin_v(s.max_v), s.vref_v):
         out.append(f"at {format_value(s.max_v, 'V')} (--max-v) the pin sees {format_value(d.pin_v(s.max_v), 'V')}, "
                    f"past the ADC's {format_value(s.vref_v, 'V')} full scale: readings clip below "
                    f"{format_value(s.vref_v * d.ratio, 'V')}; use a higher ratio")
-    if d.pin_v(over) > s.pin_rating_v:
+    if exceeds(d.pin_v(over), s.pin_rating_v):
         clamp_a = (d.pin_v(over) - s.pin_rating_v) / d.source_ohm
         out.append(f"at {format_value(over, 'V')} (--over-v) the pin sees {format_value(d.pin_v(over), 'V')}, above "
                    f"its {format_value(s.pin_rating_v, 'V')} rating (--pin-max-v); clamp it (Schottky diode to the "
                    f"ADC supply, or a Zener), which would then carry about {format_value(clamp_a, 'A')}")
     top_v = over - d.pin_v(over)
-    if top_v > s.resistor_v:
+    if exceeds(top_v, s.resistor_v):
         out.append(f"R_top has {format_value(top_v, 'V')} across it at {format_value(over, 'V')}, above its "
                    f"{format_value(s.resistor_v, 'V')} working voltage (--resistor-v); use two or more in series "
                    "or a part rated higher")
     for name, watts in zip(("R_top", "R_bottom"), d.power_w(over), strict=True):
-        if watts > s.derate * s.resistor_w:
+        if exceeds(watts, s.derate * s.resistor_w):
             out.append(f"{name} dissipates {format_value(watts, 'W')} at {format_value(over, 'V')}, above "
                        f"{s.derate * 100:.0f} % of its {format_value(s.resistor_w, 'W')} rating "
                        "(--resistor-w, --derate-pct); use a bigger part or draw less (--draw-a)")

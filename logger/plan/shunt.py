@@ -11,7 +11,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 from logger.plan.report import Report, channel_header, device_comment
-from logger.plan.values import format_value, toml_float
+from logger.plan.values import exceeds, format_value, toml_float
 
 
 @dataclass(frozen=True)
@@ -81,14 +81,14 @@ def warnings(sh: Shunt) -> list[str]:
     """Lines for what would clip or overheat."""
     s = sh.spec
     out = []
-    if s.max_a is not None and s.max_a > sh.full_scale_a:
+    if s.max_a is not None and exceeds(s.max_a, sh.full_scale_a):
         out.append(f"{format_value(s.max_a, 'A')} (--max-a) is past full scale ({format_value(sh.full_scale_a, 'A')}):"
                    f" readings clip; use a gain of {sh.best_gain:.3g} or less, or a smaller shunt")
-    if s.rated_a is not None and s.max_a is not None and s.max_a > s.rated_a:
+    if s.rated_a is not None and s.max_a is not None and exceeds(s.max_a, s.rated_a):
         out.append(f"{format_value(s.max_a, 'A')} (--max-a) is above the shunt's rated "
                    f"{format_value(s.rated_a, 'A')}; it will run hot and drift: use a bigger shunt")
     worst_a = s.max_a if s.max_a is not None else sh.full_scale_a
-    if s.shunt_w is not None and sh.power_w(worst_a) > s.derate * s.shunt_w:
+    if s.shunt_w is not None and exceeds(sh.power_w(worst_a), s.derate * s.shunt_w):
         out.append(f"the shunt dissipates {format_value(sh.power_w(worst_a), 'W')} at {format_value(worst_a, 'A')}, "
                    f"above {s.derate * 100:.0f} % of its {format_value(s.shunt_w, 'W')} rating "
                    "(--shunt-w, --derate-pct); use a bigger part or a smaller resistance")

@@ -82,6 +82,11 @@ def positive(value: float, option: str, what: str) -> float:
     return value
 
 
+def exceeds(value: float, limit: float) -> bool:
+    """``value`` above ``limit`` by more than rounding: a pair designed to sit exactly at a limit is no fault."""
+    return value > limit * (1 + 1e-9)
+
+
 def format_value(value: float, unit: str, digits: int = 3) -> str:
     """``value`` to ``digits`` significant figures with an SI prefix: ``806 uV``, ``1.53 kohm``, ``0 W``.
 

@@ -29,7 +29,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from logger.plan import series
-from logger.plan.values import PlanError, format_value
+from logger.plan.values import PlanError, exceeds, format_value
 
 RESISTOR_SIZES_W = (0.125, 0.25, 0.5, 1.0, 2.0, 3.0, 5.0, 10.0)
 """Common resistor power ratings, for saying which size a dissipation needs."""
@@ -196,21 +196,21 @@ def warnings(feed: Feed) -> list[str]:
     s, r = feed.spec, format_value(feed.r_ohm, "ohm")
     at_top = f"at {format_value(s.vin_max_v, 'V')} with the meter disconnected"
     out = []
-    if feed.zener_worst_w > s.pz_w:
+    if exceeds(feed.zener_worst_w, s.pz_w):
         out.append(f"with {r} the Zener dissipates {format_value(feed.zener_worst_w, 'W')} {at_top}, above its "
                    f"{format_value(s.pz_w, 'W')} rating: it will fail; use {format_value(smallest_ohm(s), 'ohm')} "
                    "or more, or a bigger Zener (--pz-w)")
-    elif feed.zener_worst_w > s.derate * s.pz_w:
+    elif exceeds(feed.zener_worst_w, s.derate * s.pz_w):
         out.append(f"with {r} the Zener runs at {100 * feed.zener_worst_w / s.pz_w:.0f} % of its "
                    f"{format_value(s.pz_w, 'W')} rating {at_top}, above the {s.derate * 100:.0f} % derating "
                    f"(--derate-pct); a Zener rated {format_value(feed.zener_worst_w / s.derate, 'W')} or more "
                    "keeps the margin")
-    if s.resistor_w is not None and feed.resistor_w > s.derate * s.resistor_w:
+    if s.resistor_w is not None and exceeds(feed.resistor_w, s.derate * s.resistor_w):
         out.append(f"the resistor dissipates {format_value(feed.resistor_w, 'W')} at "
                    f"{format_value(s.vin_max_v, 'V')}, above {s.derate * 100:.0f} % of its "
                    f"{format_value(s.resistor_w, 'W')} rating (--resistor-w); use a "
                    f"{size_text(feed.resistor_w / s.derate)} part")
-    if feed.regulates_to_v > s.vin_min_v * (1 + 1e-9):
+    if exceeds(feed.regulates_to_v, s.vin_min_v):
         out.append(f"with {r} the Zener stops regulating below {format_value(feed.regulates_to_v, 'V')}, above "
                    f"the lowest input {format_value(s.vin_min_v, 'V')} (--vin-min); use "
                    f"{format_value(largest_ohm(s), 'ohm')} or less")
