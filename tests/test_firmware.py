@@ -59,6 +59,8 @@ def _make(build: Path, *targets: str, **settings: str) -> None:
     done = subprocess.run(args, capture_output=True, text=True, timeout=BUILD_TIMEOUT_S)
     if done.returncode and "avr/io.h" in done.stderr:
         pytest.skip("avr-libc headers not found: install the Debian package avr-libc (apt-get install avr-libc)")
+    if done.returncode and "stdio.h" in done.stderr:
+        pytest.skip("C library headers not found: install the Debian package libc6-dev (apt-get install libc6-dev)")
     assert done.returncode == 0, f"make {' '.join(targets)} failed:\n{done.stdout}{done.stderr}"
 
 
