@@ -88,6 +88,7 @@ def test_values_print_with_prefixes() -> None:
     assert format_value(1533.33, "ohm") == "1.53 kohm"
     assert format_value(0.01, "ohm") == "0.01 ohm"
     assert format_value(999.7, "ohm") == "1 kohm"
+    assert format_value(1.18e-20, "A") == "1.18e-20 A"
 
 
 # -- ADC step and divider ----------------------------------------------------------------------------
@@ -256,6 +257,12 @@ def _run(argv: list[str]) -> int:
     return args.run(args)
 
 
+def test_divider_command_checks_a_pair_typed_as_resistor_codes(capsys) -> None:
+    assert _run(["plan", "divider", "--max-v", "48", "--r-top", "150k", "--r-bottom", "4k7"]) == 0
+    out = capsys.readouterr().out
+    assert "150 kohm (as given)" in out and "4.7 kohm (as given)" in out and "warning:" not in out
+
+
 def test_divider_command_prints_plan_and_valid_rig_lines(capsys) -> None:
     assert _run(["plan", "divider", "--max-v", "60", "--nominal", "48", "--name", "bus_v", "--input", "3"]) == 0
     out = capsys.readouterr().out
@@ -278,6 +285,13 @@ def test_shunt_and_zener_commands_write_rig_lines_that_read_back(capsys) -> None
                  "--meter-min-v", "4.5", "--rig-only"]) == 0
     node = parse_rig('name = "t"\n' + capsys.readouterr().out).channel("meter_v")
     assert node.role == "aux" and node.nominal == 12.0 and node.low == 4.5 and node.divider > 35.0 / 3.3
+    assert _run(["plan", "zener", "--vin-min", "35", "--vin-max", "35", "--vz", "12", "--meter-a", "10m",
+                 "--resistor-ohm", "1k"]) == 0
+    out = capsys.readouterr().out
+    assert "given                    1 kohm" in out and "529 mW" in out and SELV_LINE in out
+    assert _run(["plan", "shunt", "--shunt-ohm", "10m", "--gain", "50"]) == 0
+    out = capsys.readouterr().out
+    assert "6.6 A" in out and "1.61 mA" in out and SELV_LINE in out
 
 
 @pytest.mark.parametrize(("argv", "start"), [

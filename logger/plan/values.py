@@ -95,6 +95,8 @@ def format_value(value: float, unit: str, digits: int = 3) -> str:
     if value == 0 or not math.isfinite(value):
         return f"{value:g} {unit}".rstrip()
     rounded = float(f"{value:.{digits}g}")
+    if abs(rounded) < 1e-12:
+        return f"{rounded:.{digits}g} {unit}".rstrip()
     if unit == "ohm" and abs(rounded) < 1:
         return f"{np.format_float_positional(rounded, trim='-')} ohm"
     scale, prefix = next(((s, p) for s, p in _OUT_PREFIXES if abs(rounded) >= s), _OUT_PREFIXES[-1])
