@@ -107,6 +107,12 @@ def _parser() -> argparse.ArgumentParser:
                      help="standard uncertainty of the reference readings, in the channel's unit, if known")
     cal.set_defaults(run=cmd_cal)
 
+    recal = sub.add_parser("recal", help="calibrate a recorded run again from its raw counts with new profiles")
+    recal.add_argument("folder", type=Path, metavar="RUN", help="the run folder")
+    recal.add_argument("--profile", type=Path, action="append", required=True, metavar="FILE",
+                       help="a calibration profile (repeat for more channels); its channel is named inside it")
+    recal.set_defaults(run=cmd_recal)
+
     ports = sub.add_parser("ports", help="list serial ports")
     ports.set_defaults(run=cmd_ports)
 
@@ -253,6 +259,34 @@ def cmd_cal(args: argparse.Namespace) -> int:
         return 130
     finally:
         pipeline.stop("calibration over")
+    return 0
+
+
+def cmd_recal(args: argparse.Namespace) -> int:
+    from collections import Counter
+
+    import pyarrow.parquet as pq
+
+    from logger.cal.profile import ProfileError, load_profile
+    from logger.cal.recal import EVENTS, recalibrate
+
+    try:
+        profiles = [load_profile(path) for path in args.profile]
+    except ProfileError as exc:
+        raise UsageError(str(exc)) from None
+    events = args.folder / EVENTS
+
+    def kinds() -> Counter[str]:
+        return Counter(pq.read_table(events, columns=["kind"])["kind"].to_pylist()) if events.exists() else Counter()
+
+    before = kinds()
+    meta = recalibrate(args.folder, profiles, lambda s: print(f"railtap: {s}", file=sys.stderr, flush=True))
+    after = kinds()
+    for profile, path in zip(profiles, args.profile, strict=True):
+        print(f"{args.folder}: {profile.channel} calibrated again with {path} ({profile.model}, "
+              f"{len(profile.points)} points); {meta.get('rows', 0)} rows in {len(meta.get('parts', []))} part(s)")
+    changed = [f"{k} {before[k]} -> {after[k]}" for k in sorted(set(before) | set(after)) if before[k] != after[k]]
+    print("events detected again: " + (", ".join(changed) if changed else "the same counts as before"))
     return 0
 
 

@@ -137,16 +137,17 @@ def demo_rig_text() -> str:
     return resources.files("logger").joinpath("templates/rig.toml").read_text(encoding="utf-8")
 
 
-def parse_rig(text: str, source: str = "<rig>") -> Rig:
-    """Parse rig TOML text; ``source`` names it in errors."""
+def parse_rig(text: str, source: str = "<rig>", *, profiles: bool = True) -> Rig:
+    """Parse rig TOML text; ``source`` names it in errors. ``profiles=False`` leaves the calibration
+    profiles it names unread (a rig kept in a run's metadata, whose profiles were stored with it)."""
     try:
         doc = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
         raise RigError(f"{source}: not valid TOML ({exc})") from None
-    return rig_from_dict(doc, source, text)
+    return rig_from_dict(doc, source, text, profiles=profiles)
 
 
-def rig_from_dict(doc: dict[str, Any], source: str = "<rig>", text: str = "") -> Rig:
+def rig_from_dict(doc: dict[str, Any], source: str = "<rig>", text: str = "", *, profiles: bool = True) -> Rig:
     """Check an already-parsed rig table (a rig file, or the ``[rig]`` table of a simulated scenario)."""
     checker = _Checker(source)
     name = checker.get(doc, "name", str, "rig")
@@ -155,7 +156,7 @@ def rig_from_dict(doc: dict[str, Any], source: str = "<rig>", text: str = "") ->
     if not isinstance(raw_channels, list) or not raw_channels:
         raise RigError(f"{source}: no [[channel]] tables; at least one channel is needed")
     base = Path(source).parent if source and not source.startswith("<") else Path()
-    channels = tuple(_channel(checker, i, t, base) for i, t in enumerate(raw_channels))
+    channels = tuple(_channel(checker, i, t, base if profiles else None) for i, t in enumerate(raw_channels))
     _check_unique(source, channels)
     return Rig(name=name, channels=channels, device=device, source=source, text=text)
 
@@ -193,7 +194,7 @@ def _device(c: _Checker, table: dict[str, Any]) -> Device:
                   vref_mv=c.get(table, "vref_mv", int, None, w))
 
 
-def _channel(c: _Checker, index: int, table: dict[str, Any], base: Path) -> Channel:
+def _channel(c: _Checker, index: int, table: dict[str, Any], base: Path | None) -> Channel:
     w = f"channel[{index}]."
     name = c.get(table, "name", str, None, w)
     if name is None or not _NAME.match(name):
@@ -229,9 +230,9 @@ def _channel(c: _Checker, index: int, table: dict[str, Any], base: Path) -> Chan
     )
 
 
-def _profile(c: _Checker, base: Path, path: str | None, name: str, unit: str, where: str) -> Profile | None:
+def _profile(c: _Checker, base: Path | None, path: str | None, name: str, unit: str, where: str) -> Profile | None:
     """The calibration profile a channel names (a path relative to the rig file), checked against it."""
-    if path is None:
+    if path is None or base is None:
         return None
     try:
         profile = load_profile(base / path)

@@ -13,7 +13,7 @@ import pytest
 
 from logger.cal.assess import CalPoint, assess, gain_only
 from logger.cal.capture import judge
-from logger.cal.profile import ProfileError, load_profile, save_profile
+from logger.cal.profile import Profile, ProfileError, load_profile, save_profile
 from logger.cal.session import (
     CalError,
     CalOptions,
@@ -288,3 +288,54 @@ def test_calibration_panel_on_the_live_screen(tmp_path: Path, monkeypatch) -> No
     profile = load_profile(tmp_path / "cal" / "out_v.json")
     assert [p.reference for p in profile.points] == [2.0, 7.0, 12.0]
     assert any(e.detail.startswith("calibration applied") for e in pipeline.events.recent(20))
+
+
+def _recorded_run(tmp_path: Path) -> Path:
+    from logger.sim.simple import simple_rig
+
+    pipeline = Pipeline(SimSource(SimDevice(seed=2), speed=0.0, duration_s=70.0), simple_rig(),
+                        Settings(record_root=tmp_path / "runs"))
+    pipeline.start()
+    assert pipeline.wait(60) and pipeline.error is None
+    (run,) = (tmp_path / "runs").iterdir()
+    return run
+
+
+def _line_profile(channel: str, unit: str, gain: float, span: tuple[float, float]) -> Profile:
+    from logger.cal.fit import Polynomial
+
+    curve = Polynomial((0.0, gain), ((0.0, 0.0), (0.0, 0.0)))
+    return Profile(channel, unit, "line", curve, (), span, "2026-12-01T00:00:00+00:00")
+
+
+def test_recal_rewrites_values_from_counts_and_detects_events_again(tmp_path: Path) -> None:
+    import pandas as pd
+
+    from logger.cal.recal import recalibrate
+    from logger.store import StoreError, read_run_json
+
+    run = _recorded_run(tmp_path)
+    before = pd.read_parquet(run / "_events.parquet")
+    lsb = 3.3 / 4096  # the simple rig's 12-bit, 3.3 V converter; FS / 2^N (common practice, no source)
+    same = _line_profile("out_v", "V", lsb * 11.0, (0.0, 4095.0))  # the rig's own scaling, as a profile
+    recalibrate(run, [same])
+    again = pd.read_parquet(run / "_events.parquet")
+    rail = ["brownout", "dropout", "flicker"]
+    assert before[before.kind.isin(rail)][["kind", "start"]].equals(again[again.kind.isin(rail)][["kind", "start"]])
+    low = _line_profile("out_v", "V", lsb * 11.0 * 1.02, (500.0, 1500.0))  # 2 % higher; span 4.4 to 13.3 V
+    meta = recalibrate(run, [low])
+    samples = pd.read_parquet(run, columns=["out_v", "out_v_counts", "out_a"])
+    expected = (samples["out_v_counts"].to_numpy() * lsb * 11.0 * 1.02).astype(np.float32)
+    assert np.array_equal(samples["out_v"].to_numpy(), expected)
+    assert np.allclose(samples["out_a"].max(), pd.read_parquet(run, columns=["out_a"])["out_a"].max())
+    events = pd.read_parquet(run / "_events.parquet")
+    assert "outside_cal" in set(events.kind)  # the dropouts read below the 4.4 V the profile covers
+    assert events["id"].tolist() == list(range(1, len(events) + 1))
+    stored = read_run_json(run)
+    assert stored == meta and stored["calibration"]["out_v"]["by"] == "railtap recal"
+    history = stored["calibration_history"]
+    assert [h["was"].get("profile", {}).get("curve", {}).get("coefficients") for h in history] == [
+        None, [0.0, lsb * 11.0]]
+    assert not [p for p in run.iterdir() if p.name.startswith("_recal")]
+    with pytest.raises(StoreError, match="no channel 'out_x'"):
+        recalibrate(run, [_line_profile("out_x", "V", 1.0, (0, 1))])
