@@ -7,8 +7,10 @@
 #define F_CPU 16000000UL /* the crystal of common ATmega328P boards */
 #endif
 
-/* 1000000 baud divides 16 MHz exactly (the UART divides by 16 x (UBRR + 1); PROTOCOL.md section 8); the
- * common 115200 would be about 2 % off and carries only about 190 sample sets a second of 4 channels. */
+/* 1000000 baud divides 16 MHz exactly (the UART divides by 16 x (UBRR + 1); PROTOCOL.md section 8), as do
+ * 250000, 500000 and 2000000. avr-libc's util/setbaud.h warns when a rate comes out more than 2 % off, and
+ * -Werror makes that a build error: 115200 (2.1 % off at 16 MHz, and only about 190 sample sets a second of
+ * 4 channels) is refused rather than left to garble the odd byte. */
 #ifndef BAUD
 #define BAUD 1000000UL
 #endif
