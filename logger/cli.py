@@ -18,6 +18,7 @@ from logger.cal.session import CalError
 from logger.events import Event
 from logger.live import Snapshot
 from logger.pipeline import Pipeline, Settings
+from logger.plan import PlanError, add_plan_command
 from logger.recording import use_lean_allocator
 from logger.rig import Rig, RigError, demo_rig_text, load_rig
 from logger.sim.spec import ScenarioError
@@ -44,7 +45,7 @@ def main(argv: list[str] | None = None) -> int:
         return 2
     try:
         return args.run(args)
-    except (UsageError, RigError, ScenarioError, SourceError, StoreError, CalError) as exc:
+    except (UsageError, RigError, ScenarioError, SourceError, StoreError, CalError, PlanError) as exc:
         print(f"railtap: {exc}", file=sys.stderr)
         return 2
     except KeyboardInterrupt:
@@ -129,6 +130,8 @@ def _parser() -> argparse.ArgumentParser:
     check = rig_sub.add_parser("check", help="read a rig file and show what it describes")
     check.add_argument("file", type=Path)
     check.set_defaults(run=cmd_rig_check)
+
+    add_plan_command(sub)
     return p
 
 

@@ -264,7 +264,7 @@ def test_calibration_panel_on_the_live_screen(tmp_path: Path, monkeypatch) -> No
                 bench.level_v = volts
                 field.value = str(volts)
                 app.simulate_key("enter")
-                for _ in range(300):
+                for _ in range(600):  # generous: the rail settles in 0.1 s, but a loaded machine is slow
                     await pilot.pause(0.05)
                     if len(panel.points) == n:
                         break
