@@ -1,11 +1,13 @@
 """The reference firmware in firmware_notes/firmware, proven against railtap's own side of the protocol.
 
-Two kinds of proof:
+Three kinds of proof:
 - its portable C (CRC, line encoders, command replies, synthetic waveform), built with the host's gcc into a
   small harness, agrees line for line with ``logger.wire`` on shared test vectors;
 - the whole firmware, built with avr-gcc, runs in qemu-system-avr (an emulated ATmega328P board) behind a
   pseudo-terminal, and railtap records it through pyserial: every sample set arrives, with the values of the
-  synthetic waveform, no rejected line and no gap, and the host's commands are answered.
+  synthetic waveform, no rejected line and no gap, and the host's commands are answered;
+- the board build, whose ADC code the emulator cannot run, runs in simavr (a cycle-counting simulator) with
+  known millivolts on its ADC pins, and railtap finds a known dip profile in what it sent.
 
 The emulator ignores baud rates and runs at whatever speed the host gives it, so nothing here checks wall-clock
 timing: only the content of what was sent, including the device clock inside the lines. Waits have generous
@@ -487,3 +489,65 @@ def _check_brownouts(run: Path, df: pd.DataFrame) -> None:
         # settling during the first seconds of a run.
         assert event["duration_s"] == pytest.approx(64 * period_us / 1e6, abs=4 * period_us / 1e6)
 
+
+
+# -- the board build's ADC path in simavr -------------------------------------------------------------
+
+
+@pytest.fixture(scope="module")
+def simavr_tap(avr_build: Path, tmp_path_factory: pytest.TempPathFactory) -> Path:
+    """firmware_notes/firmware/test/simavr_tap.c, linked with simavr's library."""
+    _need("gcc", "gcc")
+    if not Path("/usr/include/simavr/sim_avr.h").exists():
+        pytest.skip("simavr headers not found: install the Debian package libsimavr-dev "
+                    "(apt-get install libsimavr-dev)")
+    build = tmp_path_factory.mktemp("fw-simavr")
+    _make(build, "simavr-tap")
+    return build / "simavr_tap"
+
+
+RAIL_MV = 3900
+"""A0's level outside the dips: 81.9 V on the rail through the 21:1 divider."""
+DIPS = ((500, 64, 2700), (1200, 200, 3400))
+"""(start ms, length ms, level mV) on A0: a dip to 69 % of the rail for 64 ms, and one to 87 % for 200 ms."""
+SIMAVR_RIG = EMULATED_RIG.replace('name = "emulated-tap"', 'name = "simavr-tap"').replace(
+    "nominal = 82.03125               # 800 counts x 5 V / 1024 x 21", "nominal = 81.9")
+
+
+def test_board_build_in_simavr_reports_a_known_dip_profile(avr_build: Path, simavr_tap: Path,
+                                                          tmp_path: Path) -> None:
+    """Known millivolts on the ADC pins, through the firmware's own TIMER1 and ADC code, to railtap's events."""
+    capture = tmp_path / "uart.bin"
+    args = [str(simavr_tap), str(avr_build / "railtap.elf"), "2.0", str(RAIL_MV)]
+    args += [str(v) for dip in DIPS for v in dip]
+    with capture.open("wb") as out:
+        subprocess.run(args, stdout=out, stderr=subprocess.PIPE, timeout=120, check=True)
+    pipeline = Pipeline(ReplaySource(capture), parse_rig(SIMAVR_RIG, "simavr tap"), Settings(record_root=tmp_path))
+    pipeline.start()
+    assert pipeline.wait(60) and pipeline.error is None
+    header, counters = pipeline.header, pipeline.decoder.counters
+    assert header is not None and dict(header.extra) == {"adc": "avr"} and header.reason == "boot"
+    assert counters.rejected == 0 and pipeline.unwrapper.lost == 0 and counters.frames >= 1990
+
+    df = pd.read_parquet(Path(pipeline.final["folder"]))
+    # Counts for a pin voltage: Vin x 1024 / Vref, truncated (ATmega328P data sheet, ADC conversion result;
+    # value from memory); simavr scales by 1023 instead, which can make it one count less.
+    def counts(mv: int) -> set[int]:
+        exact = mv * 1024 // 5000
+        return {exact, exact - 1}
+
+    for name, mv in (("load_a", 1000), ("ramp_up", 2500), ("ramp_down", 4000)):
+        assert set(df[f"{name}_counts"]) <= counts(mv), name
+    assert set(df["rail_v_counts"]) <= counts(RAIL_MV) | counts(2700) | counts(3400)
+
+    events = pd.read_parquet(Path(pipeline.final["folder"]) / "_events.parquet")
+    dips = events[events["kind"] == "brownout"].sort_values("start")
+    assert len(dips) == len(DIPS)
+    offset_us = int(df["utc"].astype("int64").iloc[0]) - int(df["device_us"].iloc[0])  # utc = device clock here
+    for (_, event), (start_ms, length_ms, level_mv) in zip(dips.iterrows(), DIPS, strict=True):
+        assert event["channel"] == "rail_v"
+        # Depth in % of nominal (IEC 61000-4-30 "depth", as logger.events.rules uses it), within two LSB of 800.
+        assert event["depth_pct"] == pytest.approx(100 * (RAIL_MV - level_mv) / RAIL_MV, abs=0.3)
+        assert event["duration_s"] == pytest.approx(length_ms / 1000, abs=0.0015)  # within one 1 ms period
+        start_us = int(pd.Timestamp(event["start"]).value // 1000) - offset_us
+        assert start_us / 1e6 == pytest.approx(start_ms / 1000, abs=0.0015)

@@ -186,11 +186,12 @@ void sampler_init(uint16_t rate_hz)
     adc_init();
     set_period(rate_hz);
     TCCR1A = 0;
+    TCCR1B = _BV(WGM12); /* CTC on OCR1A, clock still stopped */
     TCNT1 = 0;
     arm(next_period());
     TIFR1 = _BV(OCF1A);                              /* clear a stale flag (written as a one) */
     TIMSK1 = _BV(OCIE1A);
-    TCCR1B = (uint8_t)(_BV(WGM12) | clock_select); /* CTC on OCR1A; the clock starts last */
+    TCCR1B = (uint8_t)(_BV(WGM12) | clock_select); /* the clock starts last */
 }
 
 uint8_t sampler_pop(struct sample *out)
