@@ -444,8 +444,8 @@ def test_firmware_in_the_emulator_is_recorded_whole(emulator: Emulator, tmp_path
     assert len(df) == counters.frames
     counts = df[[f"{name}_counts" for name in CHANNELS]].to_numpy()
     np.testing.assert_array_equal(counts, wave_counts(df["seq"].to_numpy()))
-    # Counts to volts: LSB = Vref / 2^N (the usual convention for an N-bit converter, as logger.calibration
-    # documents), times the divider.
+    # Counts to volts: one count is Vref / 1024 at 10 bits (ATmega328P data sheet, ADC conversion result:
+    # ADC = Vin x 1024 / Vref; value from memory), times the divider.
     np.testing.assert_allclose(df["rail_v"], counts[:, 0] * 5.0 / 1024 * 21.0, rtol=1e-6)
 
     _check_lines_in_order(_replayed(run), df)
