@@ -145,7 +145,9 @@ def test_round_trip_across_part_boundaries(tmp_path: Path) -> None:
     final = writer.close("user stop")
 
     assert sorted(p.name for p in folder.iterdir()) == [
-        "_events.parquet", "_run.json", "_run.lock",
+        "_events.parquet",
+        "_rollup-00000.parquet", "_rollup-00001.parquet", "_rollup-00002.parquet", "_rollup-00003.parquet",
+        "_run.json", "_run.lock",
         "part-00000.parquet", "part-00001.parquet", "part-00002.parquet", "part-00003.parquet",
     ]  # fmt: skip
     want = pa.Table.from_batches(expected).to_pandas()

@@ -3,7 +3,7 @@
 Every run keeps each channel's raw counts beside its calibrated values, so a profile made after the test
 (or a corrected one) can be applied to it. The value columns of every part are rewritten from the counts;
 brownouts, dropouts and the other rail events are detected again on the new values (link events and marks
-are kept as they were); ``_run.json`` records the new calibration and keeps the one it replaces under
+are kept as they were); the per-second rollups are written again; ``_run.json`` records the new calibration and keeps the one it replaces under
 ``calibration_history``.
 
 Safety: new parts and the new event table are written under temporary names first; the originals are
@@ -33,6 +33,7 @@ from logger.store.episodes import link_episodes
 from logger.store.files import RunLock, StoreError, fsync_dir, read_run_json, to_json, write_json_atomic
 from logger.store.layout import parts_in
 from logger.store.meta import start_part
+from logger.store.rollup import pairs_of, write_rollup
 from logger.store.schema import channels_of, event_schema
 from logger.store.seal import RUN_KEY, event_parquet_options, row_group_rows, sample_parquet_options
 from logger.wire import DeviceHeader
@@ -69,6 +70,8 @@ def recalibrate(folder: Path, profiles: list[Profile], progress: Callable[[str],
         for temp, target in zip(temps, [*parts, folder / EVENTS], strict=True):
             os.replace(temp, target)
         fsync_dir(folder)
+        for index, _ in parts_in(folder):  # the per-second rollups follow the new values
+            write_rollup(folder, index, pairs_of(meta))
         link_episodes(folder / EVENTS)
         new_meta["events"] = pq.ParquetFile(folder / EVENTS).metadata.num_rows
         write_json_atomic(folder / "_run.json", new_meta)

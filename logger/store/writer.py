@@ -39,6 +39,7 @@ from logger.store.files import (
 from logger.store.journal import JournalWriter
 from logger.store.layout import EVENTS_JOURNAL, EVENTS_PARQUET, journal_name, part_name
 from logger.store.meta import STORE_KEYS, finished_metadata, start_metadata
+from logger.store.rollup import RollupQueue, pairs_of
 from logger.store.schema import channels_of, event_batch, event_schema
 from logger.store.seal import event_parquet_options, seal_journal, temp_name, write_empty
 
@@ -98,6 +99,7 @@ class RunWriter:
         self._events: JournalWriter | None = None
         self._error: StoreError | None = None
         self._final: dict[str, Any] | None = None
+        self._rollups = RollupQueue(self.folder, pairs_of(metadata))
         _prepare_folder(self.folder)
         self._lock = RunLock(self.folder)
         self._lock.acquire("record")
@@ -213,6 +215,7 @@ class RunWriter:
         self.flush()
         self._finish_part()
         self._finish_events()
+        self._rollups.wait()
         last = utc_text(self._safe_until_us)
         self._metadata = finished_metadata(
             self._start, "complete", reason, utc_text(utc_now()), last, self._parts, self._event_count
@@ -310,6 +313,7 @@ class RunWriter:
             self._fail(exc, temp_name(target))
         if sealed is not None:
             self._parts.append(sealed.as_dict())
+            self._rollups.add(self._part_index)
 
     def _finish_events(self) -> None:
         target = self.folder / EVENTS_PARQUET
