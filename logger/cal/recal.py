@@ -3,8 +3,8 @@
 Every run keeps each channel's raw counts beside its calibrated values, so a profile made after the test
 (or a corrected one) can be applied to it. The value columns of every part are rewritten from the counts;
 brownouts, dropouts and the other rail events are detected again on the new values (link events and marks
-are kept as they were); the per-second rollups are written again; ``_run.json`` records the new calibration and keeps the one it replaces under
-``calibration_history``.
+are kept as they were); the per-second rollups are written again; ``_run.json`` records the new calibration
+and keeps the one it replaces under ``calibration_history``.
 
 Safety: new parts and the new event table are written under temporary names first; the originals are
 replaced only once all are complete. A crash in the short replacing step can leave some parts new and some
