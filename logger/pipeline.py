@@ -266,6 +266,7 @@ class Pipeline:
             part_seconds=self.settings.part_seconds,
             keep_raw=self.settings.keep_raw,
         )
+        self.recorder.link_base = self._link_counts()
         self.events.sink = self.recorder.add_event
         for chunk in self._pending_raw:
             self.recorder.add_raw(chunk)
@@ -396,7 +397,7 @@ class Pipeline:
                 sealer.start()
 
     def _seal(self, recorder: Recorder, reason: str) -> None:
-        final = recorder.stop(reason)
+        final = recorder.stop(reason, extra={"link": self._link_counts(recorder.link_base)})
         self.final = None if final is None else {**final, "folder": str(recorder.folder)}
         if self.final is not None:
             self.sealed.append(self.final)
@@ -561,6 +562,17 @@ class Pipeline:
         """Forget min/max and start the charge and energy counters again from zero."""
         self._minmax = None
         self.totals.reset()
+
+    def _link_counts(self, since: dict[str, int] | None = None) -> dict[str, Any]:
+        """The link's counters (less those in ``since``) and the device clock's drift, for ``_run.json``."""
+        c = self.decoder.counters
+        now = {"frames": c.frames, "lost": self.unwrapper.lost, "rejected": c.rejected, "bad_crc": c.bad_crc,
+               "resets": self.unwrapper.resets, "reconnects": self.reconnects}
+        since = since or {}
+        counts: dict[str, Any] = {k: v - since.get(k, 0) for k, v in now.items()}
+        counts["drift_ppm"] = round(self.clock.drift_ppm, 2) if self.clock.fitted else None
+        counts["rate_hz"] = self.header.rate_hz if self.header else None
+        return counts
 
     def _link_health(self) -> LinkHealth:
         c = self.decoder.counters

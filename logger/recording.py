@@ -50,6 +50,9 @@ class Recorder:
         self.folder: Path = self._writer.folder
         self._raw = RawCaptureWriter(self.folder / "_raw.arrows") if keep_raw else None
         self._stop_reason = "stopped"
+        self._extra: dict[str, Any] | None = None
+        self.link_base: dict[str, int] = {}
+        """The link's counters when this run began, so the run's own share can be told at its end."""
         self._thread = threading.Thread(target=self._run, name="railtap-recorder", daemon=True)
         self._thread.start()
 
@@ -98,9 +101,12 @@ class Recorder:
         """Rows that would survive a crash right now."""
         return self._writer.durable_rows
 
-    def stop(self, reason: str, timeout: float | None = None) -> dict[str, Any] | None:
-        """Drain the queue, seal the parts and return the run's final metadata (None if it failed)."""
+    def stop(self, reason: str, timeout: float | None = None, extra: dict[str, Any] | None = None
+             ) -> dict[str, Any] | None:
+        """Drain the queue, seal the parts and return the run's final metadata (None if it failed); ``extra``
+        goes into the final ``_run.json``."""
         self._stop_reason = reason
+        self._extra = extra
         self._put(_STOP)
         self._thread.join(timeout)
         return self.final
@@ -132,7 +138,7 @@ class Recorder:
     def _close(self, reason: str) -> None:
         if self._raw is not None:
             self._raw.close()
-        self.final = self._writer.close(reason)
+        self.final = self._writer.close(reason, self._extra)
 
     def _abandon(self) -> None:
         """After a failure keep every journal as it is; drain the queue so producers never block."""

@@ -195,11 +195,13 @@ class RunWriter:
             self._fail(exc, path)
         self._event_count += 1
 
-    def close(self, reason: str) -> dict[str, Any]:
+    def close(self, reason: str, extra: dict[str, Any] | None = None) -> dict[str, Any]:
         """Finish the run: flush, seal the open part, write ``_events.parquet`` and the final ``_run.json``.
 
         Args:
             reason: Why recording stopped, in words for people ("user stop", "duration reached").
+            extra: More end-of-run fields for ``_run.json`` (the link's counters), under keys the store does
+                not own.
 
         Returns:
             The final run metadata (as in ``_run.json``). After a failure it is the failed metadata, and
@@ -220,6 +222,7 @@ class RunWriter:
         self._metadata = finished_metadata(
             self._start, "complete", reason, utc_text(utc_now()), last, self._parts, self._event_count
         )
+        self._metadata.update({k: v for k, v in (extra or {}).items() if k not in STORE_KEYS})
         try:
             write_json_atomic(self.folder / RUN_JSON, self._metadata)
         except OSError as exc:
