@@ -2,22 +2,12 @@
 
 from __future__ import annotations
 
-import math
 from datetime import datetime
 
 from logger.events.model import Event
+from logger.textplot import value_text
 
-
-def value_text(value: float | None, signed: bool = True) -> str:
-    """A reading with four significant figures and its sign (``+12.00``, ``-15.02``, ``+3.487``).
-
-    A fixed number of figures keeps the width steady as the value moves, so big digits do not jump about.
-    """
-    if value is None or not math.isfinite(value):
-        return "-.--" if not signed else " -.--"
-    size = abs(value)
-    places = 3 if size < 10 else 2 if size < 100 else 1 if size < 1000 else 0
-    return f"{value:+.{places}f}" if signed else f"{value:.{places}f}"
+__all__ = ["duration_text", "elapsed_text", "event_details", "event_title", "local_time", "size_text", "value_text"]
 
 
 def local_time(utc_us: int, places: int = 3) -> str:

@@ -7,7 +7,6 @@ dashed line; columns that went below it are drawn in the alert colour.
 
 from __future__ import annotations
 
-import math
 from typing import ClassVar
 
 import numpy as np
@@ -15,11 +14,11 @@ from rich.style import Style
 from rich.text import Text
 from textual.widget import Widget
 
+from logger.textplot import DEFAULT_STYLES, GUTTER, draw_columns, value_range
 from logger.tui.fmt import value_text
 from logger.tui.history import TrendHistory
 
 SPANS_S = (10.0, 60.0, 600.0, 3600.0)
-GUTTER = 8
 
 
 def span_label(span_s: float) -> str:
@@ -73,12 +72,10 @@ class Trend(Widget):
         self.border_subtitle = f"- - brownout below {value_text(threshold, False)} {unit}" if threshold else ""
 
     def _styles(self) -> dict[str, Style]:
-        fallback = {"trend--data": Style(color="green"), "trend--low": Style(color="red", bold=True),
-                    "trend--threshold": Style(color="yellow"), "trend--axis": Style(dim=True)}
         try:
-            return {name: self.get_component_rich_style(name) for name in fallback}
+            return {name: self.get_component_rich_style(f"trend--{name}") for name in DEFAULT_STYLES}
         except Exception:  # before the first layout there are no styles yet
-            return fallback
+            return DEFAULT_STYLES
 
     def render(self) -> Text:
         height, width = self.content_size.height, self.content_size.width - GUTTER
@@ -88,53 +85,5 @@ class Trend(Widget):
         if np.all(np.isnan(lo)):
             return Text("waiting for samples...", style="dim")
         threshold = self.history.shown.thresholds[self.channel]
-        bottom, top = _range(lo, hi, threshold)
-        styles = self._styles()
-        return _draw(lo, hi, threshold, bottom, top, height, styles)
-
-
-def _range(lo: np.ndarray, hi: np.ndarray, threshold: float | None) -> tuple[float, float]:
-    """The value range to draw: the data's, stretched to take in the threshold, with a little room."""
-    bottom, top = float(np.nanmin(lo)), float(np.nanmax(hi))
-    if threshold is not None:
-        bottom, top = min(bottom, threshold), max(top, threshold)
-    room = max((top - bottom) * 0.05, abs(top) * 0.002, 1e-6)
-    return bottom - room, top + room
-
-
-def _draw(lo: np.ndarray, hi: np.ndarray, threshold: float | None, bottom: float, top: float,
-          height: int, styles: dict[str, Style]) -> Text:
-    levels = 2 * height
-    scale = (levels - 1) / (top - bottom)
-    have = ~np.isnan(lo)
-    lo_l = np.where(have, np.floor((np.nan_to_num(lo) - bottom) * scale + 0.5), -1).astype(int)
-    hi_l = np.where(have, np.floor((np.nan_to_num(hi) - bottom) * scale + 0.5), -1).astype(int)
-    thr_row = None if threshold is None else math.floor((threshold - bottom) * scale + 0.5) // 2
-    below = have & (lo < threshold) if threshold is not None else np.zeros(len(lo), dtype=bool)
-    text = Text(no_wrap=True, overflow="crop")
-    for row in range(height - 1, -1, -1):
-        label = value_text(top if row == height - 1 else bottom if row == 0 else None, False)
-        text.append(f"{label:>{GUTTER - 1}}\u2524" if row in (0, height - 1) else " " * (GUTTER - 1) + "\u2502",
-                    styles["trend--axis"])
-        lower = have & (lo_l <= 2 * row) & (hi_l >= 2 * row)
-        upper = have & (lo_l <= 2 * row + 1) & (hi_l >= 2 * row + 1)
-        cells = np.where(lower & upper, "\u2588", np.where(upper, "\u2580", np.where(lower, "\u2584", " ")))
-        line = "".join(cells)
-        if row == thr_row:
-            line = "".join(c if c != " " else ("\u254c" if k % 2 == 0 else " ") for k, c in enumerate(line))
-        _append_runs(text, line, below, row == thr_row, styles)
-        if row:
-            text.append("\n")
-    return text
-
-
-def _append_runs(text: Text, line: str, below: np.ndarray, on_threshold: bool, styles: dict[str, Style]) -> None:
-    """Append a row of cells, one styled run per stretch of the same kind of cell."""
-    start = 0
-    kinds = ["t" if c == "\u254c" or (on_threshold and c == " ") else "l" if below[k] else "d"
-             for k, c in enumerate(line)]
-    names = {"t": "trend--threshold", "l": "trend--low", "d": "trend--data"}
-    for k in range(1, len(line) + 1):
-        if k == len(line) or kinds[k] != kinds[start]:
-            text.append(line[start:k], styles[names[kinds[start]]])
-            start = k
+        bottom, top = value_range(lo, hi, threshold)
+        return draw_columns(lo, hi, threshold, bottom, top, height, self._styles())
