@@ -1,0 +1,203 @@
+"""What happened in a run, in numbers: from the per-second rollups (fast) or a full-rate scan (exact).
+
+Both paths fold the same per-second rows (a full scan just builds them from every sample again), so they agree
+to rounding. Per channel: samples, min, mean, max and standard deviation (variances combined exactly from the
+seconds' squared deviations), ripple over one-second windows (peak-to-peak and the RMS of the AC part: typical
+and worst), the time integral; per rail: charge (Ah) and energy (Wh) by the trapezoid rule on the samples' own
+timestamps. From the event table: time below the brownout threshold and above the overvoltage one (as the
+detectors timed them), gaps, and the events by kind with counts, worst depth and longest duration.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable
+from dataclasses import dataclass, field
+from datetime import datetime
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pyarrow as pa
+import pyarrow.parquet as pq
+
+from logger.store.files import StoreError, read_run_json
+from logger.store.layout import EVENTS_PARQUET, parts_in
+from logger.store.rollup import Pair, last_sample, pairs_of, read_rollups, rollup_part
+
+GAP_KINDS = ("frame_gap", "link_lost")
+
+
+@dataclass(frozen=True)
+class ChannelStats:
+    name: str
+    unit: str
+    samples: int
+    minimum: float
+    mean: float
+    maximum: float
+    std: float
+    ripple_pp: tuple[float, float]
+    """Peak-to-peak within one-second windows: (median, largest)."""
+    ripple_rms: tuple[float, float]
+    """RMS of the AC part (the spread about the window's mean) within one-second windows: (median, largest)."""
+    integral: float
+    """Time integral of the value, unit x seconds."""
+    below_s: float = 0.0
+    """Time in brownouts and dropouts."""
+    above_s: float = 0.0
+    """Time in overvoltage or overcurrent."""
+
+
+@dataclass(frozen=True)
+class RailTotals:
+    rail: str
+    charge_ah: float
+    energy_wh: float
+
+
+@dataclass(frozen=True)
+class KindStats:
+    kind: str
+    channel: str | None
+    count: int
+    worst_depth_pct: float | None
+    worst_value: float | None
+    longest_s: float | None
+
+
+@dataclass(frozen=True)
+class Summary:
+    folder: Path
+    status: str
+    stop_reason: str
+    start_utc: str | None
+    end_utc: str | None
+    duration_s: float
+    samples: int
+    gaps: int
+    gap_s: float
+    channels: list[ChannelStats]
+    rails: list[RailTotals]
+    events: list[KindStats]
+    calibration: dict[str, str]
+    link: dict[str, Any] = field(default_factory=dict)
+    source: str = "rollups"
+
+
+def summarize(folder: Path, *, full: bool = False, progress: Callable[[int, int], None] | None = None) -> Summary:
+    """Summarise the run in ``folder``: from its rollups, or (``full``) from every sample."""
+    meta = read_run_json(folder)
+    if not parts_in(folder):
+        raise StoreError(f"{folder}: no sealed parts; if the run was cut short, run `railtap recover {folder}`")
+    pairs = pairs_of(meta)
+    table = _full_scan(folder, pairs, progress) if full else read_rollups(folder, pairs)
+    events = pq.read_table(folder / EVENTS_PARQUET) if (folder / EVENTS_PARQUET).exists() else None
+    units = {c["name"]: c.get("unit", "") for c in meta.get("channels_info", [])}
+    channels = [n for n in units if f"{n}_int" in table.column_names] or _channels_in(table)
+    utc = table["utc"]
+    kinds = _kinds(events)
+    gaps = [k for k in kinds if k.kind in GAP_KINDS]
+    spans = [(p.get("first_utc"), p.get("last_utc")) for p in meta.get("parts", []) if p.get("first_utc")]
+    first, last = (spans[0][0], spans[-1][1]) if spans else (meta.get("start_utc"), meta.get("end_utc"))
+    return Summary(
+        folder=folder, status=str(meta.get("status")), stop_reason=str(meta.get("stop_reason", "")),
+        start_utc=first, end_utc=last, duration_s=_seconds_between(first, last),
+        samples=int(table["count"].to_numpy().sum()) if len(utc) else 0,
+        gaps=sum(k.count for k in gaps), gap_s=sum(_total_s(events, k.kind) for k in gaps),
+        channels=[_channel(table, c, units.get(c, ""), events) for c in channels],
+        rails=[_rail(table, p) for p in pairs],
+        events=kinds,
+        calibration={c: _calibration_text(meta.get("calibration", {}).get(c)) for c in channels},
+        link=meta.get("link", {}),
+        source="full-rate scan" if full else "per-second rollups",
+    )
+
+
+def _seconds_between(first: str | None, last: str | None) -> float:
+    if not first or not last:
+        return 0.0
+    return (datetime.fromisoformat(last) - datetime.fromisoformat(first)).total_seconds()
+
+
+def _full_scan(folder: Path, pairs: list[Pair], progress: Callable[[int, int], None] | None) -> pa.Table:
+    """The rollup rows again, from every sample of every part (carrying each part's last sample on)."""
+    parts = parts_in(folder)
+    tables, carry = [], None
+    for n, (_, part) in enumerate(parts, start=1):
+        tables.append(rollup_part(part, pairs, carry))
+        carry = last_sample(part)
+        if progress is not None:
+            progress(n, len(parts))
+    return pa.concat_tables(tables)
+
+
+def _channels_in(table: pa.Table) -> list[str]:
+    return [name[: -len("_int")] for name in table.column_names if name.endswith("_int") and "_w_int" not in name]
+
+
+def _channel(table: pa.Table, name: str, unit: str, events: pa.Table | None) -> ChannelStats:
+    n = table["count"].to_numpy().astype(np.float64)
+    have = n > 0
+    n = n[have]
+    mean_s = table[f"{name}_mean"].to_numpy()[have]
+    m2_s = table[f"{name}_m2"].to_numpy()[have]
+    lo, hi = table[f"{name}_min"].to_numpy()[have], table[f"{name}_max"].to_numpy()[have]
+    total = n.sum()
+    mean = float((mean_s * n).sum() / total) if total else float("nan")
+    m2 = float(m2_s.sum() + (n * (mean_s - mean) ** 2).sum())  # variances of parts combined exactly
+    pp = hi - lo
+    rms = np.sqrt(m2_s / n)
+    return ChannelStats(
+        name=name, unit=unit, samples=int(total),
+        minimum=float(lo.min()) if total else float("nan"), mean=mean,
+        maximum=float(hi.max()) if total else float("nan"),
+        std=float(np.sqrt(m2 / (total - 1))) if total > 1 else float("nan"),
+        ripple_pp=(float(np.median(pp)), float(pp.max())) if total else (float("nan"),) * 2,
+        ripple_rms=(float(np.median(rms)), float(rms.max())) if total else (float("nan"),) * 2,
+        integral=float(table[f"{name}_int"].to_numpy().sum()),
+        below_s=_total_s(events, ("brownout", "dropout"), name),
+        above_s=_total_s(events, ("overvoltage", "overcurrent"), name),
+    )
+
+
+def _rail(table: pa.Table, pair: Pair) -> RailTotals:
+    charge_as = float(table[f"{pair.amps}_int"].to_numpy().sum())
+    energy_j = float(table[f"{pair.rail}_w_int"].to_numpy().sum())
+    return RailTotals(pair.rail, charge_as / 3600.0, energy_j / 3600.0)
+
+
+def _kinds(events: pa.Table | None) -> list[KindStats]:
+    if events is None or events.num_rows == 0:
+        return []
+    rows = events.select(["kind", "channel", "depth_pct", "value", "duration_s"]).to_pylist()
+    out = []
+    for kind, channel in sorted({(r["kind"], r["channel"]) for r in rows}, key=lambda k: (k[0], k[1] or "")):
+        mine = [r for r in rows if r["kind"] == kind and r["channel"] == channel]
+        depths = [r["depth_pct"] for r in mine if r["depth_pct"] is not None]
+        durations = [r["duration_s"] for r in mine if r["duration_s"] is not None]
+        worst = max(mine, key=lambda r: r["depth_pct"] if r["depth_pct"] is not None else -np.inf)
+        out.append(KindStats(kind, channel, len(mine), max(depths) if depths else None,
+                             worst["value"] if depths else None, max(durations) if durations else None))
+    return out
+
+
+def _total_s(events: pa.Table | None, kinds: str | tuple[str, ...], channel: str | None = None) -> float:
+    if events is None or events.num_rows == 0:
+        return 0.0
+    kinds = (kinds,) if isinstance(kinds, str) else kinds
+    total = 0.0
+    for row in events.select(["kind", "channel", "duration_s"]).to_pylist():
+        if row["kind"] in kinds and (channel is None or row["channel"] == channel) and row["duration_s"]:
+            total += row["duration_s"]
+    return total
+
+
+def _calibration_text(entry: dict[str, Any] | None) -> str:
+    if not entry:
+        return "not recorded"
+    profile = entry.get("profile")
+    if profile is None:
+        return str(entry.get("scaling", "rig file scaling"))
+    where = entry.get("profile_path") or entry.get("by", "")
+    return (f"{profile.get('model')} profile{' ' + where if where else ''}, {len(profile.get('points', []))} "
+            f"points, made {str(profile.get('created', ''))[:10]}")

@@ -1,0 +1,81 @@
+"""A run's summary and an event's samples as plain text for the terminal (Markdown tables, so the same text
+reads well in a report)."""
+
+from __future__ import annotations
+
+from datetime import datetime
+
+import pyarrow as pa
+
+from logger.review.summary import Summary
+from logger.review.window import Window
+
+
+def _g(value: float | None, digits: int = 4) -> str:
+    return "-" if value is None or value != value else f"{value:.{digits}g}"
+
+
+def _duration(seconds: float) -> str:
+    whole = int(seconds)
+    clock = f"{whole // 3600}:{whole // 60 % 60:02d}:{whole % 60:02d}"
+    return clock + (f" ({seconds:.1f} s)" if seconds < 3600 else "")
+
+
+def summary_text(s: Summary) -> str:
+    """Everything a summary holds, most useful first."""
+    link = s.link
+    lines = [
+        f"run {s.folder.name}: {s.status}, {s.stop_reason}",
+        f"from {s.start_utc} to {s.end_utc}: {_duration(s.duration_s)}, {s.samples:,} samples"
+        + (f" at {link['rate_hz']:g} Hz" if link.get("rate_hz") else ""),
+        f"gaps: {s.gaps} (frame gaps and link outages), {s.gap_s:.3f} s in all"
+        + (f"; link: {link.get('lost', 0):,} frames lost, {link.get('rejected', 0):,} lines rejected, "
+           f"{link.get('resets', 0)} device resets, {link.get('reconnects', 0)} reconnects" if link else ""),
+        f"device clock drift: {_g(link.get('drift_ppm'), 3)} ppm" if link.get("drift_ppm") is not None
+        else "device clock drift: not measured",
+        f"figures from the {s.source}",
+        "",
+        "| channel | unit | min | mean | max | std | ripple p-p (typical / worst) | ripple RMS (typical / worst) "
+        "| below threshold | above |",
+        "|---|---|---|---|---|---|---|---|---|---|",
+    ]
+    for c in s.channels:
+        lines.append(
+            f"| {c.name} | {c.unit} | {_g(c.minimum)} | {_g(c.mean, 6)} | {_g(c.maximum)} | {_g(c.std, 3)} "
+            f"| {_g(c.ripple_pp[0], 3)} / {_g(c.ripple_pp[1], 3)} | {_g(c.ripple_rms[0], 3)} / "
+            f"{_g(c.ripple_rms[1], 3)} | {c.below_s:.3f} s | {c.above_s:.3f} s |")
+    if s.rails:
+        lines += ["", "| rail | charge | energy |", "|---|---|---|"]
+        lines += [f"| {r.rail} | {r.charge_ah:.6g} Ah | {r.energy_wh:.6g} Wh |" for r in s.rails]
+    lines += ["", "| event | channel | count | worst depth | worst value | longest |", "|---|---|---|---|---|---|"]
+    lines += [f"| {k.kind} | {k.channel or '-'} | {k.count} | "
+              f"{'-' if k.worst_depth_pct is None else f'{k.worst_depth_pct:.1f} %'} | {_g(k.worst_value)} | "
+              f"{'-' if k.longest_s is None else f'{k.longest_s:.3f} s'} |" for k in s.events]
+    if not s.events:
+        lines.append("| (none) | | | | | |")
+    lines += ["", "calibration: " + "; ".join(f"{c}: {text}" for c, text in s.calibration.items())]
+    return "\n".join(lines)
+
+
+def window_text(w: Window, most_rows: int = 40) -> str:
+    """An event's details and its samples, thinned evenly to at most ``most_rows`` rows (the plot and the
+    export have them all)."""
+    lines = []
+    e = w.event
+    if e is not None:
+        lasted = f", {e['duration_s']:.3f} s" if e.get("duration_s") is not None else ""
+        lines.append(f"event #{e['id']}: {e['kind']} on {e['channel'] or 'the link'} at {_t(e['start'])}{lasted}: "
+                     f"{e['detail']}")
+    table = w.samples
+    lines.append(f"{table.num_rows:,} samples from {_t(w.start)} to {_t(w.end)}"
+                 + (f" (every {max(1, table.num_rows // most_rows)}th shown)" if table.num_rows > most_rows else ""))
+    step = max(1, table.num_rows // most_rows)
+    rows = table.take(pa.array(range(0, table.num_rows, step))).to_pylist() if table.num_rows else []
+    names = [n for n in table.column_names if n != "utc"]
+    lines += ["", "| utc | " + " | ".join(names) + " |", "|---" * (len(names) + 1) + "|"]
+    lines += ["| " + _t(r["utc"]) + " | " + " | ".join(f"{r[n]:.5g}" for n in names) + " |" for r in rows]
+    return "\n".join(lines)
+
+
+def _t(value: datetime) -> str:
+    return value.strftime("%Y-%m-%d %H:%M:%S.%f")[:-3]
