@@ -552,6 +552,11 @@ class Pipeline:
             raise ValueError(f"{channel} is not an amps channel; only current channels are zeroed")
         self._zero_requests.append(channel)
 
+    def send(self, command: str) -> None:
+        """Send a host command (``?H``, ``?P token``, ``!R hz``) to the device; its answer comes back in
+        ``answers``. A lost link just drops it (the next read reports the loss)."""
+        self._send(encode_line(command))
+
     def use_profile(self, channel: str, profile: Profile) -> None:
         """Calibrate ``channel`` with ``profile`` from the next batch on (noted in the event list); raw counts
         are kept, so a recording can be calibrated again afterwards whatever was used live."""

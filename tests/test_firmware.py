@@ -416,11 +416,11 @@ def test_firmware_in_the_emulator_is_recorded_whole(emulator: Emulator, tmp_path
         emulator.cont()
         frames = lambda: pipeline.decoder.counters.frames  # noqa: E731
         _wait_for(lambda: frames() >= 1100, "sent 1100 sample sets")
-        pipeline.source.write(encode_line("?P tap7"))
+        pipeline.send("?P tap7")
         _wait_for(_answered(pipeline, "pong", "tap7"), "answered ?P tap7")
         pipeline.source.write(b"?H*0000\n")  # a wrong CRC
         _wait_for(_answered(pipeline, "err", "crc"), "answered a bad CRC")
-        pipeline.source.write(encode_line("!R 50000"))
+        pipeline.send("!R 50000")
         _wait_for(_answered(pipeline, "err", "rate"), "refused 50000 Hz")
         pipeline.source.write(encode_line("!R 500"))
         _wait_for(_answered(pipeline, "rate", "500"), "accepted 500 Hz")
