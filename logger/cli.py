@@ -20,6 +20,7 @@ from logger.live import Snapshot
 from logger.pipeline import Pipeline, Settings
 from logger.plan import PlanError, add_plan_command
 from logger.recording import use_lean_allocator
+from logger.review.command import add_review_commands
 from logger.rig import Rig, RigError, demo_rig_text, load_rig
 from logger.sim.spec import ScenarioError
 from logger.sources.base import Source, SourceError
@@ -132,6 +133,7 @@ def _parser() -> argparse.ArgumentParser:
     check.set_defaults(run=cmd_rig_check)
 
     add_plan_command(sub)
+    add_review_commands(sub)
     return p
 
 

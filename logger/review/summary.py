@@ -20,6 +20,7 @@ import numpy as np
 import pyarrow as pa
 import pyarrow.parquet as pq
 
+from logger.rig import RigError, parse_rig
 from logger.store.files import StoreError, read_run_json
 from logger.store.layout import EVENTS_PARQUET, parts_in
 from logger.store.rollup import Pair, last_sample, pairs_of, read_rollups, rollup_part
@@ -89,7 +90,7 @@ def summarize(folder: Path, *, full: bool = False, progress: Callable[[int, int]
     meta = read_run_json(folder)
     if not parts_in(folder):
         raise StoreError(f"{folder}: no sealed parts; if the run was cut short, run `railtap recover {folder}`")
-    pairs = pairs_of(meta)
+    pairs = pairs_of(meta) or _pairs_from_rig(meta)
     table = _full_scan(folder, pairs, progress) if full else read_rollups(folder, pairs)
     events = pq.read_table(folder / EVENTS_PARQUET) if (folder / EVENTS_PARQUET).exists() else None
     units = {c["name"]: c.get("unit", "") for c in meta.get("channels_info", [])}
@@ -111,6 +112,15 @@ def summarize(folder: Path, *, full: bool = False, progress: Callable[[int, int]
         link=meta.get("link", {}),
         source="full-rate scan" if full else "per-second rollups",
     )
+
+
+def _pairs_from_rig(meta: dict[str, Any]) -> list[Pair]:
+    """Volts/amps pairs from the rig kept in ``_run.json``, for runs recorded before the pairs were kept."""
+    try:
+        rig = parse_rig(meta.get("rig") or "", "the rig kept in _run.json", profiles=False)
+    except RigError:
+        return []
+    return [Pair(p.rail, rig.channels[p.volts].name, rig.channels[p.amps].name) for p in rig.power_pairs()]
 
 
 def _seconds_between(first: str | None, last: str | None) -> float:
@@ -198,6 +208,6 @@ def _calibration_text(entry: dict[str, Any] | None) -> str:
     profile = entry.get("profile")
     if profile is None:
         return str(entry.get("scaling", "rig file scaling"))
-    where = entry.get("profile_path") or entry.get("by", "")
+    where = entry.get("profile_path") or (f"applied by {entry['by']}" if entry.get("by") else "")
     return (f"{profile.get('model')} profile{' ' + where if where else ''}, {len(profile.get('points', []))} "
             f"points, made {str(profile.get('created', ''))[:10]}")

@@ -4,11 +4,14 @@ reads well in a report)."""
 from __future__ import annotations
 
 from datetime import datetime
+from pathlib import Path
 
 import pyarrow as pa
+import pyarrow.parquet as pq
 
 from logger.review.summary import Summary
 from logger.review.window import Window
+from logger.store.layout import EVENTS_PARQUET
 
 
 def _g(value: float | None, digits: int = 4) -> str:
@@ -68,7 +71,7 @@ def window_text(w: Window, most_rows: int = 40) -> str:
                      f"{e['detail']}")
     table = w.samples
     lines.append(f"{table.num_rows:,} samples from {_t(w.start)} to {_t(w.end)}"
-                 + (f" (every {max(1, table.num_rows // most_rows)}th shown)" if table.num_rows > most_rows else ""))
+                 + (f" (one in {max(1, table.num_rows // most_rows)} shown)" if table.num_rows > most_rows else ""))
     step = max(1, table.num_rows // most_rows)
     rows = table.take(pa.array(range(0, table.num_rows, step))).to_pylist() if table.num_rows else []
     names = [n for n in table.column_names if n != "utc"]
@@ -79,3 +82,16 @@ def window_text(w: Window, most_rows: int = 40) -> str:
 
 def _t(value: datetime) -> str:
     return value.strftime("%Y-%m-%d %H:%M:%S.%f")[:-3]
+
+
+def events_text(folder: Path) -> str:
+    """Every event of a run, in order, as a table (``review --event N`` shows the samples around one)."""
+    path = folder / EVENTS_PARQUET
+    rows = pq.read_table(path).to_pylist() if path.exists() else []
+    lines = ["| # | kind | channel | start (UTC) | lasted | value | depth | detail |", "|---" * 8 + "|"]
+    for e in rows:
+        lasted = "-" if e["duration_s"] is None else f"{e['duration_s']:.3f} s"
+        depth = "-" if e["depth_pct"] is None else f"{e['depth_pct']:.1f} %"
+        lines.append(f"| {e['id']} | {e['kind']} | {e['channel'] or '-'} | {_t(e['start'])} | {lasted} | "
+                     f"{_g(e['value'])} | {depth} | {e['detail']} |")
+    return "\n".join(lines)

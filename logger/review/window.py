@@ -60,7 +60,7 @@ def event_row(folder: Path, event_id: int) -> dict[str, Any]:
     if not rows:
         count = pq.read_metadata(path).num_rows
         raise StoreError(f"{folder}: no event #{event_id} (the run has events #1 to #{count}); "
-                         f"`railtap review {folder}` lists them")
+                         f"`railtap review {folder} --events` lists them")
     return rows[0]
 
 

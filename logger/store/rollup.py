@@ -139,11 +139,12 @@ class RollupQueue:
 
 def read_rollups(folder: Path, pairs: list[Pair]) -> pa.Table:
     """Every part's rollup, in order; those missing (an older run, a crash between sealing a part and
-    writing its rollup) are written first."""
+    writing its rollup) or lacking a rail asked for are written first."""
     tables = []
+    wanted = {f"{p.rail}_w_int" for p in pairs}
     for index, _ in parts_in(folder):
         path = folder / rollup_name(index)
-        if not path.exists():
+        if not path.exists() or not wanted <= set(pq.read_schema(path).names):
             write_rollup(folder, index, pairs)
         tables.append(pq.read_table(path))
     return pa.concat_tables(tables) if tables else pa.table({})

@@ -1,0 +1,129 @@
+"""Samples out of a run for other tools: CSV or JSON lines, for a stretch of time and some channels.
+
+Streamed batch by batch from a filtered dataset scan, so a day-long run exports in bounded memory; written
+under a temporary name and renamed at the end, so an interrupted export leaves no half file behind.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import re
+from collections.abc import Callable
+from datetime import UTC, datetime, timedelta
+from pathlib import Path
+
+import pyarrow as pa
+import pyarrow.compute as pc
+import pyarrow.csv as pacsv
+import pyarrow.dataset as ds
+
+from logger.review.window import run_channels
+from logger.store.files import StoreError, read_run_json
+
+FORMATS = ("csv", "jsonl")
+_OFFSET = re.compile(r"^\+?(\d+(?:\.\d+)?)(ms|s|min|m|h)$")
+_UNIT_S = {"ms": 1e-3, "s": 1.0, "min": 60.0, "m": 60.0, "h": 3600.0}
+
+
+def parse_when(text: str, run_start: datetime) -> datetime:
+    """A time on the command line: an offset from the run's first sample (``90s``, ``+10m``, ``1.5h``) or
+    an ISO date-time (local time when it has no zone)."""
+    match = _OFFSET.match(text.strip())
+    if match:
+        return run_start + timedelta(seconds=float(match.group(1)) * _UNIT_S[match.group(2)])
+    try:
+        when = datetime.fromisoformat(text)
+    except ValueError:
+        raise StoreError(f"{text!r}: expected an offset from the run's start (90s, 10m, 1.5h) or a date-time "
+                         "(2026-12-01T22:15:00)") from None
+    return when.astimezone(UTC) if when.tzinfo is None else when
+
+
+def run_start(folder: Path) -> datetime:
+    """The run's first sample time (its first part's), or its start time."""
+    meta = read_run_json(folder)
+    parts = meta.get("parts") or [{}]
+    text = parts[0].get("first_utc") or meta.get("start_utc")
+    if not text:
+        raise StoreError(f"{folder}: the run has no start time in _run.json")
+    return datetime.fromisoformat(text)
+
+
+def export_samples(
+    folder: Path,
+    path: Path,
+    *,
+    start: datetime | None = None,
+    end: datetime | None = None,
+    channels: list[str] | None = None,
+    counts: bool = False,
+    progress: Callable[[int, int], None] | None = None,
+) -> int:
+    """Write ``utc`` and the chosen channels (and their raw counts, with ``counts``) between ``start`` and
+    ``end`` to ``path``, as CSV or JSON lines by its suffix; returns the rows written."""
+    fmt = path.suffix.lstrip(".").lower()
+    if fmt not in FORMATS:
+        raise StoreError(f"{path}: say .csv or .jsonl, the format is taken from the name")
+    data = ds.dataset(folder, format="parquet")
+    names = run_channels(data.schema)
+    chosen = channels or names
+    unknown = [c for c in chosen if c not in names]
+    if unknown:
+        raise StoreError(f"{folder}: no channel {unknown[0]!r} (it has {', '.join(names)})")
+    columns = ["utc", *[c for name in chosen for c in ((name, f"{name}_counts") if counts else (name,))]]
+    scanner = data.scanner(columns=columns, filter=_between(data.schema, start, end))
+    total = data.count_rows() if progress is not None else 0
+    tmp = path.with_name(f".{path.name}.part")
+    try:
+        rows = _write(scanner, tmp, fmt, total, progress)
+        os.replace(tmp, path)
+    finally:
+        tmp.unlink(missing_ok=True)
+    return rows
+
+
+def _between(schema: pa.Schema, start: datetime | None, end: datetime | None) -> pc.Expression | None:
+    kind = schema.field("utc").type
+    parts = []
+    if start is not None:
+        parts.append(pc.field("utc") >= pa.scalar(start, kind))
+    if end is not None:
+        parts.append(pc.field("utc") <= pa.scalar(end, kind))
+    if not parts:
+        return None
+    return parts[0] if len(parts) == 1 else parts[0] & parts[1]
+
+
+def _write(scanner: ds.Scanner, tmp: Path, fmt: str, total: int, progress: Callable[[int, int], None] | None) -> int:
+    rows = 0
+    with open(tmp, "wb") as handle:
+        writer = None
+        for batch in scanner.to_batches():
+            if batch.num_rows == 0:
+                continue
+            if fmt == "csv":
+                writer = writer or pacsv.CSVWriter(handle, batch.schema)
+                writer.write_batch(batch)
+            else:
+                handle.write(_json_lines(batch))
+            rows += batch.num_rows
+            if progress is not None:
+                progress(rows, total)
+        if writer is not None:
+            writer.close()
+        handle.flush()
+        os.fsync(handle.fileno())
+    return rows
+
+
+def _json_lines(batch: pa.RecordBatch) -> bytes:
+    """One JSON object per row; times as ISO 8601 UTC text, values as numbers written as Arrow writes them
+    (the shortest text that reads back as the same float32, as in the CSV)."""
+    utc = pc.strftime(batch.column("utc"), format="%Y-%m-%dT%H:%M:%SZ").to_pylist()
+    names = [n for n in batch.schema.names if n != "utc"]
+    keys = [json.dumps(n) for n in names]
+    cols = [pc.cast(batch.column(n), pa.string()).to_pylist() for n in names]
+    lines = ['{"utc": "' + t + '", ' + ", ".join(f"{k}: {v}" for k, v in zip(keys, row, strict=True)) + "}"
+             for t, *row in zip(utc, *cols, strict=True)]
+    return ("\n".join(lines) + "\n").encode()
