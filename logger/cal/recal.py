@@ -33,7 +33,7 @@ from logger.store.episodes import link_episodes
 from logger.store.files import RunLock, StoreError, fsync_dir, read_run_json, to_json, write_json_atomic
 from logger.store.layout import parts_in
 from logger.store.meta import start_part
-from logger.store.rollup import pairs_of, write_rollup
+from logger.store.rollup import gap_limit_us, pairs_of, write_rollup
 from logger.store.schema import channels_of, event_schema
 from logger.store.seal import RUN_KEY, event_parquet_options, row_group_rows, sample_parquet_options
 from logger.wire import DeviceHeader
@@ -71,7 +71,7 @@ def recalibrate(folder: Path, profiles: list[Profile], progress: Callable[[str],
             os.replace(temp, target)
         fsync_dir(folder)
         for index, _ in parts_in(folder):  # the per-second rollups follow the new values
-            write_rollup(folder, index, pairs_of(meta))
+            write_rollup(folder, index, pairs_of(meta), gap_limit_us(meta))
         link_episodes(folder / EVENTS)
         new_meta["events"] = pq.ParquetFile(folder / EVENTS).metadata.num_rows
         write_json_atomic(folder / "_run.json", new_meta)

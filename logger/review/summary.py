@@ -23,7 +23,7 @@ import pyarrow.parquet as pq
 from logger.rig import RigError, parse_rig
 from logger.store.files import StoreError, read_run_json
 from logger.store.layout import EVENTS_PARQUET, parts_in
-from logger.store.rollup import Pair, last_sample, pairs_of, read_rollups, rollup_part
+from logger.store.rollup import Pair, gap_limit_us, last_sample, pairs_of, read_rollups, rollup_part
 
 GAP_KINDS = ("frame_gap", "link_lost")
 
@@ -91,7 +91,8 @@ def summarize(folder: Path, *, full: bool = False, progress: Callable[[int, int]
     if not parts_in(folder):
         raise StoreError(f"{folder}: no sealed parts; if the run was cut short, run `railtap recover {folder}`")
     pairs = pairs_of(meta) or _pairs_from_rig(meta)
-    table = _full_scan(folder, pairs, progress) if full else read_rollups(folder, pairs)
+    limit = gap_limit_us(meta)
+    table = _full_scan(folder, pairs, limit, progress) if full else read_rollups(folder, pairs, limit)
     events = pq.read_table(folder / EVENTS_PARQUET) if (folder / EVENTS_PARQUET).exists() else None
     units = {c["name"]: c.get("unit", "") for c in meta.get("channels_info", [])}
     channels = [n for n in units if f"{n}_int" in table.column_names] or _channels_in(table)
@@ -129,12 +130,13 @@ def _seconds_between(first: str | None, last: str | None) -> float:
     return (datetime.fromisoformat(last) - datetime.fromisoformat(first)).total_seconds()
 
 
-def _full_scan(folder: Path, pairs: list[Pair], progress: Callable[[int, int], None] | None) -> pa.Table:
+def _full_scan(folder: Path, pairs: list[Pair], limit_us: int,
+               progress: Callable[[int, int], None] | None) -> pa.Table:
     """The rollup rows again, from every sample of every part (carrying each part's last sample on)."""
     parts = parts_in(folder)
     tables, carry = [], None
     for n, (_, part) in enumerate(parts, start=1):
-        tables.append(rollup_part(part, pairs, carry))
+        tables.append(rollup_part(part, pairs, carry, limit_us))
         carry = last_sample(part)
         if progress is not None:
             progress(n, len(parts))

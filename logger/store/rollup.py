@@ -9,15 +9,17 @@ is sealed (and by recovery, and by a reader that finds one missing). One row per
 * per volts/amps pair of one rail ``<rail>_w_int``, the time integral of volts x amps (joules).
 
 Integrals use the trapezoid rule on the samples' own timestamps; each interval between two samples belongs to
-the second its first sample is in, and an interval longer than ``MAX_STEP_US`` (a lost link) is left out, as the
-live counters do. The interval from a part's last sample to the next part's first is counted in the next part,
-so the rollups of a run sum to exactly the full-rate integral.
+the second its first sample is in, and an interval longer than 20 sample periods and at least a second (a lost
+link: :func:`gap_limit_us`) is left out, as the live counters do. The interval from a part's last sample to
+the next part's first is counted in the next part, so the rollups of a run sum to exactly the full-rate
+integral.
 """
 
 from __future__ import annotations
 
 import contextlib
 import os
+import re
 import threading
 from concurrent.futures import Future, ThreadPoolExecutor
 from dataclasses import dataclass
@@ -48,6 +50,15 @@ class Pair:
     amps: str
 
 
+def gap_limit_us(metadata: dict[str, Any]) -> int:
+    """The longest step between samples that is integrated across: 20 sample periods, at least a second."""
+    rate = (metadata.get("link") or {}).get("rate_hz")
+    if not rate and metadata.get("device_header"):
+        match = re.search(r"rate_hz=([0-9.]+)", str(metadata["device_header"]))
+        rate = float(match.group(1)) if match else None
+    return max(MAX_STEP_US, round(20e6 / rate)) if rate else MAX_STEP_US
+
+
 def rollup_name(index: int) -> str:
     return f"_rollup-{index:05d}.parquet"
 
@@ -64,12 +75,13 @@ def rollup_schema(channels: list[str], pairs: list[Pair]) -> pa.Schema:
     return pa.schema(fields)
 
 
-def rollup_part(part: Path, pairs: list[Pair], carry: tuple[int, np.ndarray] | None = None) -> pa.Table:
+def rollup_part(part: Path, pairs: list[Pair], carry: tuple[int, np.ndarray] | None = None,
+                max_step_us: int = MAX_STEP_US) -> pa.Table:
     """The per-second rollup of one sealed part, streamed row group by row group. ``carry`` is the last
     sample (UTC µs, values) of the part before, whose interval to this part's first sample counts here."""
     source = pq.ParquetFile(part)
     channels = channels_of(source.schema_arrow)
-    builder = _Builder(channels, pairs, carry)
+    builder = _Builder(channels, pairs, carry, max_step_us)
     for batch in source.iter_batches(columns=["utc", *channels]):
         utc = as_numpy(batch.column("utc"), np.int64)
         values = np.column_stack([as_numpy(batch.column(c), np.float32) for c in channels]).astype(np.float64)
@@ -89,12 +101,12 @@ def last_sample(part: Path) -> tuple[int, np.ndarray] | None:
     return utc, np.array([float(row.column(c)[0].as_py()) for c in channels])
 
 
-def write_rollup(folder: Path, index: int, pairs: list[Pair]) -> Path:
+def write_rollup(folder: Path, index: int, pairs: list[Pair], max_step_us: int = MAX_STEP_US) -> Path:
     """Write the rollup of part ``index`` (carrying the previous part's last sample), atomically."""
     parts = dict(parts_in(folder))
     before = [i for i in parts if i < index]
     carry = last_sample(parts[max(before)]) if before else None
-    table = rollup_part(parts[index], pairs, carry)
+    table = rollup_part(parts[index], pairs, carry, max_step_us)
     target = folder / rollup_name(index)
     tmp = temp_name(target)
     try:
@@ -112,9 +124,10 @@ class RollupQueue:
     """Writes rollups of freshly sealed parts on a thread of its own, one at a time, so the recorder goes
     straight back to the journal; a rollup that fails is left to be rebuilt when it is first read."""
 
-    def __init__(self, folder: Path, pairs: list[Pair]) -> None:
+    def __init__(self, folder: Path, pairs: list[Pair], max_step_us: int = MAX_STEP_US) -> None:
         self.folder = folder
         self.pairs = pairs
+        self.max_step_us = max_step_us
         self._pool: ThreadPoolExecutor | None = None
         self._pending: list[Future[Path]] = []
         self._lock = threading.Lock()
@@ -123,7 +136,7 @@ class RollupQueue:
         with self._lock:
             if self._pool is None:
                 self._pool = ThreadPoolExecutor(max_workers=1, thread_name_prefix="railtap-rollup")
-            self._pending.append(self._pool.submit(write_rollup, self.folder, index, self.pairs))
+            self._pending.append(self._pool.submit(write_rollup, self.folder, index, self.pairs, self.max_step_us))
 
     def wait(self) -> None:
         """Until every queued rollup is written (or has failed: it is derived data, rebuilt on demand)."""
@@ -137,7 +150,7 @@ class RollupQueue:
             self._pool = None
 
 
-def read_rollups(folder: Path, pairs: list[Pair]) -> pa.Table:
+def read_rollups(folder: Path, pairs: list[Pair], max_step_us: int = MAX_STEP_US) -> pa.Table:
     """Every part's rollup, in order; those missing (an older run, a crash between sealing a part and
     writing its rollup) or lacking a rail asked for are written first."""
     tables = []
@@ -145,7 +158,7 @@ def read_rollups(folder: Path, pairs: list[Pair]) -> pa.Table:
     for index, _ in parts_in(folder):
         path = folder / rollup_name(index)
         if not path.exists() or not wanted <= set(pq.read_schema(path).names):
-            write_rollup(folder, index, pairs)
+            write_rollup(folder, index, pairs, max_step_us)
         tables.append(pq.read_table(path))
     return pa.concat_tables(tables) if tables else pa.table({})
 
@@ -153,7 +166,9 @@ def read_rollups(folder: Path, pairs: list[Pair]) -> pa.Table:
 class _Builder:
     """Streams (utc, values) batches in time order into per-second rows."""
 
-    def __init__(self, channels: list[str], pairs: list[Pair], carry: tuple[int, np.ndarray] | None) -> None:
+    def __init__(self, channels: list[str], pairs: list[Pair], carry: tuple[int, np.ndarray] | None,
+                 max_step_us: int = MAX_STEP_US) -> None:
+        self.max_step_us = max_step_us
         self.channels = channels
         self.pairs = pairs
         self.pair_cols = [(channels.index(p.volts), channels.index(p.amps)) for p in pairs]
@@ -187,7 +202,7 @@ class _Builder:
         both = np.hstack([values, power])
         dt = np.diff(utc).astype(np.float64)
         area = (both[1:] + both[:-1]) / 2 * dt[:, None] * 1e-6
-        ok = np.diff(utc) <= MAX_STEP_US
+        ok = np.diff(utc) <= self.max_step_us
         area[~ok] = 0.0
         covered = np.where(ok, dt * 1e-6, 0.0)
         # Interval i starts at sample i, so the intervals of a second start where its samples do; a zero row
@@ -209,7 +224,7 @@ class _Builder:
             return None
         t_prev, prev = self.carry
         step = t0 - t_prev
-        if step <= 0 or step > MAX_STEP_US:
+        if step <= 0 or step > self.max_step_us:
             return None
         prev_power = np.array([prev[v] * prev[a] for v, a in self.pair_cols])
         prev_both = np.r_[prev, prev_power]

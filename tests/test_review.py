@@ -1,0 +1,161 @@
+"""Reviewing a run: summary figures against outside references, event drill-down, export, a folder of runs."""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pyarrow as pa
+import pytest
+from scipy.integrate import trapezoid
+
+from logger.cli import main
+from logger.review.export import export_samples, parse_when, run_start
+from logger.review.runs import open_runs, summarize_runs
+from logger.review.summary import summarize
+from logger.review.window import around_event
+from logger.store import new_run, sample_schema
+from logger.store.files import StoreError
+from logger.store.schema import UTC_TYPE
+
+T0 = 1_800_000_000_000_000
+RIG = """name = "review-bench"
+[[channel]]
+name = "out_v"
+role = "volts"
+input = 0
+divider = 11.0
+nominal = 12.0
+[[channel]]
+name = "out_a"
+role = "amps"
+input = 1
+shunt_ohm = 0.01
+gain = 50.0
+"""
+
+
+def _write_run(root: Path, t_s: np.ndarray, volts: np.ndarray, amps: np.ndarray, rate_hz: float,
+               part_seconds: float = 3600.0, events: list[dict] | None = None) -> Path:
+    """A run folder made by railtap's own writer from given samples (counts are not used by the review)."""
+    meta = {"rig": RIG, "channels_info": [{"name": "out_v", "unit": "V"}, {"name": "out_a", "unit": "A"}],
+            "power_pairs": [{"rail": "out", "volts": "out_v", "amps": "out_a"}], "link": {"rate_hz": rate_hz}}
+    schema = sample_schema(["out_v", "out_a"])
+    writer = new_run(root, "review", schema, meta, part_seconds=part_seconds)
+    utc = T0 + np.round(np.asarray(t_s) * 1e6).astype(np.int64)
+    n = len(utc)
+    for rows in np.array_split(np.arange(n), max(1, n // 50_000)):
+        writer.append(pa.record_batch([
+            pa.array(utc[rows], pa.int64()).cast(UTC_TYPE), pa.array(rows, pa.int64()), pa.array(rows, pa.int64()),
+            pa.array(np.asarray(volts, np.float32)[rows]), pa.array(np.zeros(len(rows), np.uint16)),
+            pa.array(np.asarray(amps, np.float32)[rows]), pa.array(np.zeros(len(rows), np.uint16)),
+        ], schema=schema))
+    for event in events or []:
+        writer.add_event(event)
+    writer.close("test data written")
+    return writer.folder
+
+
+def test_charge_on_uneven_timestamps_matches_scipy(tmp_path: Path) -> None:
+    t = np.array([0.0, 1.0, 2.0, 4.0, 5.0, 10.0])
+    amps = np.array([1.0, 1.0, 2.0, 2.0, 0.0, 0.0])
+    run = _write_run(tmp_path, t, np.full(6, 12.0), amps, rate_hz=0.5)
+    for full in (False, True):
+        s = summarize(run, full=full)
+        out_a = next(c for c in s.channels if c.name == "out_a")
+        # Reference: scipy.integrate.trapezoid on the same arrays; 7.5 A s by hand (trapezoid rule).
+        assert out_a.integral == pytest.approx(trapezoid(amps, t)) == pytest.approx(7.5)
+        assert s.rails[0].charge_ah == pytest.approx(7.5 / 3600)
+        assert s.rails[0].energy_wh == pytest.approx(12.0 * 7.5 / 3600)
+
+
+def test_a_2_ah_cell_at_0_2_it_for_5_hours_gives_2_ah(tmp_path: Path) -> None:
+    # IEC 61960-3 rated capacity: discharge at 0.2 It, here 0.4 A for a 2.0 Ah cell, for 5 h (value from
+    # memory); one sample a second, in five one-hour parts, so the interval between parts counts too.
+    t = np.arange(0, 5 * 3600 + 1, 1.0)
+    volts = np.linspace(4.1, 3.0, len(t))
+    run = _write_run(tmp_path, t, volts, np.full(len(t), 0.4), rate_hz=1.0)
+    s = summarize(run)
+    assert len(list(run.glob("part-*.parquet"))) >= 5
+    assert s.rails[0].charge_ah == pytest.approx(2.000, abs=1e-6)  # values are stored as float32: 0.4 + 6e-9
+    stored = volts.astype(np.float32).astype(np.float64) * np.float64(np.float32(0.4))
+    assert s.rails[0].energy_wh == pytest.approx(trapezoid(stored, t) / 3600, rel=1e-9)
+
+
+def test_ripple_of_a_sine_is_its_peak_to_peak_and_a_over_root_two(tmp_path: Path) -> None:
+    # A sine of amplitude A has RMS A / sqrt(2) and peak-to-peak 2 A (common fact of the trade). Sampled at
+    # 2 kHz, a 100 Hz sine is hit at its peaks and every second holds whole cycles, so both are exact.
+    a = 0.05
+    t = np.arange(0, 10.0, 1 / 2000)
+    volts = 12.0 + a * np.sin(2 * np.pi * 100 * t)
+    s = summarize(_write_run(tmp_path, t, volts, np.ones(len(t)), rate_hz=2000.0))
+    out_v = next(c for c in s.channels if c.name == "out_v")
+    assert out_v.ripple_rms[0] == pytest.approx(a / np.sqrt(2), rel=1e-4)
+    assert out_v.ripple_pp[0] == pytest.approx(2 * a, rel=1e-4)
+    assert out_v.mean == pytest.approx(12.0, abs=1e-6) and out_v.std == pytest.approx(a / np.sqrt(2), rel=1e-3)
+
+
+def test_summary_events_agree_with_the_simulator_truth(tmp_path: Path) -> None:
+    """The simple simulated rail dips to 9.5 V for 0.4 s at 30 s and drops to 0.3 V for 0.15 s at 50 s."""
+    from logger.pipeline import Pipeline, Settings
+    from logger.sim.device import SimDevice
+    from logger.sim.simple import DEFAULT_SCRIPT, simple_rig
+    from logger.sources.simulated import SimSource
+
+    pipeline = Pipeline(SimSource(SimDevice(seed=5), speed=0.0, duration_s=65.0), simple_rig(),
+                        Settings(record_root=tmp_path))
+    pipeline.start()
+    assert pipeline.wait(60)
+    (run,) = tmp_path.iterdir()
+    s = summarize(run)
+    kinds = {k.kind: k for k in s.events if k.channel == "out_v"}
+    sag, drop = DEFAULT_SCRIPT
+    assert kinds["brownout"].count == 1 and kinds["dropout"].count == 1
+    assert kinds["brownout"].longest_s == pytest.approx(sag.duration_s, abs=0.005)
+    assert kinds["dropout"].longest_s == pytest.approx(drop.duration_s, abs=0.005)
+    assert kinds["brownout"].worst_value == pytest.approx(sag.level_v, abs=0.1)
+    out_v = next(c for c in s.channels if c.name == "out_v")
+    assert out_v.below_s == pytest.approx(sag.duration_s + drop.duration_s, abs=0.01)
+    full = summarize(run, full=True)
+    assert full.rails[0].energy_wh == pytest.approx(s.rails[0].energy_wh, rel=1e-12)
+    assert full.channels[0].std == pytest.approx(s.channels[0].std, rel=1e-9)
+
+
+def test_event_window_export_and_a_folder_of_runs(tmp_path: Path, capsys) -> None:
+    t = np.arange(0, 20.0, 1 / 1000)
+    volts = np.where((t > 10.0) & (t < 10.2), 9.0, 12.0)
+    dip = {"kind": "brownout", "channel": "out_v", "start": T0 + 10_000_000, "end": T0 + 10_200_000,
+           "duration_s": 0.2, "value": 9.0, "depth_pct": 25.0, "detail": "down to 9 V", "id": 1}
+    run = _write_run(tmp_path, t, volts, np.ones(len(t)), rate_hz=1000.0, events=[dip])
+    w = around_event(run, 1, before_s=0.5, after_s=0.25)
+    got = w.samples["utc"].cast(pa.int64()).to_numpy()
+    assert w.samples.column_names == ["utc", "out_v"]
+    assert got.min() == T0 + 9_500_000 and got.max() == T0 + 10_450_000 and len(got) == 951
+    first = run_start(run)
+    out = tmp_path / "span.csv"
+    assert export_samples(run, out, start=parse_when("5s", first), end=parse_when("6s", first)) == 1001
+    table = pd.read_csv(out)
+    assert list(table.columns) == ["utc", "out_v", "out_a"] and table["out_v"].eq(12.0).all()
+    lines = (tmp_path / "span.jsonl")
+    export_samples(run, lines, channels=["out_v"], start=parse_when("10.1s", first), end=parse_when("10.1s", first))
+    assert [json.loads(x) for x in lines.read_text().splitlines()] == [
+        {"utc": "2027-01-15T08:00:10.100000Z", "out_v": 9}]
+
+    def interrupted(done: int, total: int) -> None:
+        raise KeyboardInterrupt
+
+    with pytest.raises(KeyboardInterrupt):
+        export_samples(run, tmp_path / "cut.csv", progress=interrupted)
+    assert not list(tmp_path.glob("*cut.csv*"))  # no half file, no temporary left
+    second = _write_run(tmp_path, t, volts - 1.0, np.ones(len(t)), rate_hz=1000.0)
+    runs = open_runs(tmp_path)
+    lowest = runs.to_table(columns=["run", "out_v"]).group_by("run").aggregate([("out_v", "min")]).to_pylist()
+    assert sorted(r["out_v_min"] for r in lowest) == [8.0, 9.0]
+    assert {line.folder for line in summarize_runs(tmp_path)} == {run, second}
+    assert main(["review", str(tmp_path)]) == 0 and "review" in capsys.readouterr().out
+    assert main(["review", str(run), "--event", "1"]) == 0 and "event #1: brownout" in capsys.readouterr().out
+    assert main(["review", str(run), "--event", "7"]) == 2
+    with pytest.raises(StoreError, match="offset from the run's start"):
+        parse_when("yesterday", first)
