@@ -1,0 +1,146 @@
+"""What every chart of a run shares, whether drawn as a PNG or in the terminal: each channel's thresholds and
+unit, how an event kind is shown, local time, and the folding of many rows into a fixed number of columns.
+
+Nothing here imports matplotlib; the PNG plots, the terminal chart and the report all build on it.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from datetime import UTC, datetime, timedelta, tzinfo
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pyarrow as pa
+import pyarrow.parquet as pq
+
+from logger.events.rules import rules_for
+from logger.rig import RigError, parse_rig
+from logger.store.files import read_run_json
+from logger.store.layout import EVENTS_PARQUET
+
+_EPOCH = datetime(1970, 1, 1, tzinfo=UTC)
+LINK_KINDS = ("frame_gap", "crc_burst", "link_lost", "device_reset")
+"""Events of the link between device and host, as opposed to events on a rail."""
+KIND_COLOURS = {
+    "brownout": "#d9822b", "dropout": "#b3261e", "overvoltage": "#7b3fa0", "overcurrent": "#a8327a",
+    "flicker": "#b89b00", "outside_cal": "#5f7f2a", "frame_gap": "#6b6b6b", "crc_burst": "#8a8a8a",
+    "link_lost": "#3d3d3d", "device_reset": "#3d3d3d", "mark": "#1b6f8a",
+}
+
+
+@dataclass(frozen=True)
+class Limits:
+    """A channel's unit and thresholds as drawn: signed, so a negative rail's lines sit below zero."""
+
+    unit: str
+    low: float | None = None
+    """Brownout threshold."""
+    high: float | None = None
+    """Overvoltage or overcurrent limit."""
+    high_kind: str = ""
+    negative: bool = False
+
+
+def run_limits(folder: Path) -> dict[str, Limits]:
+    """Each channel's unit and thresholds, from the rig the run recorded with (units only when that rig is
+    missing or unreadable: an old run still plots)."""
+    meta = read_run_json(folder)
+    units = {c["name"]: c.get("unit") or "" for c in meta.get("channels_info", [])}
+    try:
+        rig = parse_rig(meta.get("rig", ""), f"{folder.name} rig", profiles=False)
+    except (RigError, ValueError, TypeError):
+        return {name: Limits(unit) for name, unit in units.items()}
+    limits = {}
+    for ch in rig.channels:
+        rules = rules_for(ch)
+        sign = -1.0 if ch.negative or (ch.nominal or 0.0) < 0 else 1.0
+        high = rules.over_above if rules.over_above is not None else rules.current_above
+        limits[ch.name] = Limits(
+            unit=units.get(ch.name) or ch.unit or ("A" if ch.role == "amps" else "V"),
+            low=None if rules.dip_below is None else sign * rules.dip_below,
+            high=None if high is None else sign * high,
+            high_kind="overvoltage" if rules.over_above is not None else "overcurrent" if high else "",
+            negative=sign < 0)
+    return limits
+
+
+def events_of(folder: Path) -> list[dict[str, Any]]:
+    """The run's events as row dicts (kind, channel, start, end, duration_s, value, depth_pct, detail, id...)."""
+    path = folder / EVENTS_PARQUET
+    return pq.read_table(path).to_pylist() if path.exists() else []
+
+
+def kind_colour(kind: str) -> str:
+    return KIND_COLOURS.get(kind, "#555555")
+
+
+def is_link(event: dict[str, Any]) -> bool:
+    return event["kind"] in LINK_KINDS
+
+
+def local_zone() -> tzinfo:
+    """This computer's time zone as a fixed offset (the one in force now)."""
+    zone = datetime.now().astimezone().tzinfo
+    return zone if zone is not None else UTC
+
+
+def zone_text(zone: tzinfo) -> str:
+    offset = datetime.now(zone).strftime("%z")
+    return f"UTC{offset[:3]}:{offset[3:]}"
+
+
+def local_text(moment: datetime, digits: int = 3) -> str:
+    """A UTC moment as local wall-clock time with ``digits`` decimals of a second."""
+    aware = moment if moment.tzinfo is not None else moment.replace(tzinfo=UTC)
+    text = aware.astimezone(local_zone()).strftime("%Y-%m-%d %H:%M:%S.%f")
+    return text[: len(text) - 6 + digits] if digits else text[:-7]
+
+
+def to_us(moment: datetime) -> int:
+    """Microseconds since the epoch of a UTC moment."""
+    aware = moment if moment.tzinfo is not None else moment.replace(tzinfo=UTC)
+    return (aware - _EPOCH) // timedelta(microseconds=1)
+
+
+def from_us(us: int) -> datetime:
+    """The UTC moment ``us`` microseconds after the epoch."""
+    return _EPOCH + timedelta(microseconds=int(us))
+
+
+def utc_us(column: pa.ChunkedArray | pa.Array) -> np.ndarray:
+    """A timestamp[us] column as int64 microseconds since the epoch."""
+    return np.asarray(column.cast(pa.int64()).to_numpy(), dtype=np.int64)
+
+
+def event_label(event: dict[str, Any]) -> str:
+    """One line naming an event: ``#3 brownout on out_v at 2026-12-02 01:10:52.196, 0.400 s: down to ...``."""
+    lasted = f", {event['duration_s']:.3f} s" if event.get("duration_s") is not None else ""
+    detail = f": {event['detail']}" if event.get("detail") else ""
+    return (f"#{event['id']} {event['kind']} on {event['channel'] or 'the link'} at {local_text(event['start'])}"
+            f"{lasted}{detail}")
+
+
+def fold(t_us: np.ndarray, lo: np.ndarray, hi: np.ndarray, start_us: int, stop_us: int,
+         columns: int) -> tuple[np.ndarray, np.ndarray]:
+    """The lowest and highest value in each of ``columns`` equal slices of time from ``start_us`` to
+    ``stop_us``; a slice holding no rows is NaN (a gap, drawn as one)."""
+    width = max(stop_us - start_us, 1) / columns
+    index = np.clip(((t_us - start_us) / width).astype(np.int64), 0, columns - 1)
+    low, high = np.full(columns, np.nan), np.full(columns, np.nan)
+    np.fmin.at(low, index, lo)
+    np.fmax.at(high, index, hi)
+    return low, high
+
+
+def fold_mean(t_us: np.ndarray, mean: np.ndarray, count: np.ndarray, start_us: int, stop_us: int,
+              columns: int) -> np.ndarray:
+    """The count-weighted mean of each of ``columns`` equal slices of time (NaN where empty)."""
+    width = max(stop_us - start_us, 1) / columns
+    index = np.clip(((t_us - start_us) / width).astype(np.int64), 0, columns - 1)
+    have = count > 0
+    total = np.bincount(index[have], weights=(mean * count)[have], minlength=columns)
+    weight = np.bincount(index[have], weights=count[have], minlength=columns)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return np.where(weight > 0, total / weight, np.nan)
