@@ -8,6 +8,7 @@ which shares two channels with the first run and adds a third.
 
 from __future__ import annotations
 
+import re
 from pathlib import Path
 
 import numpy as np
@@ -175,3 +176,87 @@ def test_terminal_chart_refuses_a_size_too_small(runs: dict[str, Path]) -> None:
     with pytest.raises(StoreError, match="no channel 'nope'"):
         run_chart(runs["rail"], "nope")
 
+
+
+def test_report_markdown_has_the_summary_the_overview_and_the_worst_events(runs: dict[str, Path],
+                                                                          tmp_path: Path) -> None:
+    from logger.review.report import report_markdown, worst_events
+
+    run = runs["rail"]
+    worst = worst_events(run, 3)
+    assert [e["kind"] for e in worst] == ["dropout", "brownout", "link_lost"]  # deepest, then longest
+    report = report_markdown(run, tmp_path / "out", worst=3)
+    assert report == tmp_path / "out" / "report.md"
+    pictures = {"overview.png", *(f"event-{e['id']}.png" for e in worst)}
+    _only(tmp_path / "out", {"report.md", *pictures})
+    text = report.read_text(encoding="utf-8")
+    assert set(re.findall(r"!\[[^\]]*\]\(([^)]+)\)", text)) == pictures
+    for name in pictures:
+        _png_shape(tmp_path / "out" / name)
+    assert "## Every event" in text and text.count("| frame_gap |") == 2  # in the summary and in the list
+
+
+def test_report_html_is_one_self_contained_file_with_the_summary_numbers(runs: dict[str, Path],
+                                                                         tmp_path: Path) -> None:
+    import base64
+
+    from logger.review.report import report_html
+    from logger.review.summary import summarize
+
+    run = runs["split"]
+    page = report_html(run, tmp_path / "report.html").read_text(encoding="utf-8")
+    _only(tmp_path, {"report.html"})
+    sources = re.findall(r'src="([^"]*)"', page)
+    assert len(sources) == 3 and all(s.startswith("data:image/png;base64,") for s in sources)  # overview, 2 dips
+    assert all(base64.b64decode(s.split(",", 1)[1])[:8] == PNG_SIGNATURE for s in sources)
+    rest = re.sub(r"data:image/png;base64,[A-Za-z0-9+/=]+", "", page)
+    assert "http" not in rest and "url(" not in rest and "<link" not in rest and "<script" not in rest
+    summary = summarize(run)
+    assert f"{summary.samples:,} samples" in page
+    for c in summary.channels:
+        assert f"<td>{c.name}</td><td>{c.unit}</td><td>{c.minimum:.4g}</td><td>{c.mean:.6g}</td>" in page
+    for r in summary.rails:
+        assert f"<td>{r.rail}</td><td>{r.charge_ah:.6g} Ah</td><td>{r.energy_wh:.6g} Wh</td>" in page
+
+
+def test_markdown_headings_tables_and_text_become_escaped_html(tmp_path: Path) -> None:
+    from logger.review.report import markdown_html
+
+    text = "# Run x\n\nline one & more\n#2 is not a heading\n\n| a | b |\n|---|---|\n| 1 | <2> |\n"
+    assert markdown_html(text, tmp_path) == (
+        "<h1>Run x</h1>\n<p>line one &amp; more<br>\n#2 is not a heading</p>\n<table>\n"
+        "<thead><tr><th>a</th><th>b</th></tr></thead>\n<tbody>\n<tr><td>1</td><td>&lt;2&gt;</td></tr>\n"
+        "</tbody>\n</table>")
+
+
+def _rows(text: str) -> dict[tuple[str, str], list[str]]:
+    """The comparison's table rows keyed by their first two cells."""
+    rows = [[c.strip() for c in line.strip("|").split("|")] for line in text.splitlines() if line.startswith("| ")]
+    return {(r[0], r[1]): r[2:] for r in rows if len(r) == 5}
+
+
+def test_compare_shows_each_runs_own_summary_figures_and_b_minus_a(runs: dict[str, Path]) -> None:
+    from logger.review.compare import compare_text
+    from logger.review.summary import summarize
+
+    a, b = summarize(runs["rail"]), summarize(runs["bench"])
+    text = compare_text(runs["rail"], runs["bench"])
+    rows = _rows(text)
+    for name in ("out_v", "out_a"):
+        mine, theirs = (next(c for c in s.channels if c.name == name) for s in (a, b))
+        unit = f" ({mine.unit})"
+        for label, x, y in (("min", mine.minimum, theirs.minimum), ("mean", mine.mean, theirs.mean),
+                            ("max", mine.maximum, theirs.maximum), ("std", mine.std, theirs.std),
+                            ("ripple p-p, typical", mine.ripple_pp[0], theirs.ripple_pp[0])):
+            got = [float(v) for v in rows[(name, label + unit)]]
+            assert got[:2] == pytest.approx([x, y], rel=1e-5)
+            assert got[2] == pytest.approx(y - x, rel=1e-5, abs=1e-5 * max(abs(x), abs(y)))
+    (ra,), (rb,) = a.rails, b.rails
+    assert [float(v) for v in rows[("out", "energy (Wh)")][:2]] == pytest.approx([ra.energy_wh, rb.energy_wh],
+                                                                                 rel=1e-5)
+    assert rows[("brownout", "meter_v")] == ["0", "1", "+1"]
+    assert rows[("frame_gap", "-")] == ["1", "0", "-1"]
+    assert f"| samples | {a.samples:,} | {b.samples:,} | {b.samples - a.samples:+,} |" in text
+    assert "note: channels only run B has (not compared): meter_v" in text
+    backwards = _rows(compare_text(runs["bench"], runs["rail"]))
+    assert float(backwards[("out_v", "mean (V)")][2]) == -float(rows[("out_v", "mean (V)")][2])

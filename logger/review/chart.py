@@ -13,12 +13,14 @@ from typing import Any
 
 import numpy as np
 import pyarrow as pa
+import pyarrow.compute as pc
 import pyarrow.parquet as pq
 
 from logger.events.rules import rules_for
 from logger.rig import RigError, parse_rig
-from logger.store.files import read_run_json
-from logger.store.layout import EVENTS_PARQUET
+from logger.store.files import StoreError, read_run_json
+from logger.store.layout import EVENTS_PARQUET, parts_in
+from logger.store.rollup import Pair, gap_limit_us, pairs_of, read_rollups
 
 _EPOCH = datetime(1970, 1, 1, tzinfo=UTC)
 LINK_KINDS = ("frame_gap", "crc_burst", "link_lost", "device_reset")
@@ -64,6 +66,33 @@ def run_limits(folder: Path) -> dict[str, Limits]:
             high_kind="overvoltage" if rules.over_above is not None else "overcurrent" if high else "",
             negative=sign < 0)
     return limits
+
+
+def run_rollups(folder: Path) -> pa.Table:
+    """The run's per-second rollups, read with the rails and gap limit the summary uses, so a rollup rebuilt
+    here (a missing one is written on first read) is the very one the summary would have built. A run without
+    a single sample is refused."""
+    meta = read_run_json(folder)
+    if not parts_in(folder):
+        raise StoreError(f"{folder}: no sealed parts; if the run was cut short, run `railtap recover {folder}`")
+    rollups = read_rollups(folder, pairs_of(meta) or _rig_pairs(meta), gap_limit_us(meta))
+    if not rollups.num_rows or not pc.sum(rollups["count"]).as_py():
+        raise StoreError(f"{folder}: no samples were recorded; nothing to draw")
+    return rollups
+
+
+def _rig_pairs(meta: dict[str, Any]) -> list[Pair]:
+    """Volts/amps pairs from the rig kept in ``_run.json`` (runs recorded before the pairs were kept)."""
+    try:
+        rig = parse_rig(meta.get("rig") or "", "the rig kept in _run.json", profiles=False)
+    except RigError:
+        return []
+    return [Pair(p.rail, rig.channels[p.volts].name, rig.channels[p.amps].name) for p in rig.power_pairs()]
+
+
+def channel_names(rollups: pa.Table) -> list[str]:
+    """The channels a rollup table covers, in recorded order."""
+    return [name[: -len("_min")] for name in rollups.column_names if name.endswith("_min")]
 
 
 def events_of(folder: Path) -> list[dict[str, Any]]:
@@ -115,11 +144,11 @@ def utc_us(column: pa.ChunkedArray | pa.Array) -> np.ndarray:
 
 
 def event_label(event: dict[str, Any]) -> str:
-    """One line naming an event: ``#3 brownout on out_v at 2026-12-02 01:10:52.196, 0.400 s: down to ...``."""
+    """One line naming an event: ``#3 brownout on out_v at 2026-12-02 01:10:52.196 local time, 0.400 s: ...``."""
     lasted = f", {event['duration_s']:.3f} s" if event.get("duration_s") is not None else ""
     detail = f": {event['detail']}" if event.get("detail") else ""
-    return (f"#{event['id']} {event['kind']} on {event['channel'] or 'the link'} at {local_text(event['start'])}"
-            f"{lasted}{detail}")
+    where = event["channel"] or "the link"
+    return f"#{event['id']} {event['kind']} on {where} at {local_text(event['start'])} local time{lasted}{detail}"
 
 
 def fold(t_us: np.ndarray, lo: np.ndarray, hi: np.ndarray, start_us: int, stop_us: int,

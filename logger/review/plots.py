@@ -20,6 +20,7 @@ import pyarrow.parquet as pq
 
 from logger.review.chart import (
     Limits,
+    channel_names,
     event_label,
     events_of,
     fold,
@@ -30,14 +31,15 @@ from logger.review.chart import (
     local_text,
     local_zone,
     run_limits,
+    run_rollups,
     to_us,
     utc_us,
     zone_text,
 )
 from logger.review.window import Window
-from logger.store.files import StoreError, read_run_json
+from logger.store.files import StoreError
 from logger.store.layout import parts_in
-from logger.store.rollup import SECOND_US, pairs_of, read_rollups
+from logger.store.rollup import SECOND_US
 
 DPI = 100
 """Laid out for 100 dots per inch: the 12-inch width makes a 1200-pixel PNG."""
@@ -66,17 +68,14 @@ def overview_png(folder: Path, path: Path, channels: list[str] | None = None) ->
     """One panel per channel over the whole run: the min/max envelope of the per-second rollups with the mean,
     the thresholds as lines, and the run's events as coloured spans (rail events on their channel, link events
     hatched grey and marks dotted on every panel)."""
-    meta = read_run_json(folder)
-    if not parts_in(folder):
-        raise StoreError(f"{folder}: no sealed parts; if the run was cut short, run `railtap recover {folder}`")
-    rollups = read_rollups(folder, pairs_of(meta))
+    rollups = run_rollups(folder)
     limits = run_limits(folder)
-    names = _chosen(folder, channels, [n[:-4] for n in rollups.column_names if n.endswith("_min")])
+    names = _chosen(folder, channels, channel_names(rollups))
     count = rollups["count"].to_numpy()
     have = count > 0
     t = utc_us(rollups["utc"])[have]
     start, stop = int(t[0]), int(t[-1]) + SECOND_US
-    columns = int(min(MOST_COLUMNS, (stop - start) // SECOND_US))
+    columns = int(min(MOST_COLUMNS, max(1, (stop - start) // SECOND_US)))
     edges = start + (stop - start) * np.arange(columns + 1) // columns
     fig, axes = _figure(len(names), 2.2)
     events = events_of(folder)
@@ -136,7 +135,13 @@ def histogram_counts(folder: Path, channel: str, bins: int = 200,
     """How many samples of ``channel`` fall in each of ``bins`` equal bins from its lowest to its highest
     value (the rollups know both), counted one row group at a time. Bins are half open except the last,
     as ``numpy.histogram``'s are. Returns (counts, edges)."""
-    lo, hi, _ = _extent(folder, channel)
+    counts, edges, _ = _histogram(folder, channel, bins, progress)
+    return counts, edges
+
+
+def _histogram(folder: Path, channel: str, bins: int,
+               progress: Callable[[int, int], None] | None) -> tuple[np.ndarray, np.ndarray, float]:
+    lo, hi, mean = _extent(folder, channel)
     if lo == hi:
         lo, hi = lo - 0.5, hi + 0.5  # as numpy.histogram widens the range of a constant input
     edges = np.linspace(lo, hi, bins + 1)
@@ -149,20 +154,19 @@ def histogram_counts(folder: Path, channel: str, bins: int = 200,
             counts += np.histogram(values, edges)[0]
         if progress is not None:
             progress(n, len(parts))
-    return counts, edges
+    return counts, edges, mean
 
 
 def histogram_png(folder: Path, channel: str, path: Path, bins: int = 200,
                   progress: Callable[[int, int], None] | None = None) -> Path:
     """The distribution of ``channel`` over the whole run as a bar chart on a log scale (so the few samples of
     a dropout show beside the millions at nominal), with the thresholds and the mean."""
-    counts, edges = histogram_counts(folder, channel, bins, progress)
+    counts, edges, mean = _histogram(folder, channel, bins, progress)
     lim = run_limits(folder).get(channel, Limits(""))
     fig, (ax,) = _figure(1, 4.0)
     ax.stairs(counts, edges, fill=True, color=FILL, baseline=0.5)
     ax.stairs(counts, edges, color=LINE, lw=0.8, baseline=0.5)
     ax.set_yscale("log")
-    mean = _extent(folder, channel)[2]
     ax.axvline(mean, color=LINE, lw=1.2, label=f"mean {mean:.5g} {lim.unit}")
     _limit_lines(ax, lim, vertical=True)
     unit = f" ({lim.unit})" if lim.unit else ""
@@ -176,9 +180,8 @@ def histogram_png(folder: Path, channel: str, path: Path, bins: int = 200,
 
 def _extent(folder: Path, channel: str) -> tuple[float, float, float]:
     """Lowest, highest and mean value of a channel over the run, from its rollups."""
-    rollups = read_rollups(folder, pairs_of(read_run_json(folder)))
-    if f"{channel}_min" not in rollups.column_names:
-        raise StoreError(f"{folder}: no channel {channel!r}")
+    rollups = run_rollups(folder)
+    _chosen(folder, [channel], channel_names(rollups))
     count = rollups["count"].to_numpy()
     have = count > 0
     mean = float((rollups[f"{channel}_mean"].to_numpy()[have] * count[have]).sum() / count[have].sum())

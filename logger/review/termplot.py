@@ -19,19 +19,20 @@ from rich.text import Text
 
 from logger.review.chart import (
     Limits,
+    channel_names,
     events_of,
     fold,
     from_us,
     kind_colour,
     local_text,
     run_limits,
+    run_rollups,
     to_us,
     utc_us,
 )
 from logger.review.window import around_event
-from logger.store.files import StoreError, read_run_json
-from logger.store.layout import parts_in
-from logger.store.rollup import SECOND_US, pairs_of, read_rollups
+from logger.store.files import StoreError
+from logger.store.rollup import SECOND_US
 from logger.textplot import DEFAULT_STYLES, GUTTER, draw_columns, value_range
 
 SMALLEST = (GUTTER + 8, 4)
@@ -44,12 +45,9 @@ def run_chart(folder: Path, channel: str, width: int = 80, height: int = 16) -> 
     the samples themselves when the run has fewer seconds than the chart has columns."""
     _check_size(width, height)
     columns = width - GUTTER
-    if not parts_in(folder):
-        raise StoreError(f"{folder}: no sealed parts; if the run was cut short, run `railtap recover {folder}`")
-    rollups = read_rollups(folder, pairs_of(read_run_json(folder)))
-    if f"{channel}_min" not in rollups.column_names:
-        names = [n[:-4] for n in rollups.column_names if n.endswith("_min")]
-        raise StoreError(f"{folder}: no channel {channel!r} (it has {', '.join(names)})")
+    rollups = run_rollups(folder)
+    if channel not in channel_names(rollups):
+        raise StoreError(f"{folder}: no channel {channel!r} (it has {', '.join(channel_names(rollups))})")
     count = rollups["count"].to_numpy()
     t = utc_us(rollups["utc"])[count > 0]
     start, stop = int(t[0]), int(t[-1]) + SECOND_US
