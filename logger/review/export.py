@@ -72,7 +72,9 @@ def export_samples(
     if unknown:
         raise StoreError(f"{folder}: no channel {unknown[0]!r} (it has {', '.join(names)})")
     columns = ["utc", *[c for name in chosen for c in ((name, f"{name}_counts") if counts else (name,))]]
-    scanner = data.scanner(columns=columns, filter=_between(data.schema, start, end))
+    # Little read-ahead: memory stays near one batch per core however long the run.
+    scanner = data.scanner(columns=columns, filter=_between(data.schema, start, end), batch_readahead=2,
+                           fragment_readahead=1)
     total = data.count_rows() if progress is not None else 0
     tmp = path.with_name(f".{path.name}.part")
     try:

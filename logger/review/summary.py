@@ -10,7 +10,9 @@ detectors timed them), gaps, and the events by kind with counts, worst depth and
 
 from __future__ import annotations
 
+import os
 from collections.abc import Callable
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
 from datetime import datetime
 from pathlib import Path
@@ -132,14 +134,18 @@ def _seconds_between(first: str | None, last: str | None) -> float:
 
 def _full_scan(folder: Path, pairs: list[Pair], limit_us: int,
                progress: Callable[[int, int], None] | None) -> pa.Table:
-    """The rollup rows again, from every sample of every part (carrying each part's last sample on)."""
-    parts = parts_in(folder)
-    tables, carry = [], None
-    for n, (_, part) in enumerate(parts, start=1):
-        tables.append(rollup_part(part, pairs, carry, limit_us))
-        carry = last_sample(part)
-        if progress is not None:
-            progress(n, len(parts))
+    """The rollup rows again, from every sample of every part. Parts are independent once each is given the
+    last sample of the one before (read from its last row group), so they are scanned on every core."""
+    parts = [path for _, path in parts_in(folder)]
+    carries = [None] + [last_sample(part) for part in parts[:-1]]
+    with ThreadPoolExecutor(max_workers=os.cpu_count() or 1) as pool:
+        futures = [pool.submit(rollup_part, part, pairs, carry, limit_us) for part, carry in zip(parts, carries,
+                                                                                                  strict=True)]
+        tables = []
+        for n, future in enumerate(futures, start=1):
+            tables.append(future.result())
+            if progress is not None:
+                progress(n, len(parts))
     return pa.concat_tables(tables)
 
 

@@ -18,7 +18,6 @@ from __future__ import annotations
 
 import argparse
 import json
-import os
 import subprocess
 import sys
 import tempfile
@@ -113,15 +112,24 @@ s = (n, {k: round(float(x), 6) for k, x in lo.items()}, {k: round(float(x), 6) f
 }
 
 
+PEAK_CODE = """
+def PEAK():
+    # The child's own high-water mark of resident memory (VmHWM starts afresh at exec; the rusage figure
+    # would include the parent's memory copied at fork).
+    for line in open("/proc/self/status"):
+        if line.startswith("VmHWM:"):
+            return int(line.split()[1]) / 1024
+"""
+
+
 def measure(step: str, run: Path, csv_path: Path) -> tuple[float, float, str]:
     """Wall time and peak resident memory (MB) of one step in a fresh process, and what it found."""
-    code = (f"import time; from pathlib import Path; RUN = Path({str(run)!r}); CSV = {str(csv_path)!r}\n"
-            f"t_start = time.perf_counter()\n{STEPS[step]}\nprint(time.perf_counter() - t_start)\nprint(repr(s)[:300])")
-    child = subprocess.Popen([sys.executable, "-c", code], stdout=subprocess.PIPE, text=True)
-    out = child.stdout.read()
-    _, _, usage = os.wait4(child.pid, 0)  # this child's own resource use, peak memory included
+    code = (f"import time; from pathlib import Path; RUN = Path({str(run)!r}); CSV = {str(csv_path)!r}\n{PEAK_CODE}"
+            f"t_start = time.perf_counter()\n{STEPS[step]}\nprint(time.perf_counter() - t_start)\n"
+            "print(repr(s)[:300])\nprint(PEAK())")
+    out = subprocess.run([sys.executable, "-c", code], stdout=subprocess.PIPE, text=True, check=True).stdout
     lines = out.strip().splitlines()
-    return float(lines[0]), usage.ru_maxrss / 1024, lines[1] if len(lines) > 1 else ""
+    return float(lines[0]), float(lines[2]), lines[1]
 
 
 def main() -> None:
