@@ -95,14 +95,15 @@ def test_event_png_for_rail_and_link_events(runs: dict[str, Path], tmp_path: Pat
     from logger.review.plots import event_png
 
     rail, split = runs["rail"], runs["split"]
-    cases = [(rail, _event_id(rail, "dropout")), (rail, _event_id(rail, "frame_gap")),
-             (split, _event_id(split, "brownout", "neg_v"))]
-    for n, (run, event_id) in enumerate(cases):
-        window = around_event(run, event_id, 0.5, 0.5)
+    cases = [(rail, _event_id(rail, "dropout"), 0.5), (rail, _event_id(rail, "frame_gap"), 0.5),
+             (split, _event_id(split, "brownout", "neg_v"), 0.5),
+             (rail, _event_id(rail, "brownout"), 25.0)]  # 50,000 samples: drawn as an envelope
+    for n, (run, event_id, pad) in enumerate(cases):
+        window = around_event(run, event_id, pad, pad)
         event_png(window, tmp_path / f"{n}.png", run_limits(run))
     heights = [_png_shape(tmp_path / f"{n}.png")[0] for n in range(len(cases))]
-    assert heights == [390, 650, 390]  # the link event shows every channel
-    _only(tmp_path, {"0.png", "1.png", "2.png"})
+    assert heights == [390, 650, 390, 390]  # the link event shows every channel
+    _only(tmp_path, {"0.png", "1.png", "2.png", "3.png"})
 
 
 def test_an_interrupted_plot_leaves_the_old_file_and_no_temporary(runs: dict[str, Path], tmp_path: Path,

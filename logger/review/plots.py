@@ -46,9 +46,9 @@ DPI = 100
 WIDTH_IN = 12.0
 MOST_COLUMNS = 1200
 """The overview folds its per-second rows into at most this many columns, one per pixel."""
-MOST_POINTS = 8000
-"""An event window with more samples than this is drawn as a min/max envelope instead of a line."""
-FILL, LINE = "#c3d3e6", "#1f4470"
+MOST_POINTS = 40_000
+"""An event window with more samples than this is drawn as a min/max envelope, a column per pixel."""
+FILL, LINE = "#a8bfdc", "#1f4470"
 RESIDUAL_KINDS = ("brownout", "dropout", "flicker")
 
 
@@ -67,7 +67,7 @@ def replacing(path: Path) -> Iterator[Path]:
 def overview_png(folder: Path, path: Path, channels: list[str] | None = None) -> Path:
     """One panel per channel over the whole run: the min/max envelope of the per-second rollups with the mean,
     the thresholds as lines, and the run's events as coloured spans (rail events on their channel, link events
-    hatched grey and marks dotted on every panel)."""
+    hatched grey and marks dotted on every panel; the dips of a flicker episode are left to its one span)."""
     rollups = run_rollups(folder)
     limits = run_limits(folder)
     names = _chosen(folder, channels, channel_names(rollups))
@@ -88,7 +88,8 @@ def overview_png(folder: Path, path: Path, channels: list[str] | None = None) ->
         ax.step(x, np.r_[mean, mean[-1]], where="post", color=LINE, lw=0.9, label="mean of each column")
         lim = limits.get(name, Limits(""))
         _limit_lines(ax, lim)
-        _event_marks(ax, [e for e in events if e["channel"] in (name, None)], lambda us: _days(np.asarray(us)))
+        mine = [e for e in events if e["channel"] in (name, None) and e.get("episode") is None]
+        _event_marks(ax, mine, lambda us: _days(np.asarray(us)))
         ax.set_title(f"{name} ({lim.unit})" if lim.unit else name, loc="left", fontsize=10)
         ax.set_ylabel(lim.unit)
     _date_axis(axes[-1], x[0], x[-1])
@@ -267,11 +268,11 @@ def _trace(ax: Any, t: np.ndarray, y: np.ndarray) -> None:
         cut = np.flatnonzero(step > 10 * np.median(step)) + 1 if len(t) > 2 else np.zeros(0, dtype=np.int64)
         ax.plot(np.insert(t, cut, np.nan), np.insert(y, cut, np.nan), color=LINE, lw=0.9, label="samples")
         return
-    columns = MOST_POINTS // 4
+    columns = int(WIDTH_IN * DPI)
     lo, hi = fold(t * 1e6, y, y, int(t[0] * 1e6), int(t[-1] * 1e6) + 1, columns)
     x = t[0] + (t[-1] - t[0]) * np.arange(columns + 1) / columns
-    ax.fill_between(x, np.r_[lo, lo[-1]], np.r_[hi, hi[-1]], step="post", color=LINE, lw=0,
-                    label="samples (min to max)")
+    ax.fill_between(x, np.r_[lo, lo[-1]], np.r_[hi, hi[-1]], step="post", facecolor=LINE, edgecolor=LINE, lw=0.6,
+                    label="samples (lowest to highest)")
 
 
 def _annotate(ax: Any, event: dict[str, Any], t: np.ndarray, y: np.ndarray, unit: str) -> None:

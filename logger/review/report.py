@@ -41,8 +41,10 @@ def worst_events(folder: Path, count: int = WORST) -> list[dict[str, Any]]:
     """The ``count`` worst events of the run: deepest first, then longest; marks are not events of the rail
     or the link and never count."""
     rows = [e for e in events_of(folder) if e["kind"] != "mark"]
+    # Durations to the millisecond: runs of identical faults differ by microseconds of clock, and then the
+    # earliest should come first.
     rows.sort(key=lambda e: (-(e["depth_pct"] if e["depth_pct"] is not None else -1e300),
-                             -(e["duration_s"] or 0.0), e["id"]))
+                             -round(e["duration_s"] or 0.0, 3), e["id"]))
     return rows[:count]
 
 
