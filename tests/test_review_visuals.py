@@ -86,6 +86,10 @@ def test_overview_png_has_a_panel_per_channel_at_100_dpi(runs: dict[str, Path], 
     overview_png(runs["split"], tmp_path / "neg.png", channels=["neg_v"])
     assert _png_shape(tmp_path / "neg.png") == (350, 1200, 4)
     _only(tmp_path, {"all.png", "neg.png"})
+    before = {p.name for p in runs["rail"].iterdir()}
+    with pytest.raises(StoreError, match="not inside a run folder"):
+        overview_png(runs["rail"], runs["rail"] / "overview.png")
+    assert {p.name for p in runs["rail"].iterdir()} == before
     with pytest.raises(StoreError, match="no channel 'nope'"):
         overview_png(runs["rail"], tmp_path / "x.png", channels=["nope"])
     _only(tmp_path, {"all.png", "neg.png"})

@@ -37,7 +37,7 @@ from logger.review.chart import (
     zone_text,
 )
 from logger.review.window import Window
-from logger.store.files import StoreError
+from logger.store.files import RUN_JSON, StoreError
 from logger.store.layout import parts_in
 from logger.store.rollup import SECOND_US
 
@@ -55,7 +55,15 @@ RESIDUAL_KINDS = ("brownout", "dropout", "flicker")
 @contextmanager
 def replacing(path: Path) -> Iterator[Path]:
     """A temporary name beside ``path`` (``_`` first) to write to; renamed onto ``path`` when the block ends
-    normally and removed when it does not (Ctrl-C included), so ``path`` is never half written."""
+    normally and removed when it does not (Ctrl-C included), so ``path`` is never half written.
+
+    Raises:
+        StoreError: ``path`` is inside a run folder: every Parquet reader of the run (pyarrow datasets, pandas,
+            railtap's own export) would try to read it as a part and fail.
+    """
+    if (path.parent / RUN_JSON).exists() and not path.name.startswith(("_", ".")):
+        raise StoreError(f"{path}: not inside a run folder, where readers of the run would take it for a part; "
+                         "write it beside the run instead")
     tmp = path.with_name(f"_{path.name}.tmp")
     try:
         yield tmp
