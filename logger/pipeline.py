@@ -415,18 +415,18 @@ class Pipeline:
         rejected = self.decoder.counters.rejected
         if quiet < QUIET_S:
             if self.state in ("garbled", "silent"):
-                self.state, self.message = "running", f"receiving from {self.source.name} again"
+                self.state = "running" if self.header is not None else "waiting"
+                self.message = f"receiving from {self.source.name} again"
             self._rejects_seen = rejected
             return
-        state = self.state if self.header is None else None
         if now - self._bytes_at < QUIET_S and rejected > self._rejects_seen:
-            self.state, self.message = state or "garbled", (
+            self.state, self.message = "garbled", (
                 f"bytes arrive but no valid line for {quiet:.0f} s ({rejected:,} rejected): most likely the "
                 f"baud rate is wrong; {self.source.name} must match the firmware (--baud, or device.baud in "
                 "the rig file)"
             )
         elif now - self._bytes_at >= QUIET_S and (self.header is not None or self._frames_seen == 0):
-            self.state, self.message = state or "silent", (
+            self.state, self.message = "silent", (
                 f"nothing from the device for {now - self._bytes_at:.0f} s: is it powered, and its firmware "
                 "running? (the run goes on when data comes back)"
             )

@@ -368,3 +368,46 @@ def test_main_screen_snapshot_at_100x30() -> None:
         pytest.skip(f"snapshot made with Textual {made_with.read_text().strip()}, this is {textual.__version__}: "
                     "look at the screen and store a new snapshot")
     assert svg == SNAPSHOT.read_text(encoding="utf-8"), f"the screen changed; compare with {SNAPSHOT}"
+
+
+class _Garbage:
+    """A port opened at the wrong baud rate: bytes keep coming, none of them a valid line."""
+
+    name = "/dev/ttyFAKE @ 9600"
+
+    def __init__(self) -> None:
+        self.rng = np.random.default_rng(6)
+
+    def open(self) -> None:
+        pass
+
+    def read(self):
+        from logger.sources.base import Chunk
+
+        time.sleep(0.02)
+        return Chunk(self.rng.integers(0, 256, 200, dtype=np.uint8).tobytes(), time.time())
+
+    def write(self, data: bytes) -> None:
+        pass
+
+    def close(self) -> None:
+        pass
+
+
+def test_a_wrong_baud_rate_is_named_on_the_screen(tmp_path: Path) -> None:
+    pipeline = Pipeline(_Garbage(), SCENARIO.rig, Settings(record_root=tmp_path))
+    pipeline.start()
+
+    async def run() -> None:
+        app = RailtapApp(pipeline)
+        async with app.run_test(size=SIZE) as pilot:
+            banner = app.query_one(Banner)
+            await _until(pilot, lambda: "NO VALID DATA" in str(banner.content), 10.0)
+            assert "baud rate is wrong" in str(banner.content) and banner.has_class("-alert")
+            await _quit(app, pilot, pipeline)
+
+    try:
+        asyncio.run(run())
+    finally:
+        pipeline.stop()
+    assert not list(tmp_path.iterdir())  # nothing decoded, nothing recorded
