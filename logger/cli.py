@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import argparse
+import os
 import signal
 import sys
 import threading
@@ -51,6 +52,13 @@ def main(argv: list[str] | None = None) -> int:
         return 2
     except KeyboardInterrupt:
         return 130
+    except BrokenPipeError:  # output cut short by `| head`: not an error worth a traceback
+        os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
+        return 141
+    except OSError as exc:
+        where = f"{exc.filename}: " if exc.filename else ""
+        print(f"railtap: {where}{exc.strerror or exc}", file=sys.stderr)
+        return 1
 
 
 def _parser() -> argparse.ArgumentParser:

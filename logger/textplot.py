@@ -47,7 +47,11 @@ def draw_columns(lo: np.ndarray, hi: np.ndarray, threshold: float | None, bottom
     lo_l = np.where(have, np.floor((np.nan_to_num(lo) - bottom) * scale + 0.5), -1).astype(int)
     hi_l = np.where(have, np.floor((np.nan_to_num(hi) - bottom) * scale + 0.5), -1).astype(int)
     thr_row = None if threshold is None else math.floor((threshold - bottom) * scale + 0.5) // 2
-    below = have & (lo < threshold) if threshold is not None else np.zeros(len(lo), dtype=bool)
+    # A negative rail's threshold is negative, and its dips go up towards zero: "below" means past it.
+    if threshold is None:
+        below = np.zeros(len(lo), dtype=bool)
+    else:
+        below = have & ((lo < threshold) if threshold >= 0 else (hi > threshold))
     text = Text(no_wrap=True, overflow="crop")
     for row in range(height - 1, -1, -1):
         label = value_text(top if row == height - 1 else bottom if row == 0 else None, False)

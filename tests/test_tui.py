@@ -411,3 +411,15 @@ def test_a_wrong_baud_rate_is_named_on_the_screen(tmp_path: Path) -> None:
     finally:
         pipeline.stop()
     assert not list(tmp_path.iterdir())  # nothing decoded, nothing recorded
+
+
+def test_a_negative_rails_dip_towards_zero_is_the_one_drawn_as_low() -> None:
+    from logger.textplot import DEFAULT_STYLES, draw_columns
+
+    lo = np.array([-15.0, -15.0, -9.0, -15.0])  # a -15 V rail dipping to -9 V in the third column
+    hi = lo + 0.1
+    text = draw_columns(lo, hi, -13.5, -16.0, -8.0, 6, DEFAULT_STYLES)
+    low = DEFAULT_STYLES["low"]
+    width = len(lo) + 8  # the gutter, then one cell per column, then a newline
+    columns = {(span.start % (width + 1)) - 8 for span in text.spans if span.style == low}
+    assert columns == {2}

@@ -17,10 +17,11 @@ import pyarrow.compute as pc
 import pyarrow.parquet as pq
 
 from logger.events.rules import rules_for
+from logger.review.summary import run_pairs
 from logger.rig import RigError, parse_rig
 from logger.store.files import StoreError, read_run_json
 from logger.store.layout import EVENTS_PARQUET, parts_in
-from logger.store.rollup import Pair, gap_limit_us, pairs_of, read_rollups
+from logger.store.rollup import gap_limit_us, read_rollups
 
 _EPOCH = datetime(1970, 1, 1, tzinfo=UTC)
 LINK_KINDS = ("frame_gap", "crc_burst", "link_lost", "device_reset")
@@ -75,19 +76,10 @@ def run_rollups(folder: Path) -> pa.Table:
     meta = read_run_json(folder)
     if not parts_in(folder):
         raise StoreError(f"{folder}: no sealed parts; if the run was cut short, run `railtap recover {folder}`")
-    rollups = read_rollups(folder, pairs_of(meta) or _rig_pairs(meta), gap_limit_us(meta))
+    rollups = read_rollups(folder, run_pairs(meta), gap_limit_us(meta))
     if not rollups.num_rows or not pc.sum(rollups["count"]).as_py():
         raise StoreError(f"{folder}: no samples were recorded; nothing to draw")
     return rollups
-
-
-def _rig_pairs(meta: dict[str, Any]) -> list[Pair]:
-    """Volts/amps pairs from the rig kept in ``_run.json`` (runs recorded before the pairs were kept)."""
-    try:
-        rig = parse_rig(meta.get("rig") or "", "the rig kept in _run.json", profiles=False)
-    except RigError:
-        return []
-    return [Pair(p.rail, rig.channels[p.volts].name, rig.channels[p.amps].name) for p in rig.power_pairs()]
 
 
 def channel_names(rollups: pa.Table) -> list[str]:

@@ -1,4 +1,4 @@
-"""The after-the-test commands: ``railtap review``, ``railtap export`` (and their options).
+"""The after-the-test commands: ``railtap review``, ``export``, ``report`` and ``compare``.
 
 Thin: each parses its options, calls the review modules and prints. Errors are :class:`StoreError` lines, which
 the main command line prints with exit status 2.
@@ -25,7 +25,24 @@ def add_review_commands(sub: argparse._SubParsersAction) -> None:
     review.add_argument("--after", type=float, default=1.0, metavar="S", help="seconds after the event (1)")
     review.add_argument("--channels", metavar="A,B", help="channels to show (default: the event's, or all)")
     review.add_argument("--events", action="store_true", help="list every event")
+    review.add_argument("--plot", type=Path, metavar="DIR",
+                        help="also draw PNGs into DIR: the overview and a histogram per channel, or the event's zoom")
+    review.add_argument("--term", action="store_true", help="also draw the channels (or the event) in the terminal")
     review.set_defaults(run=cmd_review)
+
+    report = sub.add_parser("report", help="a run's report: Markdown with PNGs, or one self-contained HTML file")
+    report.add_argument("folder", type=Path, metavar="RUN")
+    where = report.add_mutually_exclusive_group(required=True)
+    where.add_argument("--html", type=Path, metavar="FILE", help="one HTML file, pictures inside")
+    where.add_argument("--md", type=Path, metavar="DIR", help="report.md and its PNGs in DIR")
+    report.add_argument("--worst", type=int, default=5, metavar="N", help="zoom on the N worst events (5)")
+    report.set_defaults(run=cmd_report)
+
+    compare = sub.add_parser("compare", help="two runs side by side, with the difference B - A")
+    compare.add_argument("a", type=Path, metavar="RUN_A")
+    compare.add_argument("b", type=Path, metavar="RUN_B")
+    compare.add_argument("--full", action="store_true", help="from every sample instead of the rollups")
+    compare.set_defaults(run=cmd_compare)
 
     export = sub.add_parser("export", help="write a run's samples as CSV or JSON lines, for other tools")
     export.add_argument("folder", type=Path, metavar="RUN")
@@ -48,7 +65,9 @@ def cmd_review(args: argparse.Namespace) -> int:
     if args.event is not None:
         from logger.review.window import around_event
 
-        print(window_text(around_event(folder, args.event, args.before, args.after, channels)))
+        window = around_event(folder, args.event, args.before, args.after, channels)
+        print(window_text(window))
+        _event_pictures(folder, window, args)
         return 0
     from logger.review.summary import summarize
 
@@ -58,6 +77,72 @@ def cmd_review(args: argparse.Namespace) -> int:
     if args.events:
         print()
         print(events_text(folder))
+    _run_pictures(folder, [c.name for c in summary.channels if not channels or c.name in channels], args)
+    return 0
+
+
+def _event_pictures(folder: Path, window, args: argparse.Namespace) -> None:
+    if args.term:
+        from logger.review.termplot import event_chart
+
+        channel = window.samples.column_names[1] if window.samples.num_columns > 1 else None
+        _print_chart(event_chart(folder, args.event, _width(), 16, args.before, args.after, channel))
+    if args.plot is not None:
+        from logger.review.chart import run_limits
+        from logger.review.plots import event_png
+
+        args.plot.mkdir(parents=True, exist_ok=True)
+        drawn = event_png(window, args.plot / f"event-{args.event}.png", run_limits(folder))
+        print(f"drew {drawn}", file=sys.stderr)
+
+
+def _run_pictures(folder: Path, channels: list[str], args: argparse.Namespace) -> None:
+    if args.term:
+        from logger.review.termplot import run_chart
+
+        for channel in channels:
+            _print_chart(run_chart(folder, channel, _width(), 14))
+    if args.plot is not None:
+        from logger.review.plots import histogram_png, overview_png
+
+        args.plot.mkdir(parents=True, exist_ok=True)
+        with Bar("drawing") as bar:
+            drawn = [overview_png(folder, args.plot / "overview.png", channels)]
+            for n, channel in enumerate(channels, start=1):
+                drawn.append(histogram_png(folder, channel, args.plot / f"histogram-{channel}.png"))
+                bar(n, len(channels))
+        print("drew " + ", ".join(str(p) for p in drawn), file=sys.stderr)
+
+
+def _width() -> int:
+    import shutil
+
+    return max(shutil.get_terminal_size((100, 24)).columns, 16)
+
+
+def _print_chart(text) -> None:
+    from rich.console import Console
+
+    Console(highlight=False, width=_width(), soft_wrap=True).print(text)
+
+
+def cmd_report(args: argparse.Namespace) -> int:
+    from logger.review.report import report_html, report_markdown
+
+    with Bar("drawing the report") as bar:
+        if args.html is not None:
+            path = report_html(args.folder, args.html, args.worst, progress=bar)
+        else:
+            args.md.mkdir(parents=True, exist_ok=True)
+            path = report_markdown(args.folder, args.md, args.worst, progress=bar)
+    print(f"wrote {path}", file=sys.stderr)
+    return 0
+
+
+def cmd_compare(args: argparse.Namespace) -> int:
+    from logger.review.compare import compare_text
+
+    print(compare_text(args.a, args.b, full=args.full))
     return 0
 
 

@@ -92,7 +92,7 @@ def summarize(folder: Path, *, full: bool = False, progress: Callable[[int, int]
     meta = read_run_json(folder)
     if not parts_in(folder):
         raise StoreError(f"{folder}: no sealed parts; if the run was cut short, run `railtap recover {folder}`")
-    pairs = pairs_of(meta) or _pairs_from_rig(meta)
+    pairs = run_pairs(meta)
     limit = gap_limit_us(meta)
     table = _full_scan(folder, pairs, limit, progress) if full else read_rollups(folder, pairs, limit)
     events = pq.read_table(folder / EVENTS_PARQUET) if (folder / EVENTS_PARQUET).exists() else None
@@ -117,8 +117,11 @@ def summarize(folder: Path, *, full: bool = False, progress: Callable[[int, int]
     )
 
 
-def _pairs_from_rig(meta: dict[str, Any]) -> list[Pair]:
-    """Volts/amps pairs from the rig kept in ``_run.json``, for runs recorded before the pairs were kept."""
+def run_pairs(meta: dict[str, Any]) -> list[Pair]:
+    """A run's volts/amps pairs: as kept in ``_run.json``, else from the rig kept there (runs recorded before
+    the pairs were kept)."""
+    if pairs_of(meta):
+        return pairs_of(meta)
     try:
         rig = parse_rig(meta.get("rig") or "", "the rig kept in _run.json", profiles=False)
     except RigError:
