@@ -373,7 +373,10 @@ class Pipeline:
             self._bytes_at = self._frames_at = time.monotonic()
             self.decoder.joined_midstream()
             back = time.time()
-            self.events.add(Event("link_lost", int(lost_at * 1e6), int(back * 1e6), detail=why))
+            # Anchored at the last sample's time (the data's own clock, which a replay or a fast simulation
+            # runs ahead of the wall clock), lasting as long as the wall clock says the outage did.
+            start_us = self._last_utc_us if self._last_utc_us is not None else int(lost_at * 1e6)
+            self.events.add(Event("link_lost", start_us, start_us + int((back - lost_at) * 1e6), detail=why))
             self._send(ASK_HEADER)
             self.state, self.message = "running", f"reconnected to {self.source.name} after {back - lost_at:.1f} s"
             return True
