@@ -102,14 +102,20 @@ def test_signals_stop_cleanly_with_parts_sealed(tmp_path: Path, signame: str, re
     import time
 
     out = tmp_path / "runs"
+    # As if started at a terminal: a shell that starts a job in the background (a CI runner may) makes it
+    # ignore SIGINT, and Python keeps it ignored; the child gets the default action back first.
     proc = subprocess.Popen([sys.executable, "-m", "logger", "record", "--sim", "--speed", "5", "--out", str(out),
-                             "--quiet"], cwd=Path(__file__).resolve().parents[1], stderr=subprocess.PIPE, text=True)
+                             "--quiet"], cwd=Path(__file__).resolve().parents[1], stderr=subprocess.PIPE, text=True,
+                            preexec_fn=lambda: signal.signal(signal.SIGINT, signal.SIG_DFL))
     deadline = time.monotonic() + 20
     while not list(out.glob("*/_journal-*.arrows")) and time.monotonic() < deadline:
         time.sleep(0.05)
     time.sleep(1.0)
     proc.send_signal(getattr(signal, signame))
-    assert proc.wait(60) == 0, proc.stderr.read()  # generous: a loaded machine is slow to start and seal
+    try:
+        assert proc.wait(60) == 0, proc.stderr.read()  # generous: a loaded machine is slow to start and seal
+    finally:
+        proc.kill()
     (run,) = out.iterdir()
     meta = json.loads((run / "_run.json").read_text())
     assert meta["status"] == "complete" and meta["stop_reason"] == reason
