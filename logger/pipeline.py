@@ -18,7 +18,7 @@ import numpy as np
 
 from logger.cal.profile import Profile
 from logger.calibration import Calibrator, stand_in_header
-from logger.clock import ClockFit, Unwrapper
+from logger.clock import ClockFit, Unwrapped, Unwrapper
 from logger.events import Event, EventDetector
 from logger.events.link import LinkWatch
 from logger.events.log import EventLog
@@ -205,16 +205,24 @@ class Pipeline:
             return
         data, host_time = b"".join(self._held), self._held_time
         self._held, self._held_bytes = [], 0
+        ready: list[tuple[FrameBatch, Unwrapped]] = []
         for item in self.decoder.feed(data):
             if isinstance(item, FrameBatch):
                 if self.calibrator is None:
                     self._hold_until_header(item, host_time)
-                else:
-                    self._emit(item, host_time)
+                elif (u := self._unwrap(item, host_time)) is not None:
+                    ready.append((item, u))
             elif isinstance(item, DeviceHeader):
                 self._on_header(item)
             else:
                 self.answers.append(item)
+        if ready:
+            # Only the newest frame is known to have arrived just before the last read returned: it alone
+            # is paired with that time, before any of the drained frames is stamped (a header line splits
+            # the frames into batches, whose earlier arrivals are unknown and would loosen the clock fit).
+            self._observe(ready[-1][1], host_time)
+            for batch, u in ready:
+                self._stamp(batch, u)
         self.rate.mark(self.decoder.counters.frames)
         if self.decoder.counters.frames != self._frames_seen:
             self._frames_seen, self._frames_at = self.decoder.counters.frames, time.monotonic()
@@ -273,14 +281,25 @@ class Pipeline:
         self._pending_raw = []
 
     def _emit(self, batch: FrameBatch, host_time: float) -> None:
+        """Unwrap, pair with its arrival time, stamp, calibrate and hand on one batch."""
+        if (u := self._unwrap(batch, host_time)) is not None:
+            self._observe(u, host_time)
+            self._stamp(batch, u)
+
+    def _unwrap(self, batch: FrameBatch, host_time: float) -> Unwrapped | None:
         u = self.unwrapper.feed(batch.seq, batch.device_us, host_time)
         if len(u.seq) == 0 or self._duration_reached():
-            return
+            return None
         if self._first_us is None:
             self._first_us = int(u.device_us[0])
         if u.resets:
             self.clock.restart()
+        return u
+
+    def _observe(self, u: Unwrapped, host_time: float) -> None:
         self.clock.observe(int(u.device_us[-1]), host_time)
+
+    def _stamp(self, batch: FrameBatch, u: Unwrapped) -> None:
         within = self._within_duration(u.device_us)
         device_us, seq, raw = u.device_us[within], u.seq[within], batch.counts[u.keep][within]
         utc = self.clock.to_utc_us(device_us)
