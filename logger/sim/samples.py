@@ -68,3 +68,35 @@ def main(argv: list[str]) -> int:
 
 if __name__ == "__main__":
     sys.exit(main(sys.argv[1:]))
+
+
+def make_screenshot(path: Path, size: tuple[int, int] = (120, 34), seconds: float = 35.0) -> Path:
+    """The live screen on the demo bench, ``seconds`` of simulated time in (recorded to a scratch folder),
+    saved with Textual's own SVG export: the picture the README shows."""
+    import asyncio
+
+    from logger.tui import RailtapApp
+    from logger.tui.trend import Trend
+
+    scenario = load_scenario("demo-bench")
+    source = SimSource(scenario.make_device(1), speed=20.0, duration_s=scenario.duration_s,
+                       start_utc=datetime.fromisoformat("2026-03-14T20:15:00+00:00").timestamp())
+    with tempfile.TemporaryDirectory() as scratch:
+        pipeline = Pipeline(source, scenario.rig, Settings(record_root=Path(scratch)))
+        pipeline.start()
+
+        async def run() -> None:
+            app = RailtapApp(pipeline)
+            async with app.run_test(size=size) as pilot:
+                while pipeline.ring is None or source.device.now_s < seconds:
+                    await pilot.pause(0.1)
+                app.action_pause()  # hold the picture still while it is taken
+                app.query_one(Trend).refresh()
+                await pilot.pause(0.3)
+                app.save_screenshot(path.name, str(path.parent))
+
+        try:
+            asyncio.run(run())
+        finally:
+            pipeline.stop()
+    return path

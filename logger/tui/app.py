@@ -46,7 +46,7 @@ class RailtapApp(App[str]):
     CSS = """
     #lower { height: 1fr; min-height: 8; }
     #events-col { width: 1fr; }
-    Screen.-narrow EventTable { scrollbar-size-horizontal: 0; }
+    EventTable { scrollbar-size-horizontal: 0; }
     Screen.-narrow EventDetail { max-height: 2; }
     Screen.-wide StatusPanel { width: 46; }
     """
