@@ -17,6 +17,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 import pytest
+from fakes import WrongBaud
 
 from logger.pipeline import Pipeline, Settings
 from logger.rig import parse_rig
@@ -277,32 +278,8 @@ def test_recording_stops_and_starts_again_into_a_new_run_folder(tmp_path: Path) 
         assert json.loads((run / "_run.json").read_text())["status"] == "complete"
 
 
-class _WrongBaud:
-    """Stands in for a port opened at the wrong baud rate: bytes keep coming, none of them a valid line."""
-
-    name = "/dev/ttyFAKE @ 9600"
-
-    def __init__(self) -> None:
-        self.rng = np.random.default_rng(5)
-
-    def open(self) -> None:
-        pass
-
-    def read(self):
-        from logger.sources.base import Chunk
-
-        time.sleep(0.02)
-        return Chunk(self.rng.integers(0, 256, 200, dtype=np.uint8).tobytes(), time.time())
-
-    def write(self, data: bytes) -> None:
-        pass
-
-    def close(self) -> None:
-        pass
-
-
 def test_wrong_baud_rate_gets_a_plain_message(tmp_path: Path) -> None:
-    pipeline = Pipeline(_WrongBaud(), RIG, Settings(record_root=tmp_path))
+    pipeline = Pipeline(WrongBaud(), RIG, Settings(record_root=tmp_path))
     pipeline.start()
     deadline = time.monotonic() + 10
     while "baud rate" not in pipeline.snapshot().message and time.monotonic() < deadline:

@@ -16,25 +16,13 @@ from logger.review.export import export_samples, parse_when, run_start
 from logger.review.runs import open_runs, summarize_runs
 from logger.review.summary import summarize
 from logger.review.window import around_event
+from logger.sim.simple import RIG_TOML
 from logger.store import new_run, sample_schema
 from logger.store.files import StoreError
 from logger.store.schema import UTC_TYPE
 
 T0 = 1_800_000_000_000_000
-RIG = """name = "review-bench"
-[[channel]]
-name = "out_v"
-role = "volts"
-input = 0
-divider = 11.0
-nominal = 12.0
-[[channel]]
-name = "out_a"
-role = "amps"
-input = 1
-shunt_ohm = 0.01
-gain = 50.0
-"""
+RIG = RIG_TOML  # the simple simulated rail's rig: out_v and out_a
 
 
 def _write_run(root: Path, t_s: np.ndarray, volts: np.ndarray, amps: np.ndarray, rate_hz: float,

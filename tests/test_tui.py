@@ -10,6 +10,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from fakes import WrongBaud
 from textual.widgets import Digits, Static
 
 from logger.live import LinkHealth, Ring, Snapshot
@@ -370,32 +371,8 @@ def test_main_screen_snapshot_at_100x30() -> None:
     assert svg == SNAPSHOT.read_text(encoding="utf-8"), f"the screen changed; compare with {SNAPSHOT}"
 
 
-class _Garbage:
-    """A port opened at the wrong baud rate: bytes keep coming, none of them a valid line."""
-
-    name = "/dev/ttyFAKE @ 9600"
-
-    def __init__(self) -> None:
-        self.rng = np.random.default_rng(6)
-
-    def open(self) -> None:
-        pass
-
-    def read(self):
-        from logger.sources.base import Chunk
-
-        time.sleep(0.02)
-        return Chunk(self.rng.integers(0, 256, 200, dtype=np.uint8).tobytes(), time.time())
-
-    def write(self, data: bytes) -> None:
-        pass
-
-    def close(self) -> None:
-        pass
-
-
 def test_a_wrong_baud_rate_is_named_on_the_screen(tmp_path: Path) -> None:
-    pipeline = Pipeline(_Garbage(), SCENARIO.rig, Settings(record_root=tmp_path))
+    pipeline = Pipeline(WrongBaud(), SCENARIO.rig, Settings(record_root=tmp_path))
     pipeline.start()
 
     async def run() -> None:

@@ -18,7 +18,7 @@ import pyarrow.compute as pc
 import pyarrow.csv as pacsv
 import pyarrow.dataset as ds
 
-from logger.review.window import run_channels
+from logger.review.window import pick_channels
 from logger.store.files import StoreError, read_run_json
 
 FORMATS = ("csv", "jsonl")
@@ -66,11 +66,7 @@ def export_samples(
     if fmt not in FORMATS:
         raise StoreError(f"{path}: say .csv or .jsonl, the format is taken from the name")
     data = ds.dataset(folder, format="parquet")
-    names = run_channels(data.schema)
-    chosen = channels or names
-    unknown = [c for c in chosen if c not in names]
-    if unknown:
-        raise StoreError(f"{folder}: no channel {unknown[0]!r} (it has {', '.join(names)})")
+    chosen = pick_channels(folder, data.schema, channels)
     columns = ["utc", *[c for name in chosen for c in ((name, f"{name}_counts") if counts else (name,))]]
     # Little read-ahead: memory stays near one batch per core however long the run.
     scanner = data.scanner(columns=columns, filter=_between(data.schema, start, end), batch_readahead=2,

@@ -35,14 +35,19 @@ class Window:
 def samples_between(folder: Path, start: datetime, end: datetime, channels: list[str] | None = None) -> pa.Table:
     """Rows with ``start <= utc <= end`` (UTC datetimes), columns ``utc`` and the chosen channels."""
     data = ds.dataset(folder, format="parquet")
-    names = run_channels(data.schema)
-    chosen = channels or names
-    unknown = [c for c in chosen if c not in names]
-    if unknown:
-        raise StoreError(f"{folder}: no channel {unknown[0]!r} (it has {', '.join(names)})")
+    chosen = pick_channels(folder, data.schema, channels)
     when = (pc.field("utc") >= pa.scalar(start, data.schema.field("utc").type)) & (
         pc.field("utc") <= pa.scalar(end, data.schema.field("utc").type))
     return data.to_table(columns=["utc", *chosen], filter=when).sort_by("utc")
+
+
+def pick_channels(folder: Path, schema: pa.Schema, channels: list[str] | None) -> list[str]:
+    """The channels asked for (all of the run's when none), each checked against the run."""
+    names = run_channels(schema)
+    unknown = [c for c in channels or () if c not in names]
+    if unknown:
+        raise StoreError(f"{folder}: no channel {unknown[0]!r} (it has {', '.join(names)})")
+    return channels or names
 
 
 def run_channels(schema: pa.Schema) -> list[str]:

@@ -27,6 +27,7 @@ from pathlib import Path
 import numpy as np
 import pyarrow as pa
 
+from logger.sim.simple import RIG_TOML
 from logger.store import new_run, sample_schema
 from logger.store.schema import UTC_TYPE
 
@@ -34,26 +35,11 @@ RATE_HZ = 1000
 CHANNELS = ["out_v", "out_a"]
 LSB_V = 3.3 / 4096 * 11.0
 LSB_A = 3.3 / 4096 / (0.01 * 50.0)
-RIG_TEXT = """name = "bench-day"
-[[channel]]
-name = "out_v"
-role = "volts"
-input = 0
-divider = 11.0
-nominal = 12.0
-[[channel]]
-name = "out_a"
-role = "amps"
-input = 1
-shunt_ohm = 0.01
-gain = 50.0
-nominal = 2.0
-"""
 
 
 def make_run(root: Path, hours: float) -> Path:
     """Write the day through RunWriter, an hour's worth of samples per call."""
-    meta = {"rig": RIG_TEXT, "channels_info": [{"name": "out_v", "unit": "V"}, {"name": "out_a", "unit": "A"}],
+    meta = {"rig": RIG_TOML, "channels_info": [{"name": "out_v", "unit": "V"}, {"name": "out_a", "unit": "A"}],
             "power_pairs": [{"rail": "out", "volts": "out_v", "amps": "out_a"}],
             "device_header": "H fw=bench ver=1 bits=12 vref_mv=3300 rate_hz=1000 ch=a0,a1 why=boot",
             "link": {"rate_hz": RATE_HZ}}
