@@ -159,6 +159,9 @@ class Pipeline:
             self._drain()
         except (RigError, SourceError) as exc:
             self._fail(str(exc))
+        except Exception as exc:  # a bug: still seal what was recorded, and say so in one line
+            self._fail(f"internal error, please report it: {type(exc).__name__}: {exc}")
+            raise
         finally:
             try:
                 self._finish()
@@ -302,6 +305,8 @@ class Pipeline:
     def _stamp(self, batch: FrameBatch, u: Unwrapped) -> None:
         within = self._within_duration(u.device_us)
         device_us, seq, raw = u.device_us[within], u.seq[within], batch.counts[u.keep][within]
+        if len(device_us) == 0:  # all past the end of --duration (batches of one drain are stamped together)
+            return
         utc = self.clock.to_utc_us(device_us)
         counts = self.calibrator.select(raw)
         self._apply_zeros(counts, utc)

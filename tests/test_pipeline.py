@@ -325,3 +325,11 @@ def test_a_device_that_falls_silent_is_named_and_flow_resumes(tmp_path: Path) ->
         time.sleep(0.05)
     pipeline.stop()
     assert "silent" in states and pipeline.error is None
+
+
+def test_duration_ends_cleanly_when_a_drain_runs_past_it(tmp_path: Path) -> None:
+    """As fast as it goes, one drain holds seconds of frames: those past --duration are dropped, the run says
+    why it ended, and nothing is left unstamped."""
+    p = _run(SimSource(SimDevice(seed=8), speed=0.0), tmp_path, duration_s=20.0)
+    assert p.error is None and p.stop_reason == "duration of 20 s reached"
+    assert p.final is not None and 19_990 <= p.final["rows"] <= 20_000
