@@ -5,6 +5,7 @@ Errors always name the file, the key and what was expected, because a rig file i
 
 from __future__ import annotations
 
+import difflib
 import math
 import re
 import tomllib
@@ -150,6 +151,7 @@ def parse_rig(text: str, source: str = "<rig>", *, profiles: bool = True) -> Rig
 def rig_from_dict(doc: dict[str, Any], source: str = "<rig>", text: str = "", *, profiles: bool = True) -> Rig:
     """Check an already-parsed rig table (a rig file, or the ``[rig]`` table of a simulated scenario)."""
     checker = _Checker(source)
+    checker.known(doc, TOP_KEYS, "")
     name = checker.get(doc, "name", str, "rig")
     device = _device(checker, doc.get("device", {}))
     raw_channels = doc.get("channel")
@@ -161,9 +163,23 @@ def rig_from_dict(doc: dict[str, Any], source: str = "<rig>", text: str = "", *,
     return Rig(name=name, channels=channels, device=device, source=source, text=text)
 
 
+TOP_KEYS = ("name", "device", "channel")
+DEVICE_KEYS = ("port", "baud", "adc_bits", "vref_mv")
+CHANNEL_KEYS = ("name", "role", "input", "divider", "shunt_ohm", "gain", "negative", "offset_counts", "nominal",
+                "low", "high", "unit", "events", "profile")
+
+
 class _Checker:
     def __init__(self, source: str) -> None:
         self.source = source
+
+    def known(self, table: dict[str, Any], keys: tuple[str, ...], where: str) -> None:
+        """Refuse a key the rig file does not have (a typo would otherwise be ignored without a word)."""
+        for key in table:
+            if key not in keys:
+                close = difflib.get_close_matches(key, keys, n=1)
+                hint = f"did you mean {close[0]!r}?" if close else f"known keys: {', '.join(keys)}"
+                raise RigError(f"{self.source}: {where}{key}: unknown key; {hint}")
 
     def fail(self, key: str, expected: str) -> RigError:
         return RigError(f"{self.source}: {key}: expected {expected}")
@@ -184,6 +200,7 @@ class _Checker:
 
 def _device(c: _Checker, table: dict[str, Any]) -> Device:
     w = "device."
+    c.known(table, DEVICE_KEYS, w)
     baud = c.get(table, "baud", int, 921600, w)
     bits = c.get(table, "adc_bits", int, None, w)
     if baud <= 0:
@@ -200,6 +217,7 @@ def _channel(c: _Checker, index: int, table: dict[str, Any], base: Path | None) 
     if name is None or not _NAME.match(name):
         raise c.fail(f"{w}name", "a lower-case name such as out_v (letters, digits, _; up to 24)")
     w = f"channel {name!r}: "
+    c.known(table, CHANNEL_KEYS, w)
     role = c.get(table, "role", str, None, w)
     if role not in ROLES:
         raise c.fail(f"{w}role", f"one of {', '.join(ROLES)}")

@@ -120,3 +120,12 @@ def test_signals_stop_cleanly_with_parts_sealed(tmp_path: Path, signame: str, re
     meta = json.loads((run / "_run.json").read_text())
     assert meta["status"] == "complete" and meta["stop_reason"] == reason
     assert not list(run.glob("_journal-*")) and len(pd.read_parquet(run)) == meta["rows"] > 0
+
+
+def test_a_misspelt_rig_key_is_named_not_ignored() -> None:
+    from logger.rig import RigError, demo_rig_text, parse_rig
+
+    with pytest.raises(RigError, match=r"channel 'out_v': diviser: unknown key; did you mean 'divider'\?"):
+        parse_rig(demo_rig_text().replace("divider = 11.0", "diviser = 11.0", 1), "t.toml")
+    with pytest.raises(RigError, match="device.bauds: unknown key; did you mean 'baud'"):
+        parse_rig(demo_rig_text().replace("baud = 921600", "bauds = 921600", 1), "t.toml")
