@@ -28,6 +28,7 @@ from logger.recording import Recorder, run_metadata
 from logger.rig import Rig, RigError
 from logger.sources.base import Chunk, LinkLost, Source, SourceError
 from logger.store import sample_batch, sample_schema
+from logger.store.files import utc_text
 from logger.wire import Answer, Decoder, DeviceHeader, FrameBatch, encode_line
 
 ASK_HEADER = encode_line("?H")
@@ -108,6 +109,8 @@ class Pipeline:
         self.outside_watch: OutsideWatch | None = None
         self._zero_requests: deque[str] = deque()
         self._profile_requests: deque[tuple[str, Profile]] = deque()
+        self.calibration_changes: list[dict[str, Any]] = []
+        """Zeros and profiles applied while running, oldest first; every run sealed afterwards records them."""
         self.totals = Totals(rig.power_pairs())
         self._first_us: int | None = None
         self._last_us: int | None = None
@@ -334,6 +337,8 @@ class Pipeline:
             self._watch_spans()
             self.events.add(Event("mark", self._now_us(), channel=name,
                                   detail=f"calibration applied: {profile.model}, {len(profile.points)} points"))
+            self.calibration_changes.append({"utc": utc_text(self._now_us()), "channel": name, "change": "profile",
+                                             "profile": profile.to_dict()})
 
     def _watch_spans(self) -> None:
         """Flag readings outside the calibrated span of every channel that has a profile."""
@@ -354,6 +359,8 @@ class Pipeline:
             unit = self.rig.channel(name).unit
             note = f"zeroed {name}: {offset:.1f} counts taken as 0 {unit}"
             self.events.add(Event("mark", int(utc[0]), channel=name, value=offset, detail=note))
+            self.calibration_changes.append({"utc": utc_text(int(utc[0])), "channel": name, "change": "zero",
+                                             "counts": round(offset, 3)})
 
     def _within_duration(self, device_us: np.ndarray) -> slice:
         """Rows up to the end of ``--duration`` (measured on the device clock from the first sample)."""
@@ -424,7 +431,10 @@ class Pipeline:
                 sealer.start()
 
     def _seal(self, recorder: Recorder, reason: str) -> None:
-        final = recorder.stop(reason, extra={"link": self._link_counts(recorder.link_base)})
+        extra: dict[str, Any] = {"link": self._link_counts(recorder.link_base)}
+        if self.calibration_changes:
+            extra["calibration_changes"] = list(self.calibration_changes)
+        final = recorder.stop(reason, extra=extra)
         self.final = None if final is None else {**final, "folder": str(recorder.folder)}
         if self.final is not None:
             self.sealed.append(self.final)

@@ -322,6 +322,9 @@ def test_zero_key_tares_the_current_channel(start: Callable[..., Pipeline]) -> N
         app = RailtapApp(pipeline)
         async with app.run_test(size=SIZE) as pilot:
             await _until(pilot, lambda: pipeline.recorder is not None and pipeline.ring.written > 100)
+            await _key(app, pilot, "z")  # the first press only asks
+            await pilot.pause(0.3)
+            assert "mark" not in _kinds(app) and not pipeline._zero_requests
             await _key(app, pilot, "z")
             await _until(pilot, lambda: "mark" in _kinds(app), 2.0)
             (zeroed,) = [e for e in pipeline.events.recent() if e.kind == "mark"]
@@ -335,6 +338,8 @@ def test_zero_key_tares_the_current_channel(start: Callable[..., Pipeline]) -> N
             await _quit(app, pilot, pipeline)
 
     asyncio.run(run())
+    (change,) = pipeline.final["calibration_changes"]  # the run says when and how it was zeroed
+    assert change["channel"] == "out_a" and change["change"] == "zero" and change["counts"] > 0
 
 
 SNAPSHOT = Path(__file__).parent / "snapshots" / "screen_100x30.svg"

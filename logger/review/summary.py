@@ -111,7 +111,8 @@ def summarize(folder: Path, *, full: bool = False, progress: Callable[[int, int]
         channels=[_channel(table, c, units.get(c, ""), events) for c in channels],
         rails=[_rail(table, p) for p in pairs],
         events=kinds,
-        calibration={c: _calibration_text(meta.get("calibration", {}).get(c)) for c in channels},
+        calibration={c: _calibration_text(meta.get("calibration", {}).get(c))
+                     + _changes_text(meta.get("calibration_changes", []), c) for c in channels},
         link=meta.get("link", {}),
         source="full-rate scan" if full else "per-second rollups",
     )
@@ -211,6 +212,22 @@ def _total_s(events: pa.Table | None, kinds: str | tuple[str, ...], channel: str
         if row["kind"] in kinds and (channel is None or row["channel"] == channel) and row["duration_s"]:
             total += row["duration_s"]
     return total
+
+
+def _changes_text(changes: list[dict[str, Any]], channel: str) -> str:
+    """What was changed while running (a zero, a profile from the screen), with when."""
+    out = []
+    for change in changes:
+        if change.get("channel") != channel:
+            continue
+        when = str(change.get("utc", ""))[11:23]
+        if change.get("change") == "zero":
+            out.append(f"; zeroed at {when} UTC ({change.get('counts')} counts taken as 0)")
+        else:
+            profile = change.get("profile") or {}
+            out.append(f"; from {when} UTC a {profile.get('model')} profile of {len(profile.get('points', []))} "
+                       "points, applied on the live screen")
+    return "".join(out)
 
 
 def _calibration_text(entry: dict[str, Any] | None) -> str:

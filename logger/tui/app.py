@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import os
 import threading
+import time
 from typing import ClassVar
 
 from textual import work
@@ -72,6 +73,7 @@ class RailtapApp(App[str]):
         self.paused = False
         self.sealing = False
         self._seen_id = 0
+        self._zero_armed: tuple[str, float] | None = None
 
     def compose(self) -> ComposeResult:
         yield Banner(self.pipeline.rig.name, id="banner")
@@ -157,7 +159,8 @@ class RailtapApp(App[str]):
         self.query_one(Trend).next_channel()
 
     def action_zero(self) -> None:
-        """Zero the current channel the trend shows, or the first one (with no current flowing)."""
+        """Zero the current channel the trend shows, or the first one. It must carry no current, so the first
+        press only says what would happen and shows the reading; a second press within 3 s does it."""
         amps = [ch.name for ch in self.pipeline.rig.channels if ch.role == "amps"]
         if not amps:
             self.notify("no current channel to zero", timeout=2)
@@ -165,8 +168,18 @@ class RailtapApp(App[str]):
         trend = self.query_one(Trend)
         shown = trend.history.shown.names[trend.channel]
         name = shown if shown in amps else amps[0]
-        self.pipeline.zero(name)
-        self.notify(f"{name} zeroed at its present reading (do this with no current flowing)", timeout=3)
+        now = time.monotonic()
+        if self._zero_armed is not None and self._zero_armed[0] == name and now - self._zero_armed[1] < 3.0:
+            self._zero_armed = None
+            self.pipeline.zero(name)
+            self.notify(f"{name} zeroed at its present reading; noted in the event list and in the run", timeout=3)
+            return
+        self._zero_armed = (name, now)
+        latest = self.pipeline.snapshot().latest
+        reading = "" if latest is None else \
+            f" (it reads {latest[self.pipeline.rig.channels.index(self.pipeline.rig.channel(name))]:+.4g} A now)"
+        self.notify(f"press z again within 3 s to take {name}'s present reading as 0 A{reading}: only with no "
+                    "current flowing", severity="warning", timeout=3)
 
     def action_record(self) -> None:
         """Stop recording (the run is sealed while the screen goes on) or start a new run folder."""
