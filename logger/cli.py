@@ -315,7 +315,7 @@ def cmd_ports(args: argparse.Namespace) -> int:
 
 
 def cmd_recover(args: argparse.Namespace) -> int:
-    from logger.store import find_unfinished, recover_run
+    from logger.store import find_unfinished
 
     runs: list[Path] = []
     for path in args.paths:
@@ -328,8 +328,9 @@ def cmd_recover(args: argparse.Namespace) -> int:
     if not runs:
         print("nothing to recover", file=sys.stderr)
     for run in runs:
-        meta = recover_run(run)
-        print(f"{run}: {meta.get('status')}, {meta.get('rows', 0)} rows in {len(meta.get('parts', []))} part(s)")
+        meta = _recover(run)
+        print(f"{run}: {meta.get('status')}, {meta.get('rows', 0)} rows in {len(meta.get('parts', []))} part(s), "
+              f"{meta.get('events', 0)} events")
     return 0
 
 
@@ -457,13 +458,27 @@ def _wait_for_seal(pipeline: Pipeline) -> None:
                   file=sys.stderr, flush=True)
 
 
+def _recover(run: Path) -> dict[str, Any]:
+    """Seal a run cut short, then detect its rail events again from the samples (those going on at the crash
+    were never written)."""
+    from logger.cal.recal import detect_again
+    from logger.store import read_run_json, recover_run
+
+    meta = recover_run(run)
+    try:
+        detect_again(run)
+    except StoreError as exc:
+        print(f"railtap: {run}: sealed, but its events were not detected again ({exc})", file=sys.stderr)
+    return read_run_json(run) if (run / "_run.json").exists() else meta
+
+
 def _recover_leftovers(root: Path) -> None:
-    from logger.store import find_unfinished, recover_run
+    from logger.store import find_unfinished
 
     if not root.is_dir():
         return
     for run in find_unfinished(root):
-        meta = recover_run(run)
+        meta = _recover(run)
         print(f"railtap: recovered {run} ({meta.get('rows', 0)} rows) left by an unclean stop", file=sys.stderr)
 
 

@@ -147,3 +147,30 @@ def test_event_window_export_and_a_folder_of_runs(tmp_path: Path, capsys) -> Non
     assert main(["review", str(run), "--event", "7"]) == 2
     with pytest.raises(StoreError, match="offset from the run's start"):
         parse_when("yesterday", first)
+
+
+def test_recovery_detects_the_brownout_a_crash_cut_short(tmp_path: Path) -> None:
+    """A run killed in the middle of a brownout: its journal has the samples but not the event, which only
+    is written when it ends. Recovery detects the rail events again from the samples."""
+    from logger.cli import _recover
+
+    t = np.arange(0, 10.0, 1 / 1000)
+    volts = np.where(t > 7.0, 6.0, 12.0)  # the rail sags at 7 s and is still down when the process dies
+    meta = {"rig": RIG, "channels_info": [{"name": "out_v", "unit": "V"}, {"name": "out_a", "unit": "A"}],
+            "power_pairs": [{"rail": "out", "volts": "out_v", "amps": "out_a"}],
+            "device_header": "H fw=t ver=1 bits=12 vref_mv=3300 rate_hz=1000 ch=a0,a1 why=boot"}
+    schema = sample_schema(["out_v", "out_a"])
+    writer = new_run(tmp_path, "crash", schema, meta)
+    utc = T0 + np.round(t * 1e6).astype(np.int64)
+    writer.append(pa.record_batch([
+        pa.array(utc, pa.int64()).cast(UTC_TYPE), pa.array(np.arange(len(t)), pa.int64()),
+        pa.array(np.arange(len(t)), pa.int64()), pa.array(volts.astype(np.float32)),
+        pa.array(np.zeros(len(t), np.uint16)), pa.array(np.ones(len(t), np.float32)),
+        pa.array(np.zeros(len(t), np.uint16))], schema=schema))
+    writer.flush()
+    writer.abandon("killed")  # as if the process had died: journal kept, nothing sealed
+    meta = _recover(writer.folder)
+    events = pd.read_parquet(writer.folder / "_events.parquet")
+    (dip,) = events[events.kind.isin(["brownout", "dropout"])].itertuples()
+    assert dip.channel == "out_v" and dip.value == pytest.approx(6.0) and "still below" in dip.detail
+    assert meta["status"] == "recovered" and meta["events"] == len(events)

@@ -24,7 +24,7 @@ import numpy as np
 import pyarrow as pa
 import pyarrow.parquet as pq
 
-from logger.cal.profile import Profile
+from logger.cal.profile import Profile, profile_from_dict
 from logger.events import EventDetector
 from logger.events.model import Event
 from logger.events.outside import OutsideWatch
@@ -82,6 +82,28 @@ def recalibrate(folder: Path, profiles: list[Profile], progress: Callable[[str],
         for temp in temps:
             temp.unlink(missing_ok=True)
         lock.release()
+
+
+def detect_again(folder: Path) -> int:
+    """Detect the rail events of a sealed run again from its samples, keeping link events and marks; returns
+    how many events the run has now. After a crash, the events still going on were never written, and
+    recovery calls this so the run's event table is whole."""
+    meta = read_run_json(folder)
+    parts = [path for _, path in parts_in(folder)]
+    profiles = [profile_from_dict(entry["profile"]) for entry in meta.get("calibration", {}).values()
+                if isinstance(entry, dict) and entry.get("profile")]
+    names = _channels(folder, parts, profiles)
+    detect = _Detection(meta, names, profiles)
+    for part in parts:
+        for batch in pq.ParquetFile(part).iter_batches(columns=["utc", *names, *(f"{n}_counts" for n in names)]):
+            values = np.column_stack([batch.column(n).to_numpy() for n in names]).astype(np.float64)
+            counts = np.column_stack([batch.column(f"{n}_counts").to_numpy() for n in names]).astype(np.float64)
+            detect.feed(batch.column("utc").cast(pa.int64()).to_numpy(), values, counts)
+    os.replace(_write_events(folder, detect.finish()), folder / EVENTS)
+    link_episodes(folder / EVENTS)
+    meta["events"] = pq.ParquetFile(folder / EVENTS).metadata.num_rows
+    write_json_atomic(folder / "_run.json", meta)
+    return meta["events"]
 
 
 def _channels(folder: Path, parts: list[Path], profiles: list[Profile]) -> list[str]:
