@@ -73,7 +73,7 @@ class Totals:
         self._last = (int(utc_us[-1]), np.stack((volts[-1], amps[-1])))
         dt = np.diff(t) / 1e6
         dt[dt * 1e6 > self.max_step_us] = 0.0
-        power = volts * amps
+        power = volts * amps * np.array([p.sign for p in self.pairs])
         self.charge_as += (dt[:, None] * (amps[1:] + amps[:-1]) / 2).sum(axis=0)
         self.energy_ws += (dt[:, None] * (power[1:] + power[:-1]) / 2).sum(axis=0)
 

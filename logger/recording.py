@@ -166,7 +166,7 @@ def run_metadata(rig: Rig, header: DeviceHeader, source: str) -> dict[str, Any]:
             for ch in rig.channels
         ],
         "power_pairs": [{"rail": pair.rail, "volts": rig.channels[pair.volts].name,
-                         "amps": rig.channels[pair.amps].name} for pair in rig.power_pairs()],
+                         "amps": rig.channels[pair.amps].name, "sign": pair.sign} for pair in rig.power_pairs()],
         "calibration": {
             ch.name: {"profile_path": ch.profile_path, "profile": ch.profile.to_dict()} if ch.profile is not None
             else {"scaling": "rig file (divider, shunt_ohm, gain, offset_counts)"}

@@ -72,6 +72,9 @@ class PowerPair:
     rail: str
     volts: int
     amps: int
+    sign: float = 1.0
+    """-1 for a negative rail: its volts read below zero while its shunt sees the current's size, and the power
+    it delivers is counted positive."""
 
     @property
     def name(self) -> str:
@@ -105,7 +108,7 @@ class Rig:
                 continue
             for j, a in enumerate(self.channels):
                 if a.role == "amps" and _rail_of(a.name) == _rail_of(v.name):
-                    pairs.append(PowerPair(_rail_of(v.name), i, j))
+                    pairs.append(PowerPair(_rail_of(v.name), i, j, -1.0 if v.negative else 1.0))
                     break
         return tuple(pairs)
 

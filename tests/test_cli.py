@@ -127,5 +127,5 @@ def test_a_misspelt_rig_key_is_named_not_ignored() -> None:
 
     with pytest.raises(RigError, match=r"channel 'out_v': diviser: unknown key; did you mean 'divider'\?"):
         parse_rig(demo_rig_text().replace("divider = 11.0", "diviser = 11.0", 1), "t.toml")
-    with pytest.raises(RigError, match="device.bauds: unknown key; did you mean 'baud'"):
+    with pytest.raises(RigError, match=r"device\.bauds: unknown key; did you mean 'baud'"):
         parse_rig(demo_rig_text().replace("baud = 921600", "bauds = 921600", 1), "t.toml")

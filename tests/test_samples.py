@@ -42,4 +42,4 @@ def test_each_sample_reviews_and_plots(name: str, tmp_path: Path, capsys) -> Non
     assert main(["review", str(run), "--plot", str(tmp_path)]) == 0
     out = capsys.readouterr().out
     assert "| event | channel |" in out and "brownout" in out
-    assert (tmp_path / "overview.png").stat().st_size > 10_000
+    assert (tmp_path / f"{name}-overview.png").stat().st_size > 10_000

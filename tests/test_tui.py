@@ -126,7 +126,7 @@ def test_readouts_show_sign_unit_range_and_power() -> None:
             assert cards["neg_v"].query_one(Digits).value == "-14.97"  # a negative rail reads below zero
             assert str(cards["neg_v"].query_one(".range", Static).content) == "-15.10 .. -14.80"  # min .. max
             assert cards["pos_w"].query_one(Digits).value == "+7.510"  # 15.02 V x 0.5 A
-            assert cards["neg_w"].query_one(Digits).value == "-3.743"  # -14.97 V x 0.25 A
+            assert cards["neg_w"].query_one(Digits).value == "+3.743"  # delivered, counted positive: 14.97 V x 0.25 A
             assert cards["pos_w"].unit == "W"
             await _key(app, pilot, "q")
             await _until(pilot, lambda: app.return_value is not None, 5.0)

@@ -101,9 +101,10 @@ def is_link(event: dict[str, Any]) -> bool:
     return event["kind"] in LINK_KINDS
 
 
-def local_zone() -> tzinfo:
-    """This computer's time zone as a fixed offset (the one in force now)."""
-    zone = datetime.now().astimezone().tzinfo
+def local_zone(at: datetime | None = None) -> tzinfo:
+    """This computer's time zone as the fixed offset in force at ``at`` (a run's own date, so summer time is
+    right for data from another season), or now."""
+    zone = (at or datetime.now(UTC)).astimezone().tzinfo
     return zone if zone is not None else UTC
 
 
@@ -115,7 +116,7 @@ def zone_text(zone: tzinfo) -> str:
 def local_text(moment: datetime, digits: int = 3) -> str:
     """A UTC moment as local wall-clock time with ``digits`` decimals of a second."""
     aware = moment if moment.tzinfo is not None else moment.replace(tzinfo=UTC)
-    text = aware.astimezone(local_zone()).strftime("%Y-%m-%d %H:%M:%S.%f")
+    text = aware.astimezone().strftime("%Y-%m-%d %H:%M:%S.%f")
     return text[: len(text) - 6 + digits] if digits else text[:-7]
 
 

@@ -48,7 +48,8 @@ def add_review_commands(sub: argparse._SubParsersAction) -> None:
     export.add_argument("folder", type=Path, metavar="RUN")
     export.add_argument("out", type=Path, metavar="FILE", help="FILE.csv or FILE.jsonl")
     export.add_argument("--from", dest="start", metavar="WHEN",
-                        help="start: an offset from the run's start (90s, 10m, 1.5h) or a date-time")
+                        help="start: an offset from the run's start (90s, 10m, 1h30m) or a date-time (local time "
+                             "unless it ends in Z or +hh:mm)")
     export.add_argument("--until", dest="end", metavar="WHEN", help="end, the same way")
     export.add_argument("--channels", metavar="A,B", help="channels to write (default: all)")
     export.add_argument("--counts", action="store_true", help="also write each channel's raw ADC counts")
@@ -92,7 +93,7 @@ def _event_pictures(folder: Path, window, args: argparse.Namespace) -> None:
         from logger.review.plots import event_png
 
         args.plot.mkdir(parents=True, exist_ok=True)
-        drawn = event_png(window, args.plot / f"event-{args.event}.png", run_limits(folder))
+        drawn = event_png(window, args.plot / f"{folder.name}-event-{args.event}.png", run_limits(folder))
         print(f"drew {drawn}", file=sys.stderr)
 
 
@@ -107,9 +108,9 @@ def _run_pictures(folder: Path, channels: list[str], args: argparse.Namespace) -
 
         args.plot.mkdir(parents=True, exist_ok=True)
         with Bar("drawing") as bar:
-            drawn = [overview_png(folder, args.plot / "overview.png", channels)]
+            drawn = [overview_png(folder, args.plot / f"{folder.name}-overview.png", channels)]
             for n, channel in enumerate(channels, start=1):
-                drawn.append(histogram_png(folder, channel, args.plot / f"histogram-{channel}.png"))
+                drawn.append(histogram_png(folder, channel, args.plot / f"{folder.name}-histogram-{channel}.png"))
                 bar(n, len(channels))
         print("drew " + ", ".join(str(p) for p in drawn), file=sys.stderr)
 
@@ -152,19 +153,26 @@ def _review_many(root: Path) -> int:
     if not root.is_dir():
         raise StoreError(f"{root}: no such run folder")
     if not run_folders(root):
+        from logger.store import find_unfinished
+
+        cut = find_unfinished(root)
+        if cut:
+            raise StoreError(f"{root}: {len(cut)} run(s) here were cut short and are not sealed yet; seal them with "
+                             f"`railtap recover {root}`")
         raise StoreError(f"{root}: not a run folder (no _run.json) and no run folders in it")
     print(runs_text(summarize_runs(root)))
     return 0
 
 
 def cmd_export(args: argparse.Namespace) -> int:
-    from logger.review.export import export_samples, parse_when, run_start
+    from logger.review.export import check_span, export_samples, parse_when, run_start
 
     start = end = None
     if args.start or args.end:
         first = run_start(args.folder)
         start = parse_when(args.start, first) if args.start else None
         end = parse_when(args.end, first) if args.end else None
+        check_span(args.folder, start, end)
     with Bar(f"writing {args.out.name}") as bar:
         rows = export_samples(args.folder, args.out, start=start, end=end, channels=_channels(args.channels),
                               counts=args.counts, progress=bar)

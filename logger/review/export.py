@@ -22,32 +22,51 @@ from logger.review.window import pick_channels
 from logger.store.files import StoreError, read_run_json
 
 FORMATS = ("csv", "jsonl")
-_OFFSET = re.compile(r"^\+?(\d+(?:\.\d+)?)(ms|s|min|m|h)$")
+_OFFSET = re.compile(r"^\+?((?:\d+(?:\.\d+)?(?:ms|s|min|m|h))+)$")
+_PIECE = re.compile(r"(\d+(?:\.\d+)?)(ms|s|min|m|h)")
 _UNIT_S = {"ms": 1e-3, "s": 1.0, "min": 60.0, "m": 60.0, "h": 3600.0}
 
 
 def parse_when(text: str, run_start: datetime) -> datetime:
-    """A time on the command line: an offset from the run's first sample (``90s``, ``+10m``, ``1.5h``) or
-    an ISO date-time (local time when it has no zone)."""
+    """A time on the command line: an offset from the run's first sample (``90s``, ``+10m``, ``1.5h``,
+    ``2h5m``) or an ISO date-time (local time when it has no zone)."""
     match = _OFFSET.match(text.strip())
     if match:
-        return run_start + timedelta(seconds=float(match.group(1)) * _UNIT_S[match.group(2)])
+        seconds = sum(float(n) * _UNIT_S[unit] for n, unit in _PIECE.findall(match.group(1)))
+        return run_start + timedelta(seconds=seconds)
     try:
         when = datetime.fromisoformat(text)
     except ValueError:
-        raise StoreError(f"{text!r}: expected an offset from the run's start (90s, 10m, 1.5h) or a date-time "
-                         "(2026-12-01T22:15:00)") from None
+        raise StoreError(f"{text!r}: expected an offset from the run's start (90s, 10m, 1h30m) or a date-time "
+                         "(2026-12-01T22:15:00, local time; add Z for UTC)") from None
     return when.astimezone(UTC) if when.tzinfo is None else when
 
 
 def run_start(folder: Path) -> datetime:
     """The run's first sample time (its first part's), or its start time."""
+    return run_span(folder)[0]
+
+
+def run_span(folder: Path) -> tuple[datetime, datetime]:
+    """The run's first and last sample times (from its parts), or its start and end."""
     meta = read_run_json(folder)
     parts = meta.get("parts") or [{}]
-    text = parts[0].get("first_utc") or meta.get("start_utc")
-    if not text:
+    first = parts[0].get("first_utc") or meta.get("start_utc")
+    last = parts[-1].get("last_utc") or meta.get("last_sample_utc") or meta.get("end_utc") or first
+    if not first:
         raise StoreError(f"{folder}: the run has no start time in _run.json")
-    return datetime.fromisoformat(text)
+    return datetime.fromisoformat(first), datetime.fromisoformat(last)
+
+
+def check_span(folder: Path, start: datetime | None, end: datetime | None) -> None:
+    """Refuse a stretch that holds no sample of the run, saying why, rather than write an empty file."""
+    first, last = run_span(folder)
+    if start is not None and end is not None and end < start:
+        raise StoreError(f"--until {end.isoformat()} is before --from {start.isoformat()}")
+    if start is not None and start > last:
+        raise StoreError(f"--from {start.isoformat()} is after the run's last sample ({last.isoformat()})")
+    if end is not None and end < first:
+        raise StoreError(f"--until {end.isoformat()} is before the run's first sample ({first.isoformat()})")
 
 
 def export_samples(

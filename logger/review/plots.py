@@ -92,8 +92,10 @@ def overview_png(folder: Path, path: Path, channels: list[str] | None = None) ->
                       start, stop, columns)
         mean = fold_mean(t, rollups[f"{name}_mean"].to_numpy()[have], count[have], start, stop, columns)
         x = _days(edges)
-        ax.fill_between(x, np.r_[lo, lo[-1]], np.r_[hi, hi[-1]], step="post", color=FILL, lw=0, label="min to max")
-        ax.step(x, np.r_[mean, mean[-1]], where="post", color=LINE, lw=0.9, label="mean of each column")
+        # Above the event marks (zorder), so a one-column dip is never hidden under the line that marks it.
+        ax.fill_between(x, np.r_[lo, lo[-1]], np.r_[hi, hi[-1]], step="post", facecolor=FILL, edgecolor=FILL,
+                        lw=0.8, label="min to max", zorder=3)
+        ax.step(x, np.r_[mean, mean[-1]], where="post", color=LINE, lw=0.9, label="mean of each column", zorder=4)
         lim = limits.get(name, Limits(""))
         _limit_lines(ax, lim)
         mine = [e for e in events if e["channel"] in (name, None) and e.get("episode") is None]
@@ -132,7 +134,8 @@ def event_png(window: Window, path: Path, limits: dict[str, Limits] | None = Non
     if not names or window.samples.num_rows == 0:
         axes[0].text(0.5, 0.5, "no samples in this window", transform=axes[0].transAxes, ha="center")
     axes[-1].set_xlim((to_us(window.start) - zero) / 1e6, (to_us(window.end) - zero) / 1e6)
-    axes[-1].set_xlabel(f"seconds from {local_text(from_us(zero))} local time ({zone_text(local_zone())})")
+    axes[-1].set_xlabel(f"seconds from {local_text(from_us(zero))} local time "
+                        f"({zone_text(local_zone(from_us(zero)))})")
     fig.suptitle(event_label(event) if event is not None else f"{local_text(window.start)} to "
                  f"{local_text(window.end)}", fontsize=11, wrap=True)
     _legend(fig, axes)
@@ -304,7 +307,7 @@ def _annotate(ax: Any, event: dict[str, Any], t: np.ndarray, y: np.ndarray, unit
 def _date_axis(ax: Any, left: float, right: float) -> None:
     import matplotlib.dates as mdates
 
-    zone = local_zone()
+    zone = local_zone(mdates.num2date(left))
     locator = mdates.AutoDateLocator(tz=zone, minticks=4, maxticks=10)
     ax.xaxis.set_major_locator(locator)
     ax.xaxis.set_major_formatter(mdates.ConciseDateFormatter(locator, tz=zone))

@@ -21,6 +21,7 @@ from logger.store.layout import parts_in
 
 def run_folders(root: Path) -> list[Path]:
     """Folders directly under ``root`` that are runs with sealed parts, oldest first (by name: start time)."""
+    root = Path(root)
     if not root.is_dir():
         raise StoreError(f"{root}: no such folder")
     return sorted(p for p in root.iterdir() if p.is_dir() and (p / "_run.json").exists() and parts_in(p))
@@ -28,6 +29,7 @@ def run_folders(root: Path) -> list[Path]:
 
 def open_runs(root: Path) -> ds.Dataset:
     """All runs under ``root`` as one pyarrow dataset with a ``run`` column."""
+    root = Path(root)
     runs = run_folders(root)
     if not runs:
         raise StoreError(f"{root}: no run folders with sealed parts here")

@@ -127,7 +127,7 @@ def run_pairs(meta: dict[str, Any]) -> list[Pair]:
         rig = parse_rig(meta.get("rig") or "", "the rig kept in _run.json", profiles=False)
     except RigError:
         return []
-    return [Pair(p.rail, rig.channels[p.volts].name, rig.channels[p.amps].name) for p in rig.power_pairs()]
+    return [Pair(p.rail, rig.channels[p.volts].name, rig.channels[p.amps].name, p.sign) for p in rig.power_pairs()]
 
 
 def _seconds_between(first: str | None, last: str | None) -> float:

@@ -48,6 +48,8 @@ class Pair:
     rail: str
     volts: str
     amps: str
+    sign: float = 1.0
+    """-1 for a negative rail, so the power it delivers is counted positive."""
 
 
 def gap_limit_us(metadata: dict[str, Any]) -> int:
@@ -65,7 +67,7 @@ def rollup_name(index: int) -> str:
 
 def pairs_of(metadata: dict[str, Any]) -> list[Pair]:
     """The power pairs a run's metadata names (``power_pairs``), or none."""
-    return [Pair(p["rail"], p["volts"], p["amps"]) for p in metadata.get("power_pairs", [])]
+    return [Pair(p["rail"], p["volts"], p["amps"], float(p.get("sign", 1.0))) for p in metadata.get("power_pairs", [])]
 
 
 def rollup_schema(channels: list[str], pairs: list[Pair]) -> pa.Schema:
@@ -171,7 +173,9 @@ class _Builder:
         self.max_step_us = max_step_us
         self.channels = channels
         self.pairs = pairs
-        self.pair_cols = [(channels.index(p.volts), channels.index(p.amps)) for p in pairs]
+        self.volt_cols = np.array([channels.index(p.volts) for p in pairs], dtype=int)
+        self.amp_cols = np.array([channels.index(p.amps) for p in pairs], dtype=int)
+        self.pair_signs = np.array([p.sign for p in pairs])
         self.carry = carry
         self.rows: list[dict[str, np.ndarray]] = []
 
@@ -197,9 +201,7 @@ class _Builder:
         """Trapezoid areas of each interval, summed into the second of its left sample. The interval from
         the carried sample lands in the first second of this batch when the carry is in that same second,
         else in a row of its own second."""
-        power = np.column_stack([values[:, v] * values[:, a] for v, a in self.pair_cols]) if self.pairs else \
-            np.zeros((len(utc), 0))
-        both = np.hstack([values, power])
+        both = np.hstack([values, self._power(values)])
         dt = np.diff(utc).astype(np.float64)
         area = (both[1:] + both[:-1]) / 2 * dt[:, None] * 1e-6
         ok = np.diff(utc) <= self.max_step_us
@@ -219,6 +221,10 @@ class _Builder:
                 self.rows.append(self._lead_row(key, lead_area, lead_dt))
         return {"int": integ, "covered": cover}
 
+    def _power(self, values: np.ndarray) -> np.ndarray:
+        """Volts x amps of each rail, counted positive for a negative rail (rows x rails)."""
+        return values[:, self.volt_cols] * values[:, self.amp_cols] * self.pair_signs
+
     def _lead(self, t0: int, first: np.ndarray) -> tuple[int, np.ndarray, float] | None:
         if self.carry is None:
             return None
@@ -226,8 +232,7 @@ class _Builder:
         step = t0 - t_prev
         if step <= 0 or step > self.max_step_us:
             return None
-        prev_power = np.array([prev[v] * prev[a] for v, a in self.pair_cols])
-        prev_both = np.r_[prev, prev_power]
+        prev_both = np.r_[prev, self._power(prev[None, :])[0]]
         return t_prev // SECOND_US, (prev_both + first) / 2 * step * 1e-6, step * 1e-6
 
     def _lead_row(self, key: int, area: np.ndarray, dt: float) -> dict[str, np.ndarray]:

@@ -60,7 +60,7 @@ class RailtapApp(App[str]):
         Binding("b", "bell", "bell"),
         Binding("z", "zero", "zero"),
         Binding("w", "record", "record"),
-        Binding("k", "calibrate", "calibrate"),
+        Binding("k", "calibrate", "cal"),
         Binding("q", "quit", "quit"),
         Binding("ctrl+q", "quit", "quit", show=False, priority=True),
         Binding("ctrl+c", "quit", "quit", show=False),

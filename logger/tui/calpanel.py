@@ -72,6 +72,7 @@ class CalPanel(VerticalScroll):
         self.remove_class("-open")
         self.query_one(Input).disabled = True  # not focusable while hidden, so keys go to the screen
         self._pending = None
+        self.app.set_focus(self.app.query_one("#events"))  # the arrow keys move through the events again
 
     def action_undo(self) -> None:
         self.points = self.points[:-1]

@@ -33,7 +33,7 @@ class Shown:
         """Rows of rig values with the power columns appended (shape (n, len(names)))."""
         if not self.pairs:
             return values
-        power = [values[:, p.volts] * values[:, p.amps] for p in self.pairs]
+        power = [p.sign * values[:, p.volts] * values[:, p.amps] for p in self.pairs]
         return np.column_stack([values, *power]).astype(np.float32, copy=False)
 
 

@@ -50,7 +50,8 @@ def event_title(event: Event) -> str:
 
 def event_details(event: Event) -> str:
     """Every field an event has, in words, for the line under the event list."""
-    text = f"#{event.id} {event.kind} {event.channel or 'link'} at {local_time(event.start_us)}"
+    where = event.channel or ("" if event.kind == "mark" else "link")
+    text = f"#{event.id} {event.kind}{' ' + where if where else ''} at {local_time(event.start_us)}"
     if event.end_us is not None:
         text += f", {duration_text(event.duration_s)}"
     elif event.kind not in ("mark", "device_reset"):

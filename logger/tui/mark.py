@@ -37,6 +37,7 @@ class MarkInput(Input):
     def action_close(self) -> None:
         self.remove_class("-open")
         self.disabled = True
+        self.app.set_focus(self.app.query_one("#events"))  # the arrow keys move through the events again
 
     def _on_input_submitted(self, event: Input.Submitted) -> None:
         event.stop()

@@ -94,15 +94,17 @@ class Readout(Widget):
     def show_totals(self, charge_ah: float, energy_wh: float) -> None:
         """For a power card: charge and energy since the start or the last reset, on the card's lower edge;
         on a narrow card they take the place of the min/max line instead."""
-        text = f"{charge_ah:.4g} Ah  {energy_wh:.4g} Wh"
-        if len(text) + 6 <= self.size.width:
+        # The layout is chosen by the card's width alone, and the figures keep their decimals, so the card does
+        # not jump between layouts as the numbers grow.
+        text = f"{charge_ah:.4f} Ah  {energy_wh:.3f} Wh"
+        if self.size.width >= 30:
             if self._totals_inline:
                 self._totals_inline, self._shown = False, None  # the min/max line is back on the next show
             self.border_subtitle = text
             return
         self._totals_inline = True
         self.border_subtitle = "charge, energy"
-        self.query_one(".range", Static).update(f"{charge_ah:.3g}Ah {energy_wh:.3g}Wh", layout=False)
+        self.query_one(".range", Static).update(f"{charge_ah:.3f}Ah {energy_wh:.2f}Wh", layout=False)
 
 
 class Readouts(Horizontal):
@@ -138,7 +140,7 @@ class Readouts(Horizontal):
             cards[k].mark(at_limit=k < len(snap.at_limit) and snap.at_limit[k], stale=stale,
                           outside=k < len(snap.outside_cal) and snap.outside_cal[k])
         for k, pair in enumerate(shown.pairs):
-            power = None if latest is None else float(latest[pair.volts] * latest[pair.amps])
+            power = None if latest is None else float(pair.sign * latest[pair.volts] * latest[pair.amps])
             card = cards[shown.measured + k]
             card.mark(stale=stale)
             card.show(power, _at(self.history.power_min, k), _at(self.history.power_max, k))
