@@ -178,7 +178,11 @@ def _screen_options(p: argparse.ArgumentParser) -> None:
 
 def cmd_record(args: argparse.Namespace) -> int:
     rig = _rig(args)
-    return _record(_source(args, rig), rig, args)
+    source = _source(args, rig)
+    if not args.quiet:
+        print(f"railtap record: {rig.name} from {source.name} into {args.out}/; Ctrl-C stops and seals the run",
+              file=sys.stderr)
+    return _record(source, rig, args)
 
 
 def cmd_live(args: argparse.Namespace) -> int:
@@ -440,7 +444,9 @@ def _print_status(pipeline: Pipeline, quiet: bool) -> None:
     while not pipeline.wait(every):
         if not quiet:
             snap = pipeline.snapshot()
-            fresh = [e for e in snap.events if (e.id or 0) > shown][::-1]
+            # From the event log's own memory (the last 500), not the snapshot's 50: a burst of events
+            # between two status lines (a flickering meter) must all reach the log.
+            fresh = [e for e in pipeline.events.recent(500) if (e.id or 0) > shown][::-1]
             shown = max([shown, *(e.id or 0 for e in fresh)])
             for event in fresh:
                 print(event_line(event), file=sys.stderr)
