@@ -178,11 +178,7 @@ def _screen_options(p: argparse.ArgumentParser) -> None:
 
 def cmd_record(args: argparse.Namespace) -> int:
     rig = _rig(args)
-    source = _source(args, rig)
-    if not args.quiet:
-        print(f"railtap record: {rig.name} from {source.name} into {args.out}/; Ctrl-C stops and seals the run",
-              file=sys.stderr)
-    return _record(source, rig, args)
+    return _record(_source(args, rig), rig, args)
 
 
 def cmd_live(args: argparse.Namespace) -> int:
@@ -421,6 +417,9 @@ def _record(source: Source, rig: Rig, args: argparse.Namespace, screen: bool = F
         print(f"railtap: warning: {warning}", file=sys.stderr)
     pipeline = Pipeline(source, rig, settings)
     pipeline.start()
+    if args.run is cmd_record and not args.quiet:
+        print(f"railtap record: {rig.name} from {source.name} into {args.out}/; Ctrl-C stops and seals the run",
+              file=sys.stderr)
     _on_signals(lambda: pipeline.request_stop("stopped by signal"))
     try:
         if screen:
