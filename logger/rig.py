@@ -17,7 +17,7 @@ from typing import Any
 from logger.cal.profile import Profile, ProfileError, load_profile
 
 ROLES = ("volts", "amps", "aux")
-UNITS = {"volts": "V", "amps": "A"}
+UNITS = {"volts": "V", "amps": "A", "aux": "V"}  # an aux tap is a voltage through a divider, unless it says
 _NAME = re.compile(r"^[a-z][a-z0-9_]{0,23}$")
 
 
