@@ -464,8 +464,8 @@ class Pipeline:
             )
         elif now - self._bytes_at >= QUIET_S and (self.header is not None or self._frames_seen == 0):
             self.state, self.message = "silent", (
-                f"nothing from the device for {now - self._bytes_at:.0f} s: is it powered, and its firmware "
-                "running? (the run goes on when data comes back)"
+                f"nothing from {self.source.name} for {now - self._bytes_at:.0f} s: is this the tap's port, is the "
+                "device powered and its firmware running? (the run goes on when data comes back)"
             )
 
     def _watch_header(self) -> None:

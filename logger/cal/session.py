@@ -195,10 +195,10 @@ def _save(rig: Rig, ch: Channel, profile: Profile, opts: CalOptions, say: Say) -
         raise CalError(f"{path}: cannot write the profile ({exc.strerror or exc})") from None
     say(f"saved {profile.model} profile for {ch.name} to {path} (due again {profile.due or 'never'})\n")
     if ch.profile_path is None or profile_path(rig, ch, None) != path:
-        on_disk = bool(rig.source) and not rig.source.startswith("<")
+        on_disk = bool(rig.source) and Path(rig.source).is_file()
         named = Path(os.path.relpath(path, Path(rig.source).parent)).as_posix() if on_disk else str(path)
-        say(f"to use it, add to channel {ch.name!r} of {rig.source if on_disk else 'the rig file'}:  "
-            f"profile = \"{named}\"\n")
+        where = rig.source if on_disk else "your rig file (a simulated rig's: `railtap sim --write-rig FILE`)"
+        say(f"to use it, add to channel {ch.name!r} of {where}:  profile = \"{named}\"\n")
     return path
 
 

@@ -67,10 +67,10 @@ def window_text(w: Window, most_rows: int = 40) -> str:
     e = w.event
     if e is not None:
         lasted = f", {e['duration_s']:.3f} s" if e.get("duration_s") is not None else ""
-        lines.append(f"event #{e['id']}: {e['kind']} on {e['channel'] or 'the link'} at {_t(e['start'])}{lasted}: "
+        lines.append(f"event #{e['id']}: {e['kind']} on {e['channel'] or 'the link'} at {_t(e['start'])} UTC{lasted}: "
                      f"{e['detail']}")
     table = w.samples
-    lines.append(f"{table.num_rows:,} samples from {_t(w.start)} to {_t(w.end)}"
+    lines.append(f"{table.num_rows:,} samples from {_t(w.start)} to {_t(w.end)} UTC"
                  + (f" (one in {max(1, table.num_rows // most_rows)} shown)" if table.num_rows > most_rows else ""))
     step = max(1, table.num_rows // most_rows)
     rows = table.take(pa.array(range(0, table.num_rows, step))).to_pylist() if table.num_rows else []
