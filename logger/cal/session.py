@@ -112,6 +112,7 @@ def collect_points(pipeline: Pipeline, ch: Channel, k: int, opts: CalOptions, as
     say(f"Set the rig so {ch.name} reads a steady value, read it on your reference meter, and type it in "
         f"{ch.unit}. Enter on its own when done, u to undo the last point, q to give up.\n")
     while most is None or len(points) < most:
+        say(_now_reading(pipeline, k))
         answer = ask(f"point {len(points) + 1}, reference in {ch.unit}: ").strip().lower()
         if answer in ("", "done"):
             break
@@ -126,6 +127,8 @@ def collect_points(pipeline: Pipeline, ch: Channel, k: int, opts: CalOptions, as
         except ValueError:
             say(f"  {answer!r} is not a number; type the reference value in {ch.unit}\n")
             continue
+        if any(p.reference == reference for p in points):
+            say(f"  note: {reference:g} {ch.unit} was taken already; a second point there only weighs it twice\n")
         reading = capture(pipeline, k, opts, say)
         if not reading.settled:
             say(f"  not taken: {reading.why}. Let the rig settle, then type the value again.\n")
@@ -134,6 +137,16 @@ def collect_points(pipeline: Pipeline, ch: Channel, k: int, opts: CalOptions, as
         say(f"  point {len(points)}: {reference:g} {ch.unit} at {reading.mean:.2f} counts "
             f"(sd {reading.sd:.2f}, {reading.samples} samples)\n")
     return points
+
+
+def _now_reading(pipeline: Pipeline, k: int) -> str:
+    """The channel's raw reading over the last second, so the user sees it before typing a value."""
+    ring = pipeline.counts_ring
+    rate = pipeline.header.rate_hz if pipeline.header else 1000.0
+    if ring is None or ring.written < 8:
+        return ""
+    counts = ring.latest(min(ring.capacity, max(8, round(rate))))[1][:, k]
+    return f"  now reading {counts.mean():.2f} counts (sd {counts.std():.2f})\n"
 
 
 def choose(a: Assessment, model: str) -> Candidate:

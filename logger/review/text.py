@@ -18,6 +18,10 @@ def _g(value: float | None, digits: int = 4) -> str:
     return "-" if value is None or value != value else f"{value:.{digits}g}"
 
 
+def _n(count: int, noun: str) -> str:
+    return f"{count:,} {noun}" + ("" if count == 1 else "s")
+
+
 def _duration(seconds: float) -> str:
     whole = int(seconds)
     clock = f"{whole // 3600}:{whole // 60 % 60:02d}:{whole % 60:02d}"
@@ -27,16 +31,20 @@ def _duration(seconds: float) -> str:
 def summary_text(s: Summary) -> str:
     """Everything a summary holds, most useful first."""
     link = s.link
-    lines = [
+    counts = (f"; link: {_n(link.get('lost', 0), 'frame')} lost, {_n(link.get('rejected', 0), 'line')} rejected, "
+              f"{_n(link.get('resets', 0), 'device reset')}, {_n(link.get('reconnects', 0), 'reconnect')}")
+    head = [
         f"run {s.folder.name}: {s.status}, {s.stop_reason}",
         f"from {s.start_utc} to {s.end_utc}: {_duration(s.duration_s)}, {s.samples:,} samples"
         + (f" at {link['rate_hz']:g} Hz" if link.get("rate_hz") else ""),
-        f"gaps: {s.gaps} (frame gaps and link outages), {s.gap_s:.3f} s in all"
-        + (f"; link: {link.get('lost', 0):,} frames lost, {link.get('rejected', 0):,} lines rejected, "
-           f"{link.get('resets', 0)} device resets, {link.get('reconnects', 0)} reconnects" if link else ""),
+        f"gaps: {s.gaps} (frame gaps and link outages), {s.gap_s:.3f} s in all" + (counts if link else ""),
         f"device clock drift: {_g(link.get('drift_ppm'), 3)} ppm" if link.get("drift_ppm") is not None
         else "device clock drift: not measured",
         f"figures from the {s.source}",
+    ]
+    lines = [
+        *(line + "  " for line in head[:-1]),  # two spaces: a line break where the text is read as Markdown
+        head[-1],
         "",
         "| channel | unit | min | mean | max | std | ripple p-p (typical / worst) | ripple RMS (typical / worst) "
         "| below threshold | above |",
