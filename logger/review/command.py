@@ -11,6 +11,7 @@ import sys
 from pathlib import Path
 
 from logger.review.progress import Bar
+from logger.review.show import show
 from logger.store.files import StoreError
 
 
@@ -67,17 +68,17 @@ def cmd_review(args: argparse.Namespace) -> int:
         from logger.review.window import around_event
 
         window = around_event(folder, args.event, args.before, args.after, channels)
-        print(window_text(window))
+        show(window_text(window))
         _event_pictures(folder, window, args)
         return 0
     from logger.review.summary import summarize
 
     with Bar("scanning every sample") as bar:
         summary = summarize(folder, full=args.full, progress=bar)
-    print(summary_text(summary))
+    show(summary_text(summary))
     if args.events:
         print()
-        print(events_text(folder))
+        show(events_text(folder))
     _run_pictures(folder, [c.name for c in summary.channels if not channels or c.name in channels], args)
     return 0
 
@@ -143,7 +144,7 @@ def cmd_report(args: argparse.Namespace) -> int:
 def cmd_compare(args: argparse.Namespace) -> int:
     from logger.review.compare import compare_text
 
-    print(compare_text(args.a, args.b, full=args.full))
+    show(compare_text(args.a, args.b, full=args.full))
     return 0
 
 
@@ -160,7 +161,7 @@ def _review_many(root: Path) -> int:
             raise StoreError(f"{root}: {len(cut)} run(s) here were cut short and are not sealed yet; seal them with "
                              f"`railtap recover {root}`")
         raise StoreError(f"{root}: not a run folder (no _run.json) and no run folders in it")
-    print(runs_text(summarize_runs(root)))
+    show(runs_text(summarize_runs(root)))
     return 0
 
 

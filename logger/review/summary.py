@@ -235,7 +235,7 @@ def _calibration_text(entry: dict[str, Any] | None) -> str:
         return "not recorded"
     profile = entry.get("profile")
     if profile is None:
-        return str(entry.get("scaling", "rig file scaling"))
+        return "the rig file's scaling"
     where = entry.get("profile_path") or (f"applied by {entry['by']}" if entry.get("by") else "")
     return (f"{profile.get('model')} profile{' ' + where if where else ''}, {len(profile.get('points', []))} "
             f"points, made {str(profile.get('created', ''))[:10]}")

@@ -64,7 +64,10 @@ def summary_text(s: Summary) -> str:
               f"{'-' if k.longest_s is None else f'{k.longest_s:.3f} s'} |" for k in s.events]
     if not s.events:
         lines.append("| (none) | | | | | |")
-    lines += ["", "calibration: " + "; ".join(f"{c}: {text}" for c, text in s.calibration.items())]
+    same: dict[str, list[str]] = {}
+    for channel, text in s.calibration.items():
+        same.setdefault(text, []).append(channel)
+    lines += ["", "calibration: " + "; ".join(f"{', '.join(chs)}: {text}" for text, chs in same.items())]
     return "\n".join(lines)
 
 
