@@ -86,8 +86,7 @@ def rollup_part(part: Path, pairs: list[Pair], carry: tuple[int, np.ndarray] | N
     builder = _Builder(channels, pairs, carry, max_step_us)
     for batch in source.iter_batches(columns=["utc", *channels]):
         utc = as_numpy(batch.column("utc"), np.int64)
-        values = np.column_stack([as_numpy(batch.column(c), np.float32) for c in channels]).astype(np.float64)
-        builder.add(utc, values)
+        builder.add(utc, np.vstack([as_numpy(batch.column(c), np.float32) for c in channels]).astype(np.float64))
     return builder.table()
 
 
@@ -179,51 +178,52 @@ class _Builder:
         self.carry = carry
         self.rows: list[dict[str, np.ndarray]] = []
 
-    def add(self, utc: np.ndarray, values: np.ndarray) -> None:
+    def add(self, utc: np.ndarray, cols: np.ndarray) -> None:
+        """Fold one batch: ``cols`` holds one row per channel (channels x samples), so every reduction runs
+        along contiguous memory."""
         if len(utc) == 0:
             return
         keys = utc // SECOND_US
         starts = np.flatnonzero(np.r_[True, keys[1:] != keys[:-1]])
         counts = np.diff(np.r_[starts, len(utc)])
-        mean = np.add.reduceat(values, starts, axis=0) / counts[:, None]
-        dev = values - np.repeat(mean, counts, axis=0)
-        row = {
+        mean = np.add.reduceat(cols, starts, axis=1) / counts
+        dev = cols - np.repeat(mean, counts, axis=1)
+        integ, cover = self._integrals(utc, cols, keys, starts)
+        self.rows.append({
             "key": keys[starts], "count": counts,
-            "min": np.minimum.reduceat(values, starts, axis=0), "max": np.maximum.reduceat(values, starts, axis=0),
-            "mean": mean, "m2": np.add.reduceat(dev * dev, starts, axis=0),
-        }
-        row.update(self._integrals(utc, values, keys, starts))
-        self.rows.append(row)
-        self.carry = (int(utc[-1]), values[-1].copy())
+            "min": np.minimum.reduceat(cols, starts, axis=1).T, "max": np.maximum.reduceat(cols, starts, axis=1).T,
+            "mean": mean.T, "m2": np.add.reduceat(dev * dev, starts, axis=1).T, "int": integ.T, "covered": cover,
+        })
+        self.carry = (int(utc[-1]), cols[:, -1].copy())
 
-    def _integrals(self, utc: np.ndarray, values: np.ndarray, keys: np.ndarray,
-                   starts: np.ndarray) -> dict[str, np.ndarray]:
+    def _integrals(self, utc: np.ndarray, cols: np.ndarray, keys: np.ndarray,
+                   starts: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         """Trapezoid areas of each interval, summed into the second of its left sample. The interval from
         the carried sample lands in the first second of this batch when the carry is in that same second,
         else in a row of its own second."""
-        both = np.hstack([values, self._power(values)])
-        dt = np.diff(utc).astype(np.float64)
-        area = (both[1:] + both[:-1]) / 2 * dt[:, None] * 1e-6
-        ok = np.diff(utc) <= self.max_step_us
-        area[~ok] = 0.0
-        covered = np.where(ok, dt * 1e-6, 0.0)
-        # Interval i starts at sample i, so the intervals of a second start where its samples do; a zero row
+        both = np.vstack([cols, self._power(cols)])
+        steps = np.diff(utc)
+        ok = steps <= self.max_step_us
+        half_dt = np.where(ok, steps * 0.5e-6, 0.0)
+        # Interval i starts at sample i, so the intervals of a second start where its samples do; a zero column
         # at the end gives the last second (whose last sample starts no interval) something to sum.
-        integ = np.add.reduceat(np.vstack([area, np.zeros((1, both.shape[1]))]), starts, axis=0)
-        cover = np.add.reduceat(np.r_[covered, 0.0], starts)
-        lead = self._lead(utc[0], both[0])
+        area = np.zeros((both.shape[0], len(utc)))
+        area[:, :-1] = (both[:, 1:] + both[:, :-1]) * half_dt
+        integ = np.add.reduceat(area, starts, axis=1)
+        cover = np.add.reduceat(np.r_[2.0 * half_dt, 0.0], starts)
+        lead = self._lead(utc[0], both[:, 0])
         if lead is not None:
             key, lead_area, lead_dt = lead
             if key == keys[0]:
-                integ[0] += lead_area
+                integ[:, 0] += lead_area
                 cover[0] += lead_dt
             else:
                 self.rows.append(self._lead_row(key, lead_area, lead_dt))
-        return {"int": integ, "covered": cover}
+        return integ, cover
 
-    def _power(self, values: np.ndarray) -> np.ndarray:
-        """Volts x amps of each rail, counted positive for a negative rail (rows x rails)."""
-        return values[:, self.volt_cols] * values[:, self.amp_cols] * self.pair_signs
+    def _power(self, cols: np.ndarray) -> np.ndarray:
+        """Volts x amps of each rail (rails x samples), counted positive for a negative rail."""
+        return cols[self.volt_cols] * cols[self.amp_cols] * self.pair_signs[:, None]
 
     def _lead(self, t0: int, first: np.ndarray) -> tuple[int, np.ndarray, float] | None:
         if self.carry is None:
@@ -232,7 +232,7 @@ class _Builder:
         step = t0 - t_prev
         if step <= 0 or step > self.max_step_us:
             return None
-        prev_both = np.r_[prev, self._power(prev[None, :])[0]]
+        prev_both = np.r_[prev, self._power(prev[:, None])[:, 0]]
         return t_prev // SECOND_US, (prev_both + first) / 2 * step * 1e-6, step * 1e-6
 
     def _lead_row(self, key: int, area: np.ndarray, dt: float) -> dict[str, np.ndarray]:
