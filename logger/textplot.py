@@ -34,7 +34,10 @@ def value_range(lo: np.ndarray, hi: np.ndarray, threshold: float | None) -> tupl
     if threshold is not None:
         bottom, top = min(bottom, threshold), max(top, threshold)
     room = max((top - bottom) * 0.05, abs(top) * 0.002, 1e-6)
-    return bottom - room, top + room
+    # The room never carries the axis across zero: a positive rail's stops at 0 below, a negative rail's above.
+    low = max(bottom - room, 0.0) if bottom >= 0 else bottom - room
+    high = min(top + room, 0.0) if top <= 0 else top + room
+    return low, high
 
 
 def draw_columns(lo: np.ndarray, hi: np.ndarray, threshold: float | None, bottom: float, top: float,
