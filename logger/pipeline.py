@@ -219,21 +219,28 @@ class Pipeline:
                 elif (u := self._unwrap(item, host_time)) is not None:
                     ready.append((item, u))
             elif isinstance(item, DeviceHeader):
+                if ready and _format(item) != _format(self.header):  # frames before it are read the old way
+                    self._stamp_all(ready, host_time)
+                    ready = []
                 self._on_header(item)
             else:
                 self.answers.append(item)
-        if ready:
-            # Only the newest frame is known to have arrived just before the last read returned: it alone
-            # is paired with that time, before any of the drained frames is stamped (a header line splits
-            # the frames into batches, whose earlier arrivals are unknown and would loosen the clock fit).
-            self._observe(ready[-1][1], host_time)
-            for batch, u in ready:
-                self._stamp(batch, u)
+        self._stamp_all(ready, host_time)
         self.rate.mark(self.decoder.counters.frames)
         if self.decoder.counters.frames != self._frames_seen:
             self._frames_seen, self._frames_at = self.decoder.counters.frames, time.monotonic()
         if self._last_utc_us is not None:
             self._note(self.link.rejects(self.decoder.counters.rejected, self._last_utc_us))
+
+    def _stamp_all(self, ready: list[tuple[FrameBatch, Unwrapped]], host_time: float) -> None:
+        """Stamp and hand on a drain's batches. Only the newest frame is known to have arrived just before the
+        last read returned: it alone is paired with that time, before any is stamped (a header line splits
+        the frames into batches, whose earlier arrivals are unknown and would loosen the clock fit)."""
+        if not ready:
+            return
+        self._observe(ready[-1][1], host_time)
+        for batch, u in ready:
+            self._stamp(batch, u)
 
     def _hold_until_header(self, batch: FrameBatch, host_time: float) -> None:
         """Keep frames that came before the first header (they need its ADC bits and reference); past
@@ -250,8 +257,7 @@ class Pipeline:
         if header.reason == "boot" and not first:
             self.unwrapper.restart()
         self.unwrapper.set_rate(header.rate_hz)
-        if first or header.channels != self.header.channels or header.adc_bits != self.header.adc_bits \
-                or header.vref_mv != self.header.vref_mv:
+        if first or _format(header) != _format(self.header):
             self.calibrator = Calibrator(self.rig, header)
             self._watch_spans()
         self.header = header
@@ -632,3 +638,8 @@ class Pipeline:
             drift_ppm=self.clock.drift_ppm,
             decoder=c.as_dict(),
         )
+
+
+def _format(header: DeviceHeader) -> tuple[Any, ...]:
+    """What a header says about how to read the frames after it: the inputs, bits and reference."""
+    return header.channels, header.adc_bits, header.vref_mv
