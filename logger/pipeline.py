@@ -202,7 +202,7 @@ class Pipeline:
         self._bytes_at = time.monotonic()
         self._held.append(chunk.data)
         self._held_bytes += len(chunk.data)
-        self._held_time = chunk.host_time
+        self._held_time = chunk.wall_time
 
     def _drain(self) -> None:
         """Decode everything held; every byte had arrived by the host time of the last read."""

@@ -16,13 +16,22 @@ class LinkLost(SourceError):
 
 @dataclass(frozen=True)
 class Chunk:
-    """Bytes as read, with the host time (UTC seconds since the epoch) at which they arrived.
+    """Bytes as read, with the time at which they arrived.
 
-    An empty ``data`` means the read timed out with nothing to say.
+    ``host_time`` is seconds on the source's steady clock (``time.monotonic()`` for a port, immune to steps of
+    the wall clock; the simulated or recorded clock for the simulator and a replay), NaN when unknown.
+    ``wall_offset`` turns it into UTC: ``host_time + wall_offset`` is seconds since the epoch (0 where the
+    steady clock already is UTC). An empty ``data`` means the read timed out with nothing to say.
     """
 
     data: bytes
     host_time: float
+    wall_offset: float = 0.0
+
+    @property
+    def wall_time(self) -> float:
+        """UTC seconds since the epoch at arrival (NaN when unknown)."""
+        return self.host_time + self.wall_offset
 
 
 class Source(Protocol):

@@ -69,7 +69,8 @@ class SerialSource:
         except (serial.SerialException, OSError) as exc:
             self._lost()
             raise LinkLost(f"{self.url}: link lost while reading ({_detail(exc)})") from None
-        return Chunk(bytes(data), time.time())
+        now = time.monotonic()
+        return Chunk(bytes(data), now, time.time() - now)
 
     def write(self, data: bytes) -> None:
         """Send a command line to the device."""

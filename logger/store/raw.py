@@ -43,8 +43,8 @@ class RawCaptureWriter:
     def write(self, chunk: Chunk) -> None:
         """Buffer one chunk (empty ones are skipped); flush when the last flush is half a second old."""
         if chunk.data:
-            known = math.isfinite(chunk.host_time)
-            self._arrivals.append(round(chunk.host_time * 1e6) if known else None)
+            known = math.isfinite(chunk.wall_time)
+            self._arrivals.append(round(chunk.wall_time * 1e6) if known else None)
             self._data.append(chunk.data)
             self.chunks += 1
             self.bytes += len(chunk.data)
