@@ -493,7 +493,7 @@ def _report(pipeline: Pipeline) -> int:
         print(f"{final['folder']}: {final.get('rows', 0)} rows, "
               f"{len(final.get('parts', []))} part(s); {final.get('stop_reason', pipeline.stop_reason)}")
     link = snap.link
-    drift = f"{link.drift_ppm:+.1f} ppm" if pipeline.clock.fitted else "not measured (needs 30 s)"
+    drift = f"{link.drift_ppm:+.1f} ppm" if link.drift_ppm is not None else "not measured (needs 30 s of arrivals)"
     print(f"frames {link.frames}, lost {link.lost}, rejected lines {link.rejected} (bad CRC {link.bad_crc}), "
           f"device resets {link.resets}, reconnects {link.reconnects}, device clock drift {drift}")
     if pipeline.error:

@@ -121,7 +121,8 @@ class LinkHealth:
     bad_crc: int
     resets: int
     reconnects: int
-    drift_ppm: float
+    drift_ppm: float | None
+    """None until 30 s of arrivals have measured it (and for data that does not arrive in real time)."""
     decoder: dict[str, int] = field(default_factory=dict)
     down_since: float | None = None
     """When the link was lost (UTC seconds), while the pipeline is reconnecting."""

@@ -18,7 +18,6 @@ import numpy as np
 
 from logger.cal.profile import Profile
 from logger.calibration import Calibrator, stand_in_header
-from logger.clock import ClockFit, Unwrapped, Unwrapper
 from logger.events import Event, EventDetector
 from logger.events.link import LinkWatch
 from logger.events.log import EventLog
@@ -29,6 +28,7 @@ from logger.rig import Rig, RigError
 from logger.sources.base import Chunk, LinkLost, Source, SourceError
 from logger.store import sample_batch, sample_schema
 from logger.store.files import utc_text
+from logger.timebase import Stamped, TimeBase
 from logger.wire import Answer, Decoder, DeviceHeader, FrameBatch, encode_line
 
 ASK_HEADER = encode_line("?H")
@@ -52,6 +52,9 @@ class Settings:
     """Reads are gathered for this long before decoding: fewer, larger batches cost less CPU."""
     header_wait_s: float = 10.0
     retry_s: float = 1.0
+    start_utc: float | None = None
+    """UTC seconds for the first sample when the source cannot say when bytes arrived (a plain byte dump):
+    ``--start`` or the file's own time; None takes the host's clock."""
     record_at_start: bool = True
     """False: watch only until :meth:`Pipeline.set_recording` starts a run (needs ``record_root``)."""
 
@@ -64,8 +67,8 @@ class Pipeline:
         self.rig = rig
         self.settings = settings or Settings()
         self.decoder = Decoder()
-        self.unwrapper = Unwrapper()
-        self.clock = ClockFit()
+        self.timebase: TimeBase | None = None
+        """Made at the first header (it needs the rate); the one owner of the run's time."""
         self.header: DeviceHeader | None = None
         self.calibrator: Calibrator | None = None
         self.recorder: Recorder | None = None
@@ -86,14 +89,14 @@ class Pipeline:
         self.reconnects = 0
         self._names = tuple(ch.name for ch in rig.channels)
         self._schema = sample_schema(self._names)
-        self._pending: list[tuple[FrameBatch, float]] = []
+        self._pending: list[tuple[FrameBatch, float, float]] = []
         self._pending_frames = 0
         self.unheaded = 0
         """Frames dropped because no header came to say how to read them."""
         self._pending_raw: list[Chunk] = []
         self._held: list[bytes] = []
         self._held_bytes = 0
-        self._held_time = float("nan")
+        self._held_time = (float("nan"), 0.0)
         self._fed_at = 0.0
         self._bytes_at = self._frames_at = time.monotonic()
         self._frames_seen = self._rejects_seen = 0
@@ -202,61 +205,47 @@ class Pipeline:
         self._bytes_at = time.monotonic()
         self._held.append(chunk.data)
         self._held_bytes += len(chunk.data)
-        self._held_time = chunk.wall_time
+        self._held_time = (chunk.host_time, chunk.wall_offset)
 
     def _drain(self) -> None:
         """Decode everything held; every byte had arrived by the host time of the last read."""
         self._fed_at = time.monotonic()
         if not self._held:
             return
-        data, host_time = b"".join(self._held), self._held_time
+        data, (arrival, offset) = b"".join(self._held), self._held_time
         self._held, self._held_bytes = [], 0
-        ready: list[tuple[FrameBatch, Unwrapped]] = []
         for item in self.decoder.feed(data):
             if isinstance(item, FrameBatch):
-                if self.calibrator is None:
-                    self._hold_until_header(item, host_time)
-                elif (u := self._unwrap(item, host_time)) is not None:
-                    ready.append((item, u))
+                if self.timebase is None:
+                    self._hold_until_header(item, arrival, offset)
+                else:
+                    self._emit(item, arrival, offset)
             elif isinstance(item, DeviceHeader):
-                if ready and _format(item) != _format(self.header):  # frames before it are read the old way
-                    self._stamp_all(ready, host_time)
-                    ready = []
                 self._on_header(item)
             else:
                 self.answers.append(item)
-        self._stamp_all(ready, host_time)
         self.rate.mark(self.decoder.counters.frames)
         if self.decoder.counters.frames != self._frames_seen:
             self._frames_seen, self._frames_at = self.decoder.counters.frames, time.monotonic()
         if self._last_utc_us is not None:
             self._note(self.link.rejects(self.decoder.counters.rejected, self._last_utc_us))
 
-    def _stamp_all(self, ready: list[tuple[FrameBatch, Unwrapped]], host_time: float) -> None:
-        """Stamp and hand on a drain's batches. Only the newest frame is known to have arrived just before the
-        last read returned: it alone is paired with that time, before any is stamped (a header line splits
-        the frames into batches, whose earlier arrivals are unknown and would loosen the clock fit)."""
-        if not ready:
-            return
-        self._observe(ready[-1][1], host_time)
-        for batch, u in ready:
-            self._stamp(batch, u)
-
-    def _hold_until_header(self, batch: FrameBatch, host_time: float) -> None:
+    def _hold_until_header(self, batch: FrameBatch, arrival: float, offset: float) -> None:
         """Keep frames that came before the first header (they need its ADC bits and reference); past
         ``MAX_PENDING_FRAMES`` the oldest go, counted, so a device that never sends one cannot fill memory."""
-        self._pending.append((batch, host_time))
+        self._pending.append((batch, arrival, offset))
         self._pending_frames += len(batch)
         while self._pending_frames > MAX_PENDING_FRAMES and len(self._pending) > 1:
-            dropped, _ = self._pending.pop(0)
+            dropped, _, _ = self._pending.pop(0)
             self._pending_frames -= len(dropped)
             self.unheaded += len(dropped)
 
     def _on_header(self, header: DeviceHeader) -> None:
         first = self.header is None
-        if header.reason == "boot" and not first:
-            self.unwrapper.restart()
-        self.unwrapper.set_rate(header.rate_hz)
+        if first:
+            start = self.settings.start_utc
+            self.timebase = TimeBase(header, time.time() if start is None else start)
+        self.timebase.on_header(header, first)
         if first or _format(header) != _format(self.header):
             self.calibrator = Calibrator(self.rig, header)
             self._watch_spans()
@@ -274,8 +263,8 @@ class Pipeline:
             self._open_recorder(header)
         self.state, self.message = "running", f"receiving from {self.source.name}"
         pending, self._pending, self._pending_frames = self._pending, [], 0
-        for batch, host_time in pending:
-            self._emit(batch, host_time)
+        for batch, arrival, offset in pending:
+            self._emit(batch, arrival, offset)
 
     def _open_recorder(self, header: DeviceHeader) -> None:
         self.recorder = Recorder(
@@ -292,35 +281,30 @@ class Pipeline:
             self.recorder.add_raw(chunk)
         self._pending_raw = []
 
-    def _emit(self, batch: FrameBatch, host_time: float) -> None:
-        """Unwrap, pair with its arrival time, stamp, calibrate and hand on one batch."""
-        if (u := self._unwrap(batch, host_time)) is not None:
-            self._observe(u, host_time)
-            self._stamp(batch, u)
-
-    def _unwrap(self, batch: FrameBatch, host_time: float) -> Unwrapped | None:
-        u = self.unwrapper.feed(batch.seq, batch.device_us, host_time)
-        if len(u.seq) == 0 or self._duration_reached():
-            return None
-        if self._first_us is None:
-            self._first_us = int(u.device_us[0])
-        if u.resets:
-            self.clock.restart()
-        return u
-
-    def _observe(self, u: Unwrapped, host_time: float) -> None:
-        self.clock.observe(int(u.device_us[-1]), host_time)
-
-    def _stamp(self, batch: FrameBatch, u: Unwrapped) -> None:
-        within = self._within_duration(u.device_us)
-        device_us, seq, raw = u.device_us[within], u.seq[within], batch.counts[u.keep][within]
-        if len(device_us) == 0:  # all past the end of --duration (batches of one drain are stamped together)
+    def _emit(self, batch: FrameBatch, arrival: float, offset: float) -> None:
+        """Put one batch on the run's time axis and hand on what it keeps."""
+        if self._duration_reached():
             return
-        utc = self.clock.to_utc_us(device_us)
+        stamped = self.timebase.feed(batch, arrival, offset)
+        for step in self.timebase.clock_steps():
+            self._note([Event("clock_step", step.utc_us, value=step.step_s,
+                              detail=f"the host's wall clock stepped by {step.step_s:+.3f} s; labels slew to it, "
+                                     "durations are measured on the device clock")])
+        if len(stamped) == 0:
+            return
+        if self._first_us is None:
+            self._first_us = int(stamped.device_us[0])
+        self._stamp(stamped)
+
+    def _stamp(self, s: Stamped) -> None:
+        within = self._within_duration(s.device_us)
+        device_us, seq, raw, utc = s.device_us[within], s.seq[within], s.counts[within], s.utc_us[within]
+        if len(device_us) == 0:  # all past the end of --duration
+            return
         counts = self.calibrator.select(raw)
         self._apply_zeros(counts, utc)
         values = self.calibrator.apply(raw)
-        self._note(self.link.frames(u.gaps, u.resets, utc, self.header.rate_hz, self._last_utc_us))
+        self._note(self.link.frames(list(s.gaps), list(s.resets), utc, self.header.rate_hz, self._last_utc_us))
         self._track(utc, values, counts, device_us)
         if len(utc):
             self._at_limit = self.calibrator.at_limit(counts[-1])
@@ -614,28 +598,32 @@ class Pipeline:
     def _link_counts(self, since: dict[str, int] | None = None) -> dict[str, Any]:
         """The link's counters (less those in ``since``) and the device clock's drift, for ``_run.json``."""
         c = self.decoder.counters
-        now = {"frames": c.frames, "lost": self.unwrapper.lost, "rejected": c.rejected, "bad_crc": c.bad_crc,
-               "resets": self.unwrapper.resets, "reconnects": self.reconnects}
+        t = self.timebase.counters if self.timebase is not None else None
+        now = {"frames": c.frames, "lost": t.lost if t else 0, "inconsistent": t.inconsistent if t else 0,
+               "rejected": c.rejected, "bad_crc": c.bad_crc, "resets": t.resets if t else 0,
+               "reconnects": self.reconnects}
         since = since or {}
         counts: dict[str, Any] = {k: v - since.get(k, 0) for k, v in now.items()}
-        counts["drift_ppm"] = round(self.clock.drift_ppm, 2) if self.clock.fitted else None
+        drift = self.timebase.drift_ppm if self.timebase is not None else None
+        counts["drift_ppm"] = None if drift is None else round(drift, 2)
         counts["rate_hz"] = self.header.rate_hz if self.header else None
         return counts
 
     def _link_health(self) -> LinkHealth:
         c = self.decoder.counters
+        t = self.timebase.counters if self.timebase is not None else None
         return LinkHealth(
             source=self.source.name,
             connected=self.state in ("running", "waiting", "garbled", "silent"),
             down_since=self.down_since,
             frames=c.frames,
             rate_hz=self.rate.per_second(),
-            lost=self.unwrapper.lost,
+            lost=t.lost if t else 0,
             rejected=c.rejected,
             bad_crc=c.bad_crc,
-            resets=self.unwrapper.resets,
+            resets=t.resets if t else 0,
             reconnects=self.reconnects,
-            drift_ppm=self.clock.drift_ppm,
+            drift_ppm=self.timebase.drift_ppm if self.timebase is not None else None,
             decoder=c.as_dict(),
         )
 

@@ -431,7 +431,7 @@ def test_firmware_in_the_emulator_is_recorded_whole(emulator: Emulator, tmp_path
     assert pipeline.error is None and final is not None and final["status"] == "complete"
     counters = pipeline.decoder.counters
     assert counters.rejected == counters.bad_crc == counters.partial == 0
-    assert pipeline.unwrapper.lost == 0 and pipeline.unwrapper.resets == 0
+    assert pipeline.timebase.counters.lost == 0 and pipeline.timebase.counters.resets == 0
     header = pipeline.header
     assert header is not None and header.firmware == "railtap-ref" and header.rate_hz == 500
     assert (header.adc_bits, header.vref_mv, header.channels) == (10, 5000, ("a0", "a1", "a2", "a3"))
@@ -527,7 +527,7 @@ def test_board_build_in_simavr_reports_a_known_dip_profile(avr_build: Path, sima
     assert pipeline.wait(60) and pipeline.error is None
     header, counters = pipeline.header, pipeline.decoder.counters
     assert header is not None and dict(header.extra) == {"adc": "avr"} and header.reason == "boot"
-    assert counters.rejected == 0 and pipeline.unwrapper.lost == 0 and counters.frames >= 1990
+    assert counters.rejected == 0 and pipeline.timebase.counters.lost == 0 and counters.frames >= 1990
 
     df = pd.read_parquet(Path(pipeline.final["folder"]))
     # Counts for a pin voltage: Vin x 1024 / Vref, truncated (ATmega328P data sheet, ADC conversion result;

@@ -55,14 +55,14 @@ def test_simulated_run_is_complete_and_calibrated(tmp_path: Path) -> None:
     assert counters.frames == truth.frames_delivered
     assert len(df) == truth.frames_delivered  # every intact line recorded, no damaged one
     assert df["seq"].is_unique and df["utc"].is_monotonic_increasing
-    assert p.unwrapper.lost == int(df["seq"].iloc[-1] - df["seq"].iloc[0] + 1 - len(df))
+    assert p.timebase.counters.lost == int(df["seq"].iloc[-1] - df["seq"].iloc[0] + 1 - len(df))
     # Calibrated value from counts: 12-bit LSB = 3.3 V / 4096 (Vref / 2^N; Analog Devices MT-001),
     # times the demo rig's divider of 11.
     lsb_v = 3.3 / 4096
     np.testing.assert_allclose(df["out_v"], df["out_v_counts"] * lsb_v * 11.0, rtol=1e-6)
     np.testing.assert_allclose(df["out_a"], df["out_a_counts"] * lsb_v / (0.01 * 50.0), rtol=1e-6)
     true_t = (df["device_us"] - df["device_us"].iloc[0]).to_numpy() / 1e6
-    assert abs(p.clock.drift_ppm - device.drift_ppm) < 5.0
+    assert abs(p.timebase.drift_ppm - device.drift_ppm) < 5.0
     assert true_t[-1] == pytest.approx(90.0, abs=0.01)
 
 
@@ -242,7 +242,7 @@ def test_socket_url_link_drops_and_comes_back(tmp_path: Path) -> None:
     assert "link_lost" in set(events["kind"])
     samples = pd.read_parquet(run)
     assert samples["seq"].is_unique and samples["seq"].is_monotonic_increasing
-    assert pipeline.unwrapper.lost >= 400  # the half second nobody heard, counted from the sequence gap
+    assert pipeline.timebase.counters.lost >= 400  # the half second nobody heard, counted from the sequence gap
 
 
 def test_recording_stops_and_starts_again_into_a_new_run_folder(tmp_path: Path) -> None:

@@ -68,7 +68,7 @@ class FakePipeline:
             state="running", message="receiving", channels=tuple(c.name for c in rig.channels),
             units=tuple(c.unit for c in rig.channels), latest=np.array(latest), minimum=np.array(low),
             maximum=np.array(high), recording=None,
-            link=LinkHealth("fake", True, 1000, 1000.0, 0, 0, 0, 0, 0, 0.0),
+            link=LinkHealth("fake", True, 1000, 1000.0, 0, 0, 0, 0, 0, None),
         )
 
     def snapshot(self) -> Snapshot:

@@ -49,7 +49,7 @@ def status_text(snap: Snapshot, width: int = 0) -> Text:
     text.append(f"  {link.source}\n", "dim")
     text.append(f"{link.rate_hz:,.0f} frames/s  lost {link.lost:,}\n")
     text.append(f"rejected {link.rejected:,}  resets {link.resets:,}\n")
-    drift = f"{link.drift_ppm:+.1f} ppm" if link.drift_ppm else "-"
+    drift = f"{link.drift_ppm:+.1f} ppm" if link.drift_ppm is not None else "-"
     text.append(f"reconnects {link.reconnects}  drift {drift}\n")
     rec = snap.recording
     if rec is not None:

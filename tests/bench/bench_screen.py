@@ -50,7 +50,7 @@ def measure_headless(root: Path, seconds: float) -> tuple[float, int, int]:
     time.sleep(seconds)
     share = (cpu_s() - c0) / (time.perf_counter() - t0)
     p.stop()
-    return share, p.decoder.counters.frames, p.unwrapper.lost
+    return share, p.decoder.counters.frames, p.timebase.counters.lost
 
 
 def measure_screen(root: Path, seconds: float) -> tuple[float, int, int]:
@@ -68,7 +68,7 @@ def measure_screen(root: Path, seconds: float) -> tuple[float, int, int]:
 
     share = asyncio.run(run())
     p.stop()
-    return share, p.decoder.counters.frames, p.unwrapper.lost
+    return share, p.decoder.counters.frames, p.timebase.counters.lost
 
 
 def main() -> None:
