@@ -48,8 +48,12 @@ class Calibrator:
         self.spans[k] = profile.span_counts
 
     def apply(self, counts: np.ndarray) -> np.ndarray:
-        """Calibrated values, float32, shape (frames, rig channels)."""
-        picked = counts[:, self.inputs].astype(np.float64)
+        """Calibrated values of the device's raw counts (frames, inputs): float32, (frames, rig channels)."""
+        return self.values(self.select(counts))
+
+    def values(self, selected: np.ndarray) -> np.ndarray:
+        """Calibrated values of the rig's channels' counts (:meth:`select`): float32, (frames, rig channels)."""
+        picked = selected.astype(np.float64)
         values = (picked - self.offset) * self.gain
         for k, curve in self.curves.items():
             values[:, k] = curve.value(picked[:, k])

@@ -155,6 +155,9 @@ def _source_options(p: argparse.ArgumentParser) -> None:
     p.add_argument("--speed", type=float, default=None,
                    help="for --sim and --replay: simulated seconds per real second (0 = as fast as possible)")
     p.add_argument("--seed", type=int, default=1, help="random seed of the simulated rig")
+    p.add_argument("--start", metavar="DATE-TIME",
+                   help="with --replay of a plain byte dump (no arrival times): the UTC date-time of its first "
+                        "sample, e.g. 2026-11-30T22:15:00Z (default: the file's modification time)")
     p.add_argument("--scenario", metavar="NAME|FILE",
                    help=f"with --sim: a simulated scenario (`railtap sim --list`; default {DEFAULT_SCENARIO})")
 
@@ -412,6 +415,7 @@ def _record(source: Source, rig: Rig, args: argparse.Namespace, screen: bool = F
         keep_raw=args.keep_raw,
         duration_s=args.duration,
         record_at_start=not getattr(args, "no_record", False),
+        **_start_time(args),
     )
     for warning in rig.warnings():
         print(f"railtap: warning: {warning}", file=sys.stderr)
@@ -434,6 +438,24 @@ def _record(source: Source, rig: Rig, args: argparse.Namespace, screen: bool = F
         pipeline.request_stop(pipeline.stop_reason)
         _wait_for_seal(pipeline)
     return _report(pipeline)
+
+
+def _start_time(args: argparse.Namespace) -> dict[str, Any]:
+    """Where the labels of a replay without arrival times start: ``--start``, else the file's own time."""
+    if getattr(args, "start", None):
+        if getattr(args, "replay", None) is None:
+            raise UsageError("--start is for --replay (a live port or the simulator have their own clock)")
+        try:
+            when = datetime.fromisoformat(args.start)
+        except ValueError:
+            raise UsageError(f"--start {args.start!r}: not a date-time; write e.g. 2026-11-30T22:15:00Z") from None
+        if when.tzinfo is None:
+            raise UsageError(f"--start {args.start!r}: say the time zone, e.g. 2026-11-30T22:15:00Z or +01:00")
+        return {"start_utc": when.timestamp(), "start_from": f"--start {args.start}"}
+    replay = getattr(args, "replay", None)
+    if replay is not None and replay.is_file():
+        return {"start_utc": replay.stat().st_mtime, "start_from": f"the modification time of {replay}"}
+    return {}
 
 
 def _print_status(pipeline: Pipeline, quiet: bool) -> None:
@@ -464,17 +486,13 @@ def _wait_for_seal(pipeline: Pipeline) -> None:
 
 
 def _recover(run: Path) -> dict[str, Any]:
-    """Seal a run cut short, then detect its rail events again from the samples (those going on at the crash
-    were never written)."""
-    from logger.cal.recal import detect_again
-    from logger.store import read_run_json, recover_run
+    """Seal a run cut short (its rail events are detected again from the samples)."""
+    from logger.store import recover_run
 
     meta = recover_run(run)
-    try:
-        detect_again(run)
-    except StoreError as exc:
-        print(f"railtap: {run}: sealed, but its events were not detected again ({exc})", file=sys.stderr)
-    return read_run_json(run) if (run / "_run.json").exists() else meta
+    if meta.get("events_note"):
+        print(f"railtap: {run}: {meta['events_note']}", file=sys.stderr)
+    return meta
 
 
 def _recover_leftovers(root: Path) -> None:

@@ -14,7 +14,6 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from logger.events.model import Event
-from logger.rig import PowerPair
 
 
 class Ring:
@@ -46,48 +45,6 @@ class Ring:
             count = min(count, self.written, self.capacity)
             pos = np.arange(self.written - count, self.written) % self.capacity
             return self.utc_us[pos], self.values[pos]
-
-
-class Totals:
-    """Charge (Ah) and energy (Wh) of each volts/amps pair, integrated by the trapezoid rule on the samples'
-    own timestamps, streaming: the last sample of a batch is carried to the next, so any split of the stream
-    gives the same totals. A step longer than ``max_step_s`` (a lost link) is left out rather than guessed."""
-
-    def __init__(self, pairs: tuple[PowerPair, ...], max_step_s: float = 1.0) -> None:
-        self.pairs = pairs
-        self.max_step_us = int(max_step_s * 1e6)
-        self.charge_as = np.zeros(len(pairs))
-        self.energy_ws = np.zeros(len(pairs))
-        self._last: tuple[int, np.ndarray] | None = None
-
-    def add(self, utc_us: np.ndarray, values: np.ndarray) -> None:
-        if not self.pairs or len(utc_us) == 0:
-            return
-        volts = values[:, [p.volts for p in self.pairs]].astype(np.float64)
-        amps = values[:, [p.amps for p in self.pairs]].astype(np.float64)
-        t = utc_us
-        if self._last is not None:
-            t = np.concatenate(([self._last[0]], utc_us))
-            volts = np.vstack((self._last[1][0], volts))
-            amps = np.vstack((self._last[1][1], amps))
-        self._last = (int(utc_us[-1]), np.stack((volts[-1], amps[-1])))
-        dt = np.diff(t) / 1e6
-        dt[dt * 1e6 > self.max_step_us] = 0.0
-        power = volts * amps * np.array([p.sign for p in self.pairs])
-        self.charge_as += (dt[:, None] * (amps[1:] + amps[:-1]) / 2).sum(axis=0)
-        self.energy_ws += (dt[:, None] * (power[1:] + power[:-1]) / 2).sum(axis=0)
-
-    def reset(self) -> None:
-        self.charge_as[:] = 0.0
-        self.energy_ws[:] = 0.0
-
-    @property
-    def charge_ah(self) -> tuple[float, ...]:
-        return tuple(self.charge_as / 3600.0)
-
-    @property
-    def energy_wh(self) -> tuple[float, ...]:
-        return tuple(self.energy_ws / 3600.0)
 
 
 class RateMeter:

@@ -18,11 +18,11 @@ import numpy as np
 
 from logger.cal.profile import Profile
 from logger.calibration import Calibrator, stand_in_header
-from logger.events import Event, EventDetector
+from logger.core import GAP_S, Block, Processor
+from logger.events import Event
 from logger.events.link import LinkWatch
 from logger.events.log import EventLog
-from logger.events.outside import OutsideWatch
-from logger.live import LinkHealth, RateMeter, Ring, Snapshot, Totals
+from logger.live import LinkHealth, RateMeter, Ring, Snapshot
 from logger.recording import Recorder, run_metadata
 from logger.rig import Rig, RigError
 from logger.sources.base import Chunk, LinkLost, Source, SourceError
@@ -47,7 +47,8 @@ class Settings:
     keep_raw: bool = False
     duration_s: float | None = None
     live_seconds: float = 60.0
-    gap_event_s: float = 0.05
+    gap_s: float = GAP_S
+    """Missing frames over a longer step are a gap: a frame_gap event, and not integrated across."""
     batch_s: float = 0.1
     """Reads are gathered for this long before decoding: fewer, larger batches cost less CPU."""
     header_wait_s: float = 10.0
@@ -55,6 +56,8 @@ class Settings:
     start_utc: float | None = None
     """UTC seconds for the first sample when the source cannot say when bytes arrived (a plain byte dump):
     ``--start`` or the file's own time; None takes the host's clock."""
+    start_from: str = "the host's clock at the first sample"
+    """Where ``start_utc`` came from, for ``_run.json``."""
     record_at_start: bool = True
     """False: watch only until :meth:`Pipeline.set_recording` starts a run (needs ``record_root``)."""
 
@@ -70,7 +73,8 @@ class Pipeline:
         self.timebase: TimeBase | None = None
         """Made at the first header (it needs the rate); the one owner of the run's time."""
         self.header: DeviceHeader | None = None
-        self.calibrator: Calibrator | None = None
+        self.processor: Processor | None = None
+        """Made at the first header; calibrates, detects and accumulates (the same core offline paths use)."""
         self.recorder: Recorder | None = None
         self.ring: Ring | None = None
         self.counts_ring: Ring | None = None
@@ -103,18 +107,11 @@ class Pipeline:
         self.down_since: float | None = None
         """When the link was lost (UTC seconds), while reconnecting."""
         self.events = EventLog()
-        self.link = LinkWatch(self.settings.gap_event_s)
-        self.detector: EventDetector | None = None
-        self._minmax: tuple[np.ndarray, np.ndarray] | None = None
+        self.link = LinkWatch()
         self.rate = RateMeter()
-        self._at_limit: tuple[bool, ...] = ()
-        self._outside: tuple[bool, ...] = ()
-        self.outside_watch: OutsideWatch | None = None
         self._zero_requests: deque[str] = deque()
         self._profile_requests: deque[tuple[str, Profile]] = deque()
-        self.calibration_changes: list[dict[str, Any]] = []
-        """Zeros and profiles applied while running, oldest first; every run sealed afterwards records them."""
-        self.totals = Totals(rig.power_pairs())
+        self._reset_requests: deque[bool] = deque()
         self._first_us: int | None = None
         self._last_us: int | None = None
         self._last_utc_us: int | None = None
@@ -186,8 +183,6 @@ class Pipeline:
             return False
         if self._record_requests:
             self._switch_recording()
-        if self._profile_requests and self.calibrator is not None:
-            self._apply_profiles()
         if chunk.data:
             self._take(chunk)
         if self._held_bytes >= 65536 or time.monotonic() - self._fed_at >= self.settings.batch_s:
@@ -246,9 +241,10 @@ class Pipeline:
             start = self.settings.start_utc
             self.timebase = TimeBase(header, time.time() if start is None else start)
         self.timebase.on_header(header, first)
-        if first or _format(header) != _format(self.header):
-            self.calibrator = Calibrator(self.rig, header)
-            self._watch_spans()
+        if first:
+            self.processor = Processor(self.rig, Calibrator(self.rig, header), gap_s=self.settings.gap_s)
+        elif _format(header) != _format(self.header):
+            self._note(self.processor.set_calibrator(Calibrator(self.rig, header)))
         self.header = header
         if first:
             self._begin(header)
@@ -258,24 +254,25 @@ class Pipeline:
         capacity = max(1024, int(self.settings.live_seconds * header.rate_hz))
         self.ring = Ring(capacity, len(self._names))
         self.counts_ring = Ring(capacity, len(self._names))
-        self.detector = EventDetector(self.rig, header.rate_hz)
         if self.settings.record_root is not None and self.settings.record_at_start:
-            self._open_recorder(header)
+            self._open_recorder(header, from_first_byte=True)
         self.state, self.message = "running", f"receiving from {self.source.name}"
         pending, self._pending, self._pending_frames = self._pending, [], 0
         for batch, arrival, offset in pending:
             self._emit(batch, arrival, offset)
 
-    def _open_recorder(self, header: DeviceHeader) -> None:
+    def _open_recorder(self, header: DeviceHeader, from_first_byte: bool = False) -> None:
+        """A new run folder. The run opened at the first header counts the link from the first byte (the lines
+        decoded with that header and any rejected before it included); one started later, from then on."""
         self.recorder = Recorder(
             self.settings.record_root,
             self.settings.label or self.rig.name,
             self._schema,
-            run_metadata(self.rig, header, self.source.name),
+            run_metadata(self.rig, header, self.source.name, self.settings.gap_s),
             part_seconds=self.settings.part_seconds,
             keep_raw=self.settings.keep_raw,
         )
-        self.recorder.link_base = self._link_counts()
+        self.recorder.link_base = {} if from_first_byte else self._link_counts()
         self.events.sink = self.recorder.add_event
         for chunk in self._pending_raw:
             self.recorder.add_raw(chunk)
@@ -298,59 +295,51 @@ class Pipeline:
 
     def _stamp(self, s: Stamped) -> None:
         within = self._within_duration(s.device_us)
-        device_us, seq, raw, utc = s.device_us[within], s.seq[within], s.counts[within], s.utc_us[within]
-        if len(device_us) == 0:  # all past the end of --duration
+        if within.stop == 0:  # all past the end of --duration
             return
-        counts = self.calibrator.select(raw)
-        self._apply_zeros(counts, utc)
-        values = self.calibrator.apply(raw)
-        self._note(self.link.frames(list(s.gaps), list(s.resets), utc, self.header.rate_hz, self._last_utc_us))
-        self._track(utc, values, counts, device_us)
-        if len(utc):
-            self._at_limit = self.calibrator.at_limit(counts[-1])
-            self._note(self.detector.feed(utc, values))
-            if self.outside_watch is not None:
-                outside = self.calibrator.outside(counts)
-                self._outside = tuple(bool(b) for b in outside[-1])
-                self._note(self.outside_watch.feed(utc, outside, values))
+        block = Block(s.device_us[within], s.utc_us[within], s.seq[within], s.segment[within],
+                      self.processor.calibrator.select(s.counts[within]))
+        self._take_requests(block)
+        out = self.processor.feed(block)
+        self._note(out.events)
+        self.ring.extend(block.utc_us, out.values)
+        self.counts_ring.extend(block.utc_us, block.counts)
+        self._last_us = int(block.device_us[-1])
+        self._last_utc_us = int(block.utc_us[-1])
         if self.recorder is not None:
-            self.recorder.add_batch(sample_batch(self._schema, utc, device_us, seq, values, counts))
+            self.recorder.add_batch(sample_batch(self._schema, block.utc_us, block.device_us, block.seq,
+                                                 block.segment, out.values, block.counts))
 
-    def _apply_profiles(self) -> None:
+    def _take_requests(self, block: Block) -> None:
+        """Zeros, profiles and resets asked for since the last batch, applied from this batch's first sample
+        (the one owner of the run's state applies them; the screen only asks)."""
+        when = utc_text(int(block.utc_us[0]))
+        while self._reset_requests:
+            self._reset_requests.popleft()
+            self.processor.reset_figures()
+        while self._zero_requests:
+            name = self._zero_requests.popleft()
+            moment = max(1, round(0.05 * self.header.rate_hz))  # the readings of the moment asked: 50 ms
+            change = self.processor.zero(name, block, moment, when)
+            note = f"zeroed {name}: {change.counts:.1f} counts taken as 0 {self.rig.channel(name).unit}"
+            self.events.add(Event("mark", int(block.utc_us[0]), channel=name, value=change.counts, detail=note,
+                                  device_start_us=int(block.device_us[0])))
         while self._profile_requests:
             name, profile = self._profile_requests.popleft()
             try:
-                self.calibrator.use(self._names.index(name), profile)
+                _, closed = self.processor.use_profile(name, profile, block, when)
             except RigError as exc:
                 self.message = str(exc)
                 continue
-            self._watch_spans()
-            self.events.add(Event("mark", self._now_us(), channel=name,
-                                  detail=f"calibration applied: {profile.model}, {len(profile.points)} points"))
-            self.calibration_changes.append({"utc": utc_text(self._now_us()), "channel": name, "change": "profile",
-                                             "profile": profile.to_dict()})
+            self._note(closed)
+            self.events.add(Event("mark", int(block.utc_us[0]), channel=name,
+                                  detail=f"calibration applied: {profile.model}, {len(profile.points)} points",
+                                  device_start_us=int(block.device_us[0])))
 
-    def _watch_spans(self) -> None:
-        """Flag readings outside the calibrated span of every channel that has a profile."""
-        curves = self.calibrator.curves
-        if not curves:
-            return
-        if self.outside_watch is not None:
-            self._note(self.outside_watch.finish())
-        spans = {k: tuple(sorted(map(float, curve.value(self.calibrator.spans[k])))) for k, curve in curves.items()}
-        self.outside_watch = OutsideWatch(self._names, spans, tuple(ch.unit for ch in self.rig.channels))
-
-    def _apply_zeros(self, counts: np.ndarray, utc: np.ndarray) -> None:
-        while self._zero_requests and len(utc):
-            name = self._zero_requests.popleft()
-            k = self._names.index(name)
-            moment = max(1, round(0.05 * self.header.rate_hz))  # the readings of the moment asked: 50 ms
-            offset = self.calibrator.zero(k, counts[:moment, k])
-            unit = self.rig.channel(name).unit
-            note = f"zeroed {name}: {offset:.1f} counts taken as 0 {unit}"
-            self.events.add(Event("mark", int(utc[0]), channel=name, value=offset, detail=note))
-            self.calibration_changes.append({"utc": utc_text(int(utc[0])), "channel": name, "change": "zero",
-                                             "counts": round(offset, 3)})
+    @property
+    def calibration_changes(self) -> list[dict[str, Any]]:
+        """Zeros and profiles applied while running, oldest first; every run sealed afterwards records them."""
+        return [c.as_dict() for c in self.processor.applied] if self.processor is not None else []
 
     def _within_duration(self, device_us: np.ndarray) -> slice:
         """Rows up to the end of ``--duration`` (measured on the device clock from the first sample)."""
@@ -358,20 +347,6 @@ class Pipeline:
             return slice(None)
         end_us = self._first_us + round(self.settings.duration_s * 1e6)
         return slice(0, np.searchsorted(device_us, end_us, side="left"))
-
-    def _track(self, utc: np.ndarray, values: np.ndarray, counts: np.ndarray, device_us: np.ndarray) -> None:
-        if len(utc) == 0:
-            return
-        self.ring.extend(utc, values)
-        self.counts_ring.extend(utc, counts)
-        self.totals.add(utc, values)
-        lo, hi = values.min(axis=0), values.max(axis=0)
-        if self._minmax is not None:
-            lo, hi = np.minimum(lo, self._minmax[0]), np.maximum(hi, self._minmax[1])
-        self._minmax = (lo, hi)
-        if len(utc):
-            self._last_us = int(device_us[-1])
-            self._last_utc_us = int(utc[-1])
 
     def _note(self, events: list[Event]) -> None:
         for event in events:
@@ -421,7 +396,7 @@ class Pipeline:
                 sealer.start()
 
     def _seal(self, recorder: Recorder, reason: str) -> None:
-        extra: dict[str, Any] = {"link": self._link_counts(recorder.link_base)}
+        extra: dict[str, Any] = {"link": self._link_counts(recorder.link_base), "clock": self._clock_account()}
         if self.calibration_changes:
             extra["calibration_changes"] = list(self.calibration_changes)
         final = recorder.stop(reason, extra=extra)
@@ -506,10 +481,10 @@ class Pipeline:
                 f"{self.decoder.counters.frames} frames arrived but never a header line, so nothing could be "
                 "recorded: check the firmware, or set device.adc_bits and device.vref_mv in the rig file"
             )
-        if self.detector is not None:
-            self._note(self.detector.finish())
-        if self.outside_watch is not None:
-            self._note(self.outside_watch.finish())
+        if self.timebase is not None:
+            self.timebase.finish()
+        if self.processor is not None:
+            self._note(self.processor.finish())
         for sealer in self._sealers:  # runs stopped earlier first, so ``final`` is the last run's
             sealer.join()
         if self.recorder is not None:
@@ -526,25 +501,25 @@ class Pipeline:
         latest = None
         if self.ring is not None and self.ring.written:
             latest = self.ring.latest(1)[1][0]
-        lo, hi = self._minmax if self._minmax is not None else (None, None)
+        core = self.processor
         return Snapshot(
             state=self.state,
             message=self.message,
             channels=self._names,
             units=tuple(ch.unit for ch in self.rig.channels),
             latest=latest,
-            at_limit=self._at_limit,
-            outside_cal=self._outside,
-            minimum=lo,
-            maximum=hi,
+            at_limit=core.at_limit if core else (),
+            outside_cal=core.outside_now if core else (),
+            minimum=core.minimum if core else None,
+            maximum=core.maximum if core else None,
             link=self._link_health(),
             recording=self.recorder.state() if self.recorder is not None else None,
             recording_on=self.recording,
             last_run=self.final.get("folder") if self.final else None,
             events=self.events.recent(50),
-            active=tuple(self.detector.active()) if self.detector is not None else (),
-            charge_ah=self.totals.charge_ah,
-            energy_wh=self.totals.energy_wh,
+            active=tuple(core.active()) if core else (),
+            charge_ah=core.charge_ah if core else (),
+            energy_wh=core.energy_wh if core else (),
         )
 
     def mark(self, note: str) -> Event:
@@ -591,9 +566,9 @@ class Pipeline:
         self._profile_requests.append((channel, profile))
 
     def reset_minmax(self) -> None:
-        """Forget min/max and start the charge and energy counters again from zero."""
-        self._minmax = None
-        self.totals.reset()
+        """Forget min/max and start the charge and energy counters again from zero (done by the ingest
+        thread at its next batch)."""
+        self._reset_requests.append(True)
 
     def _link_counts(self, since: dict[str, int] | None = None) -> dict[str, Any]:
         """The link's counters (less those in ``since``) and the device clock's drift, for ``_run.json``."""
@@ -608,6 +583,23 @@ class Pipeline:
         counts["drift_ppm"] = None if drift is None else round(drift, 2)
         counts["rate_hz"] = self.header.rate_hz if self.header else None
         return counts
+
+    def _clock_account(self) -> dict[str, Any]:
+        """How the run's UTC labels were made, for ``_run.json`` (durations are on the device clock always)."""
+        if self.timebase is None:
+            return {}
+        labels = self.timebase.labels
+        if labels.anchor == "arrival":
+            made = "arrival times of reads on the host's steady clock, one wall offset per run"
+        else:
+            made = f"the device clock from {self.settings.start_from} (the source gave no arrival times)"
+        if not labels.paced:
+            made = "the device clock from the first arrival (the data did not arrive in real time)"
+        account: dict[str, Any] = {"labels": made, "period_us": round(self.timebase.period_us, 3),
+                                   "wall_clock_steps": len(labels.steps)}
+        if labels.fault:
+            account["note"] = labels.fault
+        return account
 
     def _link_health(self) -> LinkHealth:
         c = self.decoder.counters

@@ -152,8 +152,9 @@ class Recorder:
                 break
 
 
-def run_metadata(rig: Rig, header: DeviceHeader, source: str) -> dict[str, Any]:
-    """What a run records about itself at start: software, source, the rig file as written, the device."""
+def run_metadata(rig: Rig, header: DeviceHeader, source: str, gap_s: float) -> dict[str, Any]:
+    """What a run records about itself at start: software, source, the rig file as written, the device, and
+    the gap rule's limit (so every later pass integrates across the same intervals)."""
     return {
         "software": f"railtap {__version__}",
         "source": source,
@@ -161,6 +162,7 @@ def run_metadata(rig: Rig, header: DeviceHeader, source: str) -> dict[str, Any]:
         "rig_file": rig.source,
         "rig": rig.text,
         "device_header": header.body(),
+        "gap_s": gap_s,
         "channels_info": [
             {"name": ch.name, "role": ch.role, "unit": ch.unit, "nominal": ch.nominal, "input": ch.input}
             for ch in rig.channels

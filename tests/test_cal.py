@@ -209,7 +209,7 @@ def test_outside_watch_makes_one_event_per_excursion() -> None:
     outside = ((v < 2.0) | (v > 13.0))[:, None]
     events = []
     for part in np.array_split(np.arange(len(t)), 13):
-        events += watch.feed(t[part], outside[part], v[part, None])
+        events += watch.feed(t[part], t[part], outside[part], v[part, None])
     events += watch.finish()
     assert [(e.kind, e.value) for e in events] == [("outside_cal", 13.8), ("outside_cal", 1.0)]
     assert events[0].start_us == t[2000] and events[0].end_us == t[2599]
@@ -273,9 +273,9 @@ def test_calibration_panel_on_the_live_screen(tmp_path: Path, monkeypatch) -> No
             await pilot.pause(0.1)
             for _ in range(100):
                 await pilot.pause(0.05)
-                if 0 in pipeline.calibrator.curves:
+                if 0 in pipeline.processor.calibrator.curves:
                     break
-            assert 0 in pipeline.calibrator.curves
+            assert 0 in pipeline.processor.calibrator.curves
             app.simulate_key("escape")
             await pilot.pause(0.1)
             assert not panel.has_class("-open")

@@ -65,7 +65,7 @@ def _rail(seconds: float, level_v: float = 24.0, amps: float = 1.0) -> tuple[np.
 def test_iec_dc_test_levels(level_pct: float, kind: str) -> None:
     utc, values = _rail(1.0)
     values[300:400, 0] = 24.0 * level_pct / 100.0  # 100 ms at 1 kHz
-    events = _run(EventDetector(parse_rig(RIG_24V), RATE_HZ), utc, values)
+    events = _run(EventDetector(parse_rig(RIG_24V)), utc, values)
     assert [e.kind for e in events] == [kind]
     event = events[0]
     assert event.duration_s == pytest.approx(0.100, abs=1 / RATE_HZ)
@@ -80,7 +80,7 @@ def test_hysteresis_holds_an_event_open_until_threshold_plus_two_percent() -> No
     values[100:200, 0] = 21.0  # below 21.6 V: starts
     values[200:300, 0] = 21.9  # above 21.6 but below 22.08 V: still in the dip
     values[300:400, 0] = 21.5  # below again: same event, not a new one
-    events = _run(EventDetector(parse_rig(RIG_24V), RATE_HZ), utc, values)
+    events = _run(EventDetector(parse_rig(RIG_24V)), utc, values)
     assert len(events) == 1 and events[0].duration_s == pytest.approx(0.3)
     assert events[0].value == pytest.approx(21.0)
 
@@ -89,7 +89,7 @@ def test_noise_around_the_threshold_does_not_cry_wolf() -> None:
     rng = np.random.default_rng(3)
     utc, values = _rail(20.0)
     values[:, 0] = 22.6 + rng.normal(0.0, 0.12, len(utc))  # noisy but 4 sigma clear of the 21.6 V threshold
-    assert _run(EventDetector(parse_rig(RIG_24V), RATE_HZ), utc, values) == []
+    assert _run(EventDetector(parse_rig(RIG_24V)), utc, values) == []
 
 
 def test_overvoltage_and_overcurrent() -> None:
@@ -97,7 +97,7 @@ def test_overvoltage_and_overcurrent() -> None:
     values[100:150, 0] = 27.0  # 112.5 % of 24 V: above the 110 % swell threshold
     values[500:550, 1] = 6.0  # 50 ms above the 5 A limit: shorter than the 0.1 s default, ignored
     values[1000:1300, 1] = 6.5  # 300 ms above: an overcurrent
-    kinds = [(e.kind, e.channel) for e in _run(EventDetector(parse_rig(RIG_24V), RATE_HZ), utc, values)]
+    kinds = [(e.kind, e.channel) for e in _run(EventDetector(parse_rig(RIG_24V)), utc, values)]
     assert kinds == [("overvoltage", "rail_v"), ("overcurrent", "load_a")]
 
 
@@ -105,7 +105,7 @@ def test_negative_rail_dips_towards_zero() -> None:
     rig = parse_rig(RIG_24V.replace("nominal = 24.0", "nominal = -15.0\nnegative = true"))
     utc, values = _rail(1.0, level_v=-15.0)
     values[200:260, 0] = -10.0  # 67 % of the magnitude
-    (event,) = _run(EventDetector(rig, RATE_HZ), utc, values)
+    (event,) = _run(EventDetector(rig), utc, values)
     assert event.kind == "brownout" and event.value == pytest.approx(-10.0)
     assert event.depth_pct == pytest.approx(100.0 * 5.0 / 15.0)
 
@@ -113,7 +113,7 @@ def test_negative_rail_dips_towards_zero() -> None:
 def test_event_still_open_at_the_end_is_closed_at_the_last_sample() -> None:
     utc, values = _rail(1.0)
     values[900:, 0] = 18.0
-    (event,) = _run(EventDetector(parse_rig(RIG_24V), RATE_HZ), utc, values)
+    (event,) = _run(EventDetector(parse_rig(RIG_24V)), utc, values)
     assert event.end_us == utc[-1] and "still below" in event.detail
 
 
@@ -123,7 +123,7 @@ def test_flicker_episode_groups_repeated_dips() -> None:
         start = 1000 + 800 * k
         values[start : start + 200, 0] = 18.0
     values[11000:11050, 0] = 18.0  # a lone dip long after: not part of it
-    events = _run(EventDetector(parse_rig(RIG_24V), RATE_HZ), utc, values)
+    events = _run(EventDetector(parse_rig(RIG_24V)), utc, values)
     episodes = [e for e in events if e.kind == "flicker"]
     assert len(episodes) == 1 and sum(e.kind == "brownout" for e in events) == 6
     ep = episodes[0]
@@ -145,9 +145,9 @@ def test_flicker_group_waits_for_a_dip_under_way_at_a_batch_edge() -> None:
     values[0:100, 0] = 18.0
     values[500:900, 0] = 18.0  # under way at 0.7 s, more than the window after the first dip began
     values[1000:1100, 0] = 18.0
-    whole = _run(EventDetector(rig, RATE_HZ), utc, values)
+    whole = _run(EventDetector(rig), utc, values)
     assert [e.kind for e in whole].count("flicker") == 1
-    assert _run(EventDetector(rig, RATE_HZ), utc, values, [700]) == whole
+    assert _run(EventDetector(rig), utc, values, [700]) == whole
 
 
 @settings(max_examples=150, deadline=None)
@@ -169,8 +169,8 @@ def test_same_events_whatever_the_batches(seed: int, cuts: list[int]) -> None:
             break
     # A short flicker window makes groups that close while a later dip is under way, across batch edges.
     rig = parse_rig(RIG_24V.replace("nominal = 24.0", "nominal = 24.0\n[channel.events]\nflicker_window_s = 0.6"))
-    whole = _run(EventDetector(rig, RATE_HZ), utc, values)
-    split = _run(EventDetector(rig, RATE_HZ), utc, values, cuts)
+    whole = _run(EventDetector(rig), utc, values)
+    split = _run(EventDetector(rig), utc, values, cuts)
     assert split == whole
 
 
@@ -178,8 +178,8 @@ def test_sliding_mean_spans_batches() -> None:
     rig = parse_rig(RIG_24V.replace("nominal = 24.0", "nominal = 24.0\n[channel.events]\nmean_window_s = 0.004"))
     utc, values = _rail(1.0)
     values[500, 0] = 0.0  # one bad sample: a 4-sample mean stays at 18 V, a brownout of 4 samples
-    whole = _run(EventDetector(rig, RATE_HZ), utc, values)
-    split = _run(EventDetector(rig, RATE_HZ), utc, values, [501, 502, 503])
+    whole = _run(EventDetector(rig), utc, values)
+    split = _run(EventDetector(rig), utc, values, [501, 502, 503])
     assert whole == split and len(whole) == 1 and whole[0].kind == "brownout"
     assert whole[0].value == pytest.approx(18.0)
 
@@ -198,7 +198,7 @@ def test_sealed_event_table_points_dips_at_their_episode(tmp_path) -> None:
 
     writer = RunWriter(tmp_path / "run", sample_schema(["rail_v"]), {"rig": "test"})
     log = EventLog(sink=writer.add_event)
-    detector = EventDetector(parse_rig(RIG_24V), RATE_HZ)
+    detector = EventDetector(parse_rig(RIG_24V))
     utc, values = _rail(8.0)
     for k in range(4):
         values[1000 + 700 * k : 1100 + 700 * k, 0] = 18.0

@@ -48,7 +48,8 @@ def make_batch(start: int, rows: int, *, rate_hz: float = 1000.0, schema: pa.Sch
     """Rows ``start .. start+rows-1`` of a deterministic run: seq = row number, utc at ``rate_hz``."""
     seq = np.arange(start, start + rows, dtype=np.int64)
     device_us = (seq * (1e6 / rate_hz)).astype(np.int64)
-    arrays: list[pa.Array] = [pa.array(T0_US + device_us, pa.timestamp("us", tz="UTC")), device_us, seq]
+    arrays: list[pa.Array] = [pa.array(T0_US + device_us, pa.timestamp("us", tz="UTC")), device_us, seq,
+                              pa.array(np.zeros(rows, dtype=np.int32))]
     for k, _ in enumerate(channels_of(schema)):
         counts = ((2048 + 700 * k + 5 * np.sin(seq / 5000.0) + (seq * 7919 % 5)) % 4096).astype(np.uint16)
         arrays += [pa.array(counts.astype(np.float32) * np.float32(0.0075)), pa.array(counts)]
@@ -81,7 +82,7 @@ def read_seq(folder: Path) -> np.ndarray:
 
 def test_sample_schema_layout() -> None:
     schema = sample_schema(["out_v", "neg_v"])
-    assert schema.names == ["utc", "device_us", "seq", "out_v", "out_v_counts", "neg_v", "neg_v_counts"]
+    assert schema.names == ["utc", "device_us", "seq", "segment", "out_v", "out_v_counts", "neg_v", "neg_v_counts"]
     assert schema.field("utc").type == pa.timestamp("us", tz="UTC")
     assert schema.field("out_v").type == pa.float32()
     assert schema.field("out_v_counts").type == pa.uint16()
@@ -110,7 +111,7 @@ def test_sample_schema_rejects_bad_names(channels: list[str], words: str) -> Non
 def test_event_schema_and_rows() -> None:
     schema = event_schema()
     assert schema.names == ["kind", "channel", "start", "end", "duration_s", "value", "depth_pct", "count",
-                            "rate_hz", "duty", "peak", "detail", "id", "episode"]
+                            "rate_hz", "duty", "peak", "detail", "id", "episode", "device_start_us", "device_end_us"]
     assert not schema.field("kind").nullable and not schema.field("start").nullable
     assert all(schema.field(name).nullable for name in schema.names[3:])
     batch = event_batch({"kind": "brownout", "channel": "out_v", "start": datetime(2026, 12, 1, tzinfo=UTC)})
@@ -220,7 +221,8 @@ def test_bytes_per_two_channel_row(tmp_path: Path) -> None:
         volts = np.round(2730 + 6 * np.sin(t / 600_000 * 2 * np.pi) + rng.normal(0, 1.5, t.size)).astype(np.uint16)
         amps = np.round(np.where(t // 120_000 % 2, 1400, 800) + rng.normal(0, 2.0, t.size)).astype(np.uint16)
         utc = pa.array(T0_US + device_us[part], pa.timestamp("us", tz="UTC"))
-        arrays = [utc, device_us[part], t, volts * np.float32(0.007326), volts, amps * np.float32(0.00122), amps]
+        arrays = [utc, device_us[part], t, np.zeros(t.size, dtype=np.int32), volts * np.float32(0.007326), volts,
+                  amps * np.float32(0.00122), amps]
         writer.append(pa.RecordBatch.from_arrays(arrays, schema=SCHEMA))
     writer.close("done")
     size = (tmp_path / "run" / "part-00000.parquet").stat().st_size
@@ -274,7 +276,7 @@ def test_append_conforms_or_rejects_batches(tmp_path: Path) -> None:
         writer.append(batch.append_column("extra", pa.array(range(10))))
     with pytest.raises(ValueError, match="lacks column 'seq'"):
         writer.append(batch.drop_columns(["seq"]))
-    too_big = batch.set_column(4, "out_v_counts", pa.array([70000] * 10, pa.int64()))
+    too_big = batch.set_column(5, "out_v_counts", pa.array([70000] * 10, pa.int64()))
     with pytest.raises(ValueError, match="out_v_counts"):
         writer.append(too_big)
     writer.close("done")

@@ -19,11 +19,11 @@ from logger.rig import Channel, Rig
 class ChannelWatch:
     """The detectors of one channel."""
 
-    def __init__(self, channel: Channel, rate_hz: float) -> None:
+    def __init__(self, channel: Channel) -> None:
         self.rules = r = rules_for(channel)
         self.channel = channel
         self.sign = -1.0 if (channel.nominal or 0) < 0 or channel.negative else 1.0
-        self.mean = SlidingMean(round(r.mean_window_s * rate_hz))
+        self.mean = SlidingMean(round(r.mean_window_s * 1e6))
         self.dip = Comparator(r.dip_below, r.dip_release, below=True) if r.dip_below is not None else None
         self.over = Comparator(r.over_above, r.over_release, below=False) if r.over_above is not None else None
         self.current = (
@@ -31,19 +31,20 @@ class ChannelWatch:
         )
         self.flicker = FlickerGrouper(channel.name, r.flicker_window_s, channel.unit)
 
-    def feed(self, t_us: np.ndarray, values: np.ndarray) -> list[Event]:
-        x = self.mean.feed(values * self.sign)
+    def feed(self, t_us: np.ndarray, values: np.ndarray, labels: np.ndarray) -> list[Event]:
+        x = self.mean.feed(t_us, values * self.sign)
         events: list[Event] = []
         if self.dip is not None:
-            for span in self.dip.feed(t_us, x):
+            for span in self.dip.feed(t_us, x, labels):
                 dip = self._dip(span)
                 if dip is not None:
                     events += self.flicker.add(dip)
                     events.append(dip)
         if self.over is not None:
-            events += [self._over(s) for s in self.over.feed(t_us, x) if self._long_enough(s)]
+            events += [self._over(s) for s in self.over.feed(t_us, x, labels) if self._long_enough(s)]
         if self.current is not None:
-            events += [self._overcurrent(s) for s in self.current.feed(t_us, x) if self._long_enough(s, True)]
+            events += [self._overcurrent(s) for s in self.current.feed(t_us, x, labels)
+                       if self._long_enough(s, True)]
         events += self.flicker.tick(self._horizon(int(t_us[-1])))
         return events
 
@@ -59,15 +60,17 @@ class ChannelWatch:
         for comparator, kind in ((self.dip, "brownout"), (self.over, "overvoltage"), (self.current, "overcurrent")):
             span = comparator.current() if comparator is not None else None
             if span is not None:
-                now.append(Event(kind=kind, start_us=span.start_us, channel=self.channel.name,
-                                 value=self.sign * span.extreme, detail="going on"))
+                now.append(Event(kind=kind, start_us=span.start_label, channel=self.channel.name,
+                                 value=self.sign * span.extreme, detail="going on",
+                                 device_start_us=span.start_us))
         return now
 
-    def finish(self, last_us: int) -> list[Event]:
+    def finish(self, last_us: int, last_label: int) -> list[Event]:
         """At the end of a run: close what is still open at the last sample, and the last flicker group."""
         events = []
         if self.dip is not None and (span := self.dip.current()) is not None:
-            dip = self._dip(Span(span.start_us, last_us, span.extreme), note="; still below when the run ended")
+            dip = self._dip(Span(span.start_us, last_us, span.extreme, span.start_label, last_label),
+                            note="; still below when the run ended")
             if dip is not None:
                 events += self.flicker.add(dip)
                 events.append(dip)
@@ -87,8 +90,10 @@ class ChannelWatch:
         what += f" ({level:.0f} % of nominal)" if level is not None else ""
         return Event(
             kind="dropout" if dropout else "brownout",
-            start_us=span.start_us,
-            end_us=span.end_us,
+            start_us=span.start_label,
+            end_us=span.end_label,
+            device_start_us=span.start_us,
+            device_end_us=span.end_us,
             channel=self.channel.name,
             value=self.sign * span.extreme,
             depth_pct=r.depth_pct(span.extreme),
@@ -105,8 +110,10 @@ class ChannelWatch:
     def _above(self, kind: str, span: Span, depth_pct: float | None, note: str) -> Event:
         return Event(
             kind=kind,
-            start_us=span.start_us,
-            end_us=span.end_us,
+            start_us=span.start_label,
+            end_us=span.end_label,
+            device_start_us=span.start_us,
+            device_end_us=span.end_us,
             channel=self.channel.name,
             value=self.sign * span.extreme,
             depth_pct=depth_pct,
@@ -115,24 +122,27 @@ class ChannelWatch:
 
 
 class EventDetector:
-    """Every channel's detectors; values arrive as (rows, channels) in the rig's channel order."""
+    """Every channel's detectors; values arrive as (rows, channels) in the rig's channel order, timed on the
+    device clock, each sample with its UTC label."""
 
-    def __init__(self, rig: Rig, rate_hz: float) -> None:
-        self.watches = [ChannelWatch(ch, rate_hz) for ch in rig.channels]
-        self._last_us: int | None = None
+    def __init__(self, rig: Rig) -> None:
+        self.watches = [ChannelWatch(ch) for ch in rig.channels]
+        self._last: tuple[int, int] | None = None
 
     @property
     def rules(self) -> list[ChannelRules]:
         return [w.rules for w in self.watches]
 
-    def feed(self, utc_us: np.ndarray, values: np.ndarray) -> list[Event]:
-        """Events that finished in this batch, in order of start."""
-        if len(utc_us) == 0:
+    def feed(self, t_us: np.ndarray, values: np.ndarray, labels: np.ndarray | None = None) -> list[Event]:
+        """Events that finished in this batch, in order of start. ``t_us`` is the device clock (unwrapped);
+        ``labels`` the samples' UTC labels (``t_us`` itself when None, as in tests on one clock)."""
+        if len(t_us) == 0:
             return []
-        self._last_us = int(utc_us[-1])
+        labels = t_us if labels is None else labels
+        self._last = (int(t_us[-1]), int(labels[-1]))
         events = []
         for k, watch in enumerate(self.watches):
-            events += watch.feed(utc_us, values[:, k])
+            events += watch.feed(t_us, values[:, k], labels)
         return sorted(events, key=_order)
 
     def active(self) -> list[Event]:
@@ -140,10 +150,10 @@ class EventDetector:
 
     def finish(self) -> list[Event]:
         """Close everything at the end of a run."""
-        if self._last_us is None:
+        if self._last is None:
             return []
-        return sorted((e for w in self.watches for e in w.finish(self._last_us)), key=_order)
+        return sorted((e for w in self.watches for e in w.finish(*self._last)), key=_order)
 
 
 def _order(event: Event) -> tuple[int, str, str]:
-    return event.start_us, event.channel or "", event.kind
+    return event.device_start_us or event.start_us, event.channel or "", event.kind

@@ -23,13 +23,13 @@ class FlickerGrouper:
 
     def add(self, dip: Event) -> list[Event]:
         """Take a finished brownout or dropout; returns an episode if this dip closed one."""
-        done = self.tick(dip.start_us)
+        done = self.tick(_at(dip))
         self._members.append(dip)
         return done
 
     def tick(self, now_us: int) -> list[Event]:
         """Close the current group once the window has passed without a new dip."""
-        if self._members and now_us - self._members[-1].start_us > self.window_us:
+        if self._members and now_us - _at(self._members[-1]) > self.window_us:
             return self.finish()
         return []
 
@@ -45,17 +45,19 @@ class FlickerGrouper:
 
     def _episode(self, members: list[Event]) -> Event:
         first, last = members[0], members[-1]
-        start, end = first.start_us, last.end_us or last.start_us
+        start, end = _at(first), _at(last, end=True)
         span_s = max((end - start) / 1e6, 1e-9)
         below_s = sum(m.duration_s or 0.0 for m in members)
-        rate = (len(members) - 1) / max((last.start_us - first.start_us) / 1e6, 1e-9)
+        rate = (len(members) - 1) / max((_at(last) - _at(first)) / 1e6, 1e-9)
         residuals = [m.value for m in members if m.value is not None]
         low, high = min(residuals), max(residuals)
         depths = [m.depth_pct for m in members if m.depth_pct is not None]
         return Event(
             kind="flicker",
-            start_us=start,
-            end_us=end,
+            start_us=first.start_us,
+            end_us=last.end_us or last.start_us,
+            device_start_us=first.device_start_us,
+            device_end_us=None if first.device_start_us is None else end,
             channel=self.channel,
             value=low,
             peak=high,
@@ -66,3 +68,10 @@ class FlickerGrouper:
             detail=f"{len(members)} dips at {rate:.2f} Hz, {below_s / span_s:.0%} of the time below, "
             f"residual {low:.3g} to {high:.3g} {self.unit}".rstrip(),
         )
+
+
+def _at(dip: Event, end: bool = False) -> int:
+    """A dip's start (or end) on the device clock, where it has one; else its label."""
+    if end:
+        return dip.device_end_us if dip.device_end_us is not None else (dip.end_us or dip.start_us)
+    return dip.device_start_us if dip.device_start_us is not None else dip.start_us

@@ -23,6 +23,9 @@ class Span:
     end_us: int | None
     extreme: float
     """The lowest value of an excursion below, the highest of one above (the residual, for a dip)."""
+    start_label: int = 0
+    end_label: int | None = None
+    """UTC labels of the same two samples (device time is what was measured; labels are for people)."""
 
     @property
     def duration_s(self) -> float | None:
@@ -30,21 +33,40 @@ class Span:
 
 
 class SlidingMean:
-    """Causal mean over the last ``width`` samples, carried across batches (the first samples of a stream
-    average over a window padded with the first value)."""
+    """Causal mean over the samples of the last ``window_us`` of device time, carried across batches.
 
-    def __init__(self, width: int) -> None:
-        self.width = max(1, int(width))
-        self._tail: np.ndarray | None = None
+    Measured on the clock, not in samples, so it follows a change of rate and never averages across a gap.
+    Each sample's window holds the samples within ``window_us`` before it, less half of its own step, so
+    timer jitter of up to half a period never changes the count (the first samples of a stream average over
+    what there is). Each window is summed in the same order whatever the batches, so any split gives the
+    same means to the last bit.
+    """
 
-    def feed(self, x: np.ndarray) -> np.ndarray:
-        if self.width == 1 or len(x) == 0:
-            return x.astype(np.float64)
-        x = x.astype(np.float64)
-        tail = self._tail if self._tail is not None else np.full(self.width - 1, x[0])
-        joined = np.concatenate((tail, x))
-        self._tail = joined[-(self.width - 1) :]
-        return np.convolve(joined, np.full(self.width, 1.0 / self.width), mode="valid")
+    MAX_TAIL = 1 << 20
+
+    def __init__(self, window_us: int) -> None:
+        self.window_us = max(0, int(window_us))
+        self._t = np.zeros(0, dtype=np.int64)
+        self._x = np.zeros(0)
+
+    def feed(self, t_us: np.ndarray, x: np.ndarray) -> np.ndarray:
+        x = np.asarray(x, dtype=np.float64)
+        if self.window_us == 0 or len(x) == 0:
+            return x
+        jt, jx = np.r_[self._t, t_us], np.r_[self._x, x]
+        m = len(self._t)
+        mine = np.arange(m, len(jt))
+        step = np.diff(jt, prepend=jt[0] - self.window_us)[m:]
+        cutoff = np.minimum(jt[m:] - self.window_us + step // 2, jt[m:] - 1)  # a sample is always its own window
+        left = np.searchsorted(jt, cutoff, side="right")
+        width = mine + 1 - left
+        out = np.empty(len(x))
+        for w in np.unique(width):
+            rows = np.flatnonzero(width == w)
+            out[rows] = np.lib.stride_tricks.sliding_window_view(jx, int(w))[mine[rows] - w + 1].sum(axis=1) / w
+        keep = max(len(jt) - self.MAX_TAIL, int(np.searchsorted(jt, jt[-1] - self.window_us, side="left")) - 1, 0)
+        self._t, self._x = jt[keep:], jx[keep:]
+        return out
 
 
 class Comparator:
@@ -62,13 +84,16 @@ class Comparator:
         self.enter, self.leave, self.below = enter, leave, below
         self._active = False
         self._start_us = 0
+        self._start_label = 0
         self._extreme = np.inf if below else -np.inf
 
-    def feed(self, t_us: np.ndarray, x: np.ndarray) -> list[Span]:
-        """Spans that ended in this batch, in order."""
+    def feed(self, t_us: np.ndarray, x: np.ndarray, labels: np.ndarray | None = None) -> list[Span]:
+        """Spans that ended in this batch, in order; ``labels`` are the samples' UTC labels (``t_us`` if
+        None)."""
         n = len(x)
         if n == 0:
             return []
+        labels = t_us if labels is None else labels
         state = self._states(x)
         before = np.concatenate(([self._active], state[:-1]))
         starts = np.flatnonzero(state & ~before)
@@ -76,7 +101,8 @@ class Comparator:
         spans = []
         if self._active and len(ends):
             first_end = ends[0]
-            spans.append(Span(self._start_us, int(t_us[first_end]), self._pick(self._extreme, x[:first_end])))
+            spans.append(Span(self._start_us, int(t_us[first_end]), self._pick(self._extreme, x[:first_end]),
+                              self._start_label, int(labels[first_end])))
             ends = ends[1:]
         closed = starts[: len(ends)]
         if len(closed):
@@ -84,13 +110,13 @@ class Comparator:
             bounds[0::2], bounds[1::2] = closed, ends
             extremes = (np.minimum if self.below else np.maximum).reduceat(x, bounds)[0::2]
             pairs = zip(closed, ends, extremes, strict=True)
-            spans += [Span(int(t_us[s]), int(t_us[e]), float(v)) for s, e, v in pairs]
-        self._carry(t_us, x, state, starts, len(closed))
+            spans += [Span(int(t_us[s]), int(t_us[e]), float(v), int(labels[s]), int(labels[e])) for s, e, v in pairs]
+        self._carry(t_us, labels, x, state, starts, len(closed))
         return spans
 
     def current(self) -> Span | None:
         """The excursion going on now, if any."""
-        return Span(self._start_us, None, float(self._extreme)) if self._active else None
+        return Span(self._start_us, None, float(self._extreme), self._start_label) if self._active else None
 
     def _states(self, x: np.ndarray) -> np.ndarray:
         """In or out of an excursion after each sample: in past the threshold, out past the release level,
@@ -103,7 +129,8 @@ class Comparator:
         last = np.maximum.accumulate(np.where(decided, np.arange(len(x)), -1))
         return np.where(last >= 0, into[np.maximum(last, 0)], self._active)
 
-    def _carry(self, t_us: np.ndarray, x: np.ndarray, state: np.ndarray, starts: np.ndarray, used: int) -> None:
+    def _carry(self, t_us: np.ndarray, labels: np.ndarray, x: np.ndarray, state: np.ndarray, starts: np.ndarray,
+               used: int) -> None:
         """Remember an excursion still open at the end of the batch."""
         if not state[-1]:
             self._active = False
@@ -111,6 +138,7 @@ class Comparator:
             return
         if used < len(starts):  # it began in this batch
             self._start_us = int(t_us[starts[used]])
+            self._start_label = int(labels[starts[used]])
             self._extreme = self._pick(np.inf if self.below else -np.inf, x[starts[used] :])
         else:  # it was already open before this batch and is still open
             self._extreme = self._pick(self._extreme, x)

@@ -2,8 +2,6 @@
 
 from __future__ import annotations
 
-import numpy as np
-
 from logger.events.model import Event
 
 CRC_BURST_LINES = 5
@@ -11,26 +9,11 @@ CRC_BURST_LINES = 5
 
 
 class LinkWatch:
-    """Frame gaps, device restarts and bursts of rejected lines."""
+    """Bursts of rejected lines (frame gaps and restarts come from the processing core, by the gap rule)."""
 
-    def __init__(self, gap_event_s: float = 0.05) -> None:
-        self.gap_event_s = gap_event_s
+    def __init__(self) -> None:
         self._rejected = 0
         self._burst: tuple[int, int] | None = None  # (start µs, lines)
-
-    def frames(
-        self, gaps: list[tuple[int, int]], resets: list[int], utc: np.ndarray, rate_hz: float, before_us: int | None
-    ) -> list[Event]:
-        """Events for sequence gaps long enough to matter, and for device restarts, in one stamped batch."""
-        events = []
-        for row, lost in gaps:
-            if lost / rate_hz >= self.gap_event_s:
-                start = int(utc[row - 1]) if row > 0 else (before_us if before_us is not None else int(utc[row]))
-                events.append(Event("frame_gap", start, int(utc[row]), value=float(lost),
-                                    count=lost, detail=f"{lost} frames lost"))
-        for row in resets:
-            events.append(Event("device_reset", int(utc[row]), detail="device restarted; its counters began again"))
-        return events
 
     def rejects(self, rejected_total: int, now_us: int) -> list[Event]:
         """A burst of rejected lines (wrong baud rate, noise on the cable) starts when a batch brings many

@@ -9,13 +9,17 @@ from typing import Any
 _EPOCH = datetime(1970, 1, 1, tzinfo=UTC)
 
 KINDS = ("brownout", "dropout", "overvoltage", "overcurrent", "flicker", "frame_gap", "crc_burst",
-         "link_lost", "device_reset", "outside_cal", "mark")
+         "link_lost", "device_reset", "clock_step", "outside_cal", "mark")
 
 
 @dataclass(frozen=True)
 class Event:
-    """Something worth a line in the event list. Times are UTC microseconds; ``end_us`` is None for an
-    instant (a mark, a device reset) or for an event still going on."""
+    """Something worth a line in the event list.
+
+    ``start_us`` and ``end_us`` are UTC labels in microseconds (``end_us`` is None for an instant, a mark or a
+    device reset, or for an event still going on). Where the device measured the event, ``device_start_us``
+    and ``device_end_us`` hold the same moments on the run's device clock, and its duration comes from them.
+    """
 
     kind: str
     start_us: int
@@ -36,9 +40,14 @@ class Event:
     id: int | None = None
     episode: int | None = None
     """For a brownout or dropout inside a flicker episode: the episode's id."""
+    device_start_us: int | None = None
+    device_end_us: int | None = None
 
     @property
     def duration_s(self) -> float | None:
+        """On the device clock where it measured the event; else (a link outage) between the labels."""
+        if self.device_start_us is not None and self.device_end_us is not None:
+            return (self.device_end_us - self.device_start_us) / 1e6
         return None if self.end_us is None else (self.end_us - self.start_us) / 1e6
 
     def with_id(self, event_id: int) -> Event:

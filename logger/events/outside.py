@@ -19,6 +19,8 @@ class _Open:
     start_us: int
     last_us: int
     extreme: float
+    start_label: int
+    last_label: int
 
 
 class OutsideWatch:
@@ -33,21 +35,22 @@ class OutsideWatch:
         self.merge_us = round(merge_s * 1e6)
         self._open: dict[int, _Open] = {}
 
-    def feed(self, utc: np.ndarray, outside: np.ndarray, values: np.ndarray) -> list[Event]:
+    def feed(self, t_us: np.ndarray, labels: np.ndarray, outside: np.ndarray, values: np.ndarray) -> list[Event]:
+        """Fold one batch: device times, their UTC labels, which readings are outside, the values."""
         events: list[Event] = []
         for k in self.spans:
             rows = np.flatnonzero(outside[:, k])
             if len(rows):
-                events += self._extend(k, utc[rows], values[rows, k])
+                events += self._extend(k, t_us[rows], labels[rows], values[rows, k])
             held = self._open.get(k)
-            if held is not None and len(utc) and int(utc[-1]) - held.last_us > self.merge_us:
+            if held is not None and len(t_us) and int(t_us[-1]) - held.last_us > self.merge_us:
                 events.append(self._close(k))
         return events
 
     def finish(self) -> list[Event]:
         return [self._close(k) for k in list(self._open)]
 
-    def _extend(self, k: int, t: np.ndarray, v: np.ndarray) -> list[Event]:
+    def _extend(self, k: int, t: np.ndarray, labels: np.ndarray, v: np.ndarray) -> list[Event]:
         """Fold the outside rows of one batch into excursions, closing those followed by a long gap."""
         events = []
         breaks = np.flatnonzero(np.diff(t) > self.merge_us)
@@ -58,9 +61,9 @@ class OutsideWatch:
                 held = None
             extreme = self._farthest(k, v[first : last + 1])
             if held is None:
-                self._open[k] = _Open(int(t[first]), int(t[last]), extreme)
+                self._open[k] = _Open(int(t[first]), int(t[last]), extreme, int(labels[first]), int(labels[last]))
             else:
-                held.last_us = int(t[last])
+                held.last_us, held.last_label = int(t[last]), int(labels[last])
                 held.extreme = self._farthest(k, np.array([held.extreme, extreme]))
         return events
 
@@ -73,6 +76,7 @@ class OutsideWatch:
         held = self._open.pop(k)
         lo, hi = self.spans[k]
         unit = self.units[k]
-        return Event("outside_cal", held.start_us, held.last_us, channel=self.names[k], value=held.extreme,
+        return Event("outside_cal", held.start_label, held.last_label, channel=self.names[k], value=held.extreme,
+                     device_start_us=held.start_us, device_end_us=held.last_us,
                      detail=f"read {held.extreme:.4g} {unit}, outside the calibrated {lo:.4g} to {hi:.4g} {unit}: "
                             "extrapolated, less certain")

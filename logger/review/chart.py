@@ -21,7 +21,7 @@ from logger.review.summary import run_pairs
 from logger.rig import RigError, parse_rig
 from logger.store.files import StoreError, read_run_json
 from logger.store.layout import EVENTS_PARQUET, parts_in
-from logger.store.rollup import gap_limit_us, read_rollups
+from logger.store.rollup import gap_us, read_rollups
 
 _EPOCH = datetime(1970, 1, 1, tzinfo=UTC)
 LINK_KINDS = ("frame_gap", "crc_burst", "link_lost", "device_reset")
@@ -76,7 +76,7 @@ def run_rollups(folder: Path) -> pa.Table:
     meta = read_run_json(folder)
     if not parts_in(folder):
         raise StoreError(f"{folder}: no sealed parts; if the run was cut short, run `railtap recover {folder}`")
-    rollups = read_rollups(folder, run_pairs(meta), gap_limit_us(meta))
+    rollups = read_rollups(folder, run_pairs(meta), gap_us(meta))
     if not rollups.num_rows or not pc.sum(rollups["count"]).as_py():
         raise StoreError(f"{folder}: no samples were recorded; nothing to draw")
     return rollups

@@ -18,6 +18,7 @@ from typing import Any
 import numpy as np
 import pyarrow.parquet as pq
 
+from logger.core.seconds import SECOND_US
 from logger.review.chart import (
     Limits,
     channel_names,
@@ -39,7 +40,6 @@ from logger.review.chart import (
 from logger.review.window import Window
 from logger.store.files import RUN_JSON, StoreError
 from logger.store.layout import parts_in
-from logger.store.rollup import SECOND_US
 
 DPI = 100
 """Laid out for 100 dots per inch: the 12-inch width makes a 1200-pixel PNG."""

@@ -25,7 +25,7 @@ import pyarrow.parquet as pq
 from logger.rig import RigError, parse_rig
 from logger.store.files import StoreError, read_run_json
 from logger.store.layout import EVENTS_PARQUET, parts_in
-from logger.store.rollup import Pair, gap_limit_us, last_sample, pairs_of, read_rollups, rollup_part
+from logger.store.rollup import Pair, gap_us, last_sample, pairs_of, read_rollups, rollup_part
 
 GAP_KINDS = ("frame_gap", "link_lost")
 
@@ -93,7 +93,7 @@ def summarize(folder: Path, *, full: bool = False, progress: Callable[[int, int]
     if not parts_in(folder):
         raise StoreError(f"{folder}: no sealed parts; if the run was cut short, run `railtap recover {folder}`")
     pairs = run_pairs(meta)
-    limit = gap_limit_us(meta)
+    limit = gap_us(meta)
     table = _full_scan(folder, pairs, limit, progress) if full else read_rollups(folder, pairs, limit)
     events = pq.read_table(folder / EVENTS_PARQUET) if (folder / EVENTS_PARQUET).exists() else None
     units = {c["name"]: c.get("unit", "") for c in meta.get("channels_info", [])}

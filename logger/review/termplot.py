@@ -17,6 +17,7 @@ import pyarrow.dataset as ds
 from rich.style import Style
 from rich.text import Text
 
+from logger.core.seconds import SECOND_US
 from logger.review.chart import (
     Limits,
     channel_names,
@@ -32,7 +33,6 @@ from logger.review.chart import (
 )
 from logger.review.window import around_event
 from logger.store.files import StoreError
-from logger.store.rollup import SECOND_US
 from logger.textplot import DEFAULT_STYLES, GUTTER, draw_columns, value_range
 
 SMALLEST = (GUTTER + 8, 4)

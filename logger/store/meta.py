@@ -16,7 +16,8 @@ import pyarrow as pa
 from logger.store.files import to_json
 from logger.store.schema import describe_columns
 
-FORMAT = "railtap-run/1"
+FORMAT = "railtap-run/2"
+"""2: the sample table has ``segment``, events ``device_start_us``/``device_end_us``, rollups ``device_s``."""
 START_KEYS = ("format", "columns", "part_seconds")
 END_KEYS = ("status", "stop_reason", "end_utc", "last_sample_utc", "rows", "parts", "events", "error")
 STORE_KEYS = START_KEYS + END_KEYS

@@ -2,8 +2,10 @@
 
 Everything needed is on disk: each leftover journal is sealed into its part with the same function a clean
 close uses, the event journal becomes ``_events.parquet``, and ``_run.json`` is finished with status
-``recovered``. Recovery takes the run lock, so it never touches a run a live writer still has open, and it is
-idempotent: a run that is already complete or recovered is left exactly as it is.
+``recovered``. The rail events are then detected again from the samples by the same processing core the live
+run used (:mod:`logger.store.reprocess`), since those going on at the crash were never written. Recovery takes
+the run lock, so it never touches a run a live writer still has open, and it is idempotent: a run that is
+already complete or recovered is left exactly as it is.
 """
 
 from __future__ import annotations
@@ -35,6 +37,7 @@ from logger.store.layout import (
     temp_files_in,
 )
 from logger.store.meta import finished_metadata, start_part
+from logger.store.reprocess import detect_again
 from logger.store.schema import event_schema
 from logger.store.seal import event_parquet_options, read_part_info, seal_journal, write_empty
 
@@ -50,7 +53,8 @@ def recover_run(folder: Path) -> dict[str, Any]:
         folder: A run folder.
 
     Returns:
-        The run metadata after recovery (unchanged when there was nothing to do).
+        The run metadata after recovery (unchanged when there was nothing to do). If the events could not be
+        detected again, ``events_note`` says why (the samples are sealed either way).
 
     Raises:
         StoreError: The folder is not a run, a live process holds its lock, a file in it is foreign or
@@ -63,7 +67,12 @@ def recover_run(folder: Path) -> dict[str, Any]:
     try:
         if _is_clean(folder, metadata):
             return metadata
-        return _recover_locked(folder, metadata)
+        final = _recover_locked(folder, metadata)
+        try:
+            detect_again(folder)
+        except StoreError as exc:
+            return {**final, "events_note": f"sealed, but its events were not detected again ({exc})"}
+        return read_run_json(folder)
     finally:
         lock.release()
 

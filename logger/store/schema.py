@@ -2,7 +2,8 @@
 
 The sample table keeps, for every channel, the calibrated value beside the raw ADC counts it came from, so a
 log can be re-calibrated later without the device. Time is kept twice: host UTC for people and joins, and the
-unwrapped device clock for exact intervals. ``seq`` is the unwrapped frame sequence; a gap means lost frames.
+unwrapped device clock, on which every interval is measured. ``seq`` is the unwrapped frame sequence (a gap
+means lost frames); ``segment`` counts the device's restarts (0 from the start, one more after each).
 """
 
 from __future__ import annotations
@@ -18,7 +19,9 @@ import pyarrow as pa
 from logger.store.arrays import from_numpy, from_values
 
 UTC_TYPE = pa.timestamp("us", tz="UTC")
-FIXED_COLUMNS: tuple[str, ...] = ("utc", "device_us", "seq")
+FIXED_COLUMNS: tuple[str, ...] = ("utc", "device_us", "seq", "segment")
+OLD_FIXED_COLUMNS: tuple[str, ...] = ("utc", "device_us", "seq")
+"""Runs recorded before boot segments were kept (format 1) lack ``segment``; their rows count as segment 0."""
 COUNTS_SUFFIX = "_counts"
 
 _NAME = re.compile(r"^[A-Za-z_][A-Za-z0-9_]*$")
@@ -53,7 +56,7 @@ def sample_schema(channels: Sequence[str]) -> pa.Schema:
         channels: Channel names from the rig file, in display order, e.g. ``["out_v", "out_a"]``.
 
     Returns:
-        ``utc`` (timestamp µs UTC), ``device_us`` (int64), ``seq`` (int64), then for each channel
+        ``utc`` (timestamp µs UTC), ``device_us`` (int64), ``seq`` (int64), ``segment`` (int32), then for each channel
         ``<name>`` (float32, calibrated) and ``<name>_counts`` (uint16, raw ADC counts). No column is
         nullable.
 
@@ -65,6 +68,7 @@ def sample_schema(channels: Sequence[str]) -> pa.Schema:
         pa.field("utc", UTC_TYPE, nullable=False),
         pa.field("device_us", pa.int64(), nullable=False),
         pa.field("seq", pa.int64(), nullable=False),
+        pa.field("segment", pa.int32(), nullable=False),
     ]
     for name in channels:
         fields.append(pa.field(name, pa.float32(), nullable=False))
@@ -79,10 +83,13 @@ def channels_of(schema: pa.Schema) -> list[str]:
         ValueError: The schema does not have the layout :func:`sample_schema` makes.
     """
     names = schema.names
-    if tuple(names[:3]) != FIXED_COLUMNS or (len(names) - 3) % 2:
+    fixed = len(FIXED_COLUMNS) if tuple(names[: len(FIXED_COLUMNS)]) == FIXED_COLUMNS else len(OLD_FIXED_COLUMNS)
+    if tuple(names[:fixed]) not in (FIXED_COLUMNS, OLD_FIXED_COLUMNS) or (len(names) - fixed) % 2:
         raise ValueError(f"not a sample schema: columns {names}")
-    channels = names[3::2]
+    channels = names[fixed::2]
     expected = sample_schema(channels)
+    if fixed < len(FIXED_COLUMNS):
+        expected = expected.remove(expected.get_field_index("segment"))
     if [f.type for f in expected] != [f.type for f in schema]:
         raise ValueError(f"not a sample schema: column types {describe_columns(schema)}")
     return channels
@@ -92,7 +99,9 @@ def event_schema() -> pa.Schema:
     """Schema of the event table: brownouts, dropouts, overvoltage, link faults, user marks...
 
     ``kind`` and ``start`` are always set; the rest is null where it does not apply (a user mark has no
-    depth, a link fault no channel).
+    depth, a link fault no channel). ``start`` and ``end`` are UTC labels; ``device_start_us`` and
+    ``device_end_us`` are the same moments on the sample table's ``device_us`` axis, where the device measured
+    the event, and ``duration_s`` comes from them. Tables written before these two columns lack them.
     """
     return pa.schema(
         [
@@ -110,6 +119,8 @@ def event_schema() -> pa.Schema:
             pa.field("detail", pa.string()),
             pa.field("id", pa.int64()),
             pa.field("episode", pa.int64()),
+            pa.field("device_start_us", pa.int64()),
+            pa.field("device_end_us", pa.int64()),
         ]
     )
 
@@ -148,6 +159,7 @@ def sample_batch(
     utc_us: np.ndarray,
     device_us: np.ndarray,
     seq: np.ndarray,
+    segment: np.ndarray,
     values: np.ndarray,
     counts: np.ndarray,
 ) -> pa.RecordBatch:
@@ -155,11 +167,12 @@ def sample_batch(
 
     Args:
         schema: From :func:`sample_schema`.
-        utc_us: int64 UTC in microseconds; ``device_us`` and ``seq`` int64.
+        utc_us: int64 UTC in microseconds; ``device_us`` and ``seq`` int64; ``segment`` int32.
         values: float32 calibrated values, shape (rows, channels), channels in the schema's order.
         counts: uint16 raw counts, same shape.
     """
-    columns = [from_numpy(utc_us, UTC_TYPE), from_numpy(device_us, pa.int64()), from_numpy(seq, pa.int64())]
+    columns = [from_numpy(utc_us, UTC_TYPE), from_numpy(device_us, pa.int64()), from_numpy(seq, pa.int64()),
+               from_numpy(segment.astype(np.int32, copy=False), pa.int32())]
     for value_column, count_column in zip(values.T, counts.T, strict=True):
         columns.append(from_numpy(value_column, pa.float32()))
         columns.append(from_numpy(count_column, pa.uint16()))

@@ -62,7 +62,7 @@ def sample_parquet_options(schema: pa.Schema) -> dict[str, Any]:
     return {
         "compression": "zstd",
         "use_dictionary": values,
-        "column_encoding": {name: "DELTA_BINARY_PACKED" for name in FIXED_COLUMNS},
+        "column_encoding": {name: "DELTA_BINARY_PACKED" for name in FIXED_COLUMNS if name in schema.names},
         "write_page_checksum": True,
     }
 

@@ -39,7 +39,7 @@ from logger.store.files import (
 from logger.store.journal import JournalWriter
 from logger.store.layout import EVENTS_JOURNAL, EVENTS_PARQUET, journal_name, part_name
 from logger.store.meta import STORE_KEYS, finished_metadata, start_metadata
-from logger.store.rollup import RollupQueue, gap_limit_us, pairs_of
+from logger.store.rollup import RollupQueue, gap_us, pairs_of
 from logger.store.schema import channels_of, event_batch, event_schema
 from logger.store.seal import event_parquet_options, seal_journal, temp_name, write_empty
 
@@ -99,7 +99,7 @@ class RunWriter:
         self._events: JournalWriter | None = None
         self._error: StoreError | None = None
         self._final: dict[str, Any] | None = None
-        self._rollups = RollupQueue(self.folder, pairs_of(metadata), gap_limit_us(metadata))
+        self._rollups = RollupQueue(self.folder, pairs_of(metadata), gap_us(metadata))
         _prepare_folder(self.folder)
         self._lock = RunLock(self.folder)
         self._lock.acquire("record")

@@ -57,6 +57,8 @@ class Labeler:
         self.steps: list[tuple[int, float]] = []
         """Wall-clock steps seen: (device µs, seconds stepped), for the caller to report."""
         self.fault: str | None = None
+        self.anchor = ""
+        """What the first label came from: "arrival" or "start" (the given start time)."""
 
     @property
     def drift_ppm(self) -> float:
@@ -160,6 +162,7 @@ class Labeler:
         """Move towards the current target from ``now_us`` on: a slewing piece until the labels meet the
         target line, then the line itself."""
         if not self._pieces:
+            self.anchor = "arrival" if self._lag is not None else "start"
             self._add_piece(now_us, self._target_us(now_us), self._slope)
             return
         here = self._label_at(now_us)
@@ -198,7 +201,7 @@ class Labeler:
             self._origin_us = int(device_us[0])
         if not self._pieces:
             if self.start_utc_s is None and self._lag is None:
-                self.start_utc_s = 0.0
+                raise ValueError("labels need an arrival or a start time")
             self._retarget(int(device_us[0]))
         starts = np.asarray(self._starts, dtype=np.int64)
         k = np.maximum(np.searchsorted(starts, device_us, side="right") - 1, 0)
