@@ -101,6 +101,7 @@ class Pipeline:
         self._held: list[bytes] = []
         self._held_bytes = 0
         self._held_time = (float("nan"), 0.0)
+        self._held_since = float("nan")
         self._fed_at = 0.0
         self._bytes_at = self._frames_at = time.monotonic()
         self._frames_seen = self._rejects_seen = 0
@@ -192,7 +193,13 @@ class Pipeline:
         return not self._duration_reached()
 
     def _take(self, chunk: Chunk) -> None:
-        """Hold a read until enough has come to decode as one batch (reads at low rates are tiny)."""
+        """Hold a read until enough has come to decode as one batch (reads at low rates are tiny). A batch
+        spans at most ``batch_s`` of the reads' own arrival times too, so a source faster than real time (a
+        replay, the simulator) is not lumped under one arrival."""
+        if self._held and chunk.host_time - self._held_since >= self.settings.batch_s:
+            self._drain()
+        if not self._held:
+            self._held_since = chunk.host_time
         if self.recorder is not None:
             self.recorder.add_raw(chunk)
         elif self.settings.keep_raw and self.header is None:

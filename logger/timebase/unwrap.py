@@ -26,8 +26,11 @@ RATE_TOLERANCE = 50e-6
 """...plus this share of the step: the sampling timer and the clock share one oscillator, so only the
 period's estimate and timer rounding separate them (50 ppm, common practice, no source)."""
 HOST_SLACK_S = 2.0
-"""A silence measured by the device must match the host's steady clock within this (plus 2 % of it), or it
-is not a silence but a restart: transport delays are of this order at worst."""
+"""Whole clock wraps in a silence are counted from the host's steady clock when it agrees within this (plus
+2 % of the silence); a wrap is 71.6 minutes, so a backlog of seconds cannot mislead it."""
+VETO_SLACK_S = 10.0
+"""A step that needed whole sequence wraps is a restart when it claims this much more (plus 5 %) than the
+host's steady clock saw pass; a backlog in the reads before it is allowed for."""
 
 
 @dataclass(frozen=True)
@@ -258,10 +261,10 @@ class Unwrapper:
         p_seq = np.r_[self._raw[0], k_seq[:-1]]
         p_dev = np.r_[self._raw[1], k_dev[:-1]]
         wraps = np.array([d.clock_wraps.get(int(i), 0) for i in kept], dtype=np.int64) if d.clock_wraps else 0
-        dseq, ddev, ok = _steps(p_seq, p_dev, k_seq, k_dev, self.period_us, wraps)
+        dseq, ddev, _ = _steps(p_seq, p_dev, k_seq, k_dev, self.period_us, wraps)
         is_break = np.isin(kept, np.fromiter(d.breaks, dtype=np.int64, count=len(d.breaks)))
         duplicate = (dseq == 0) | ((ddev == 0) & ~is_break)
-        if self._check_silences(ddev, ok, is_break, duplicate, arrival):
+        if self._check_silences(dseq, ddev, is_break, duplicate, arrival):
             dseq, ddev, _ = _steps(p_seq, p_dev, k_seq, k_dev, self.period_us, wraps)
         break_rows = np.flatnonzero(is_break & ~duplicate)
         for j in break_rows:  # across a restart nothing on the device bridges the gap; the host's clock does
@@ -273,20 +276,20 @@ class Unwrapper:
         return self._emit(kept[keep], rows, k_seq[keep], k_dev[keep], dseq[keep], ddev[keep],
                           np.flatnonzero(is_break[keep]), arrival)
 
-    def _check_silences(self, ddev: np.ndarray, ok: np.ndarray, is_break: np.ndarray, duplicate: np.ndarray,
+    def _check_silences(self, dseq: np.ndarray, ddev: np.ndarray, is_break: np.ndarray, duplicate: np.ndarray,
                         arrival: float) -> bool:
-        """A long step that the host's clock contradicts (a reboot whose counters happened to line up) is a
-        restart after all. Returns whether anything changed."""
+        """A step whose sequence count had to be completed by whole wraps agrees with the clock only modulo
+        65,536 periods, which a restart can match by chance; when the host's steady clock says far less time
+        passed than such a step claims, it is a restart after all. Steps the sequence vouches for by itself are
+        never overruled: a backlog makes arrivals say less time passed than did. Returns whether anything
+        changed."""
         if math.isnan(arrival) or math.isnan(self._last_arrival):
             return False
         elapsed_us = (arrival - self._last_arrival) * 1e6
-        long_steps = np.flatnonzero((ddev > HOST_SLACK_S * 1e6 + 0.02 * elapsed_us + 2e6) & ~is_break & ~duplicate)
-        changed = False
-        for j in long_steps:
-            if ddev[j] > elapsed_us + HOST_SLACK_S * 1e6 + 0.02 * elapsed_us:
-                is_break[j] = True
-                changed = True
-        return changed
+        limit = elapsed_us + VETO_SLACK_S * 1e6 + 0.05 * elapsed_us
+        wrapped = np.flatnonzero((dseq >= SEQ_MODULUS) & (ddev > limit) & ~is_break & ~duplicate)
+        is_break[wrapped] = True
+        return len(wrapped) > 0
 
     def _last_before(self, j: int, p_dev: np.ndarray, ddev: np.ndarray) -> int:
         """The unwrapped clock of the frame kept just before row ``j``."""
