@@ -129,3 +129,41 @@ def test_a_misspelt_rig_key_is_named_not_ignored() -> None:
         parse_rig(demo_rig_text().replace("divider = 11.0", "diviser = 11.0", 1), "t.toml")
     with pytest.raises(RigError, match=r"device\.bauds: unknown key; did you mean 'baud'"):
         parse_rig(demo_rig_text().replace("baud = 921600", "bauds = 921600", 1), "t.toml")
+
+
+def test_a_plain_byte_dump_is_labelled_from_start_or_its_file_time(tmp_path: Path, capsys) -> None:
+    """A dump of the port has no arrival times: its labels start at --start (or the file's modification time),
+    never in 1970, whatever the reads; durations and the device clock are the same either way."""
+    import json
+    import os
+    import sys
+
+    sys.path.insert(0, str(Path(__file__).parent))
+    from devicestream import Device, Dip, play
+
+    stream = play(Device(rate_hz=1000.0, duration_s=4.0, script=(Dip(1.0, 0.25, 40.0),), seed=4))
+    dump = tmp_path / "capture.bin"
+    dump.write_bytes(stream.data)
+    os.utime(dump, (1_790_000_000, 1_790_000_000))  # 2026-09-21, the dump's own time
+    from logger.sim.simple import RIG_TOML
+
+    rig = tmp_path / "rig.toml"
+    rig.write_text(RIG_TOML)
+    runs = {}
+    for name, extra in (("start", ["--start", "2026-11-30T22:15:00Z"]), ("file", [])):
+        out = tmp_path / name
+        assert main(["record", "--replay", str(dump), "--rig", str(rig), "--out", str(out), "--quiet", *extra]) == 0
+        (runs[name],) = out.iterdir()
+    capsys.readouterr()
+    a, b = (pd.read_parquet(runs[k], columns=["utc", "device_us"]) for k in ("start", "file"))
+    assert a["utc"].iloc[0] == pd.Timestamp("2026-11-30T22:15:00Z")
+    assert b["utc"].iloc[0] == pd.Timestamp(1_790_000_000, unit="s", tz="UTC")
+    assert a["utc"].is_unique and a["utc"].is_monotonic_increasing
+    assert (a["device_us"] == b["device_us"]).all()
+    clock = json.loads((runs["start"] / "_run.json").read_text())["clock"]
+    assert "--start 2026-11-30T22:15:00Z" in clock["labels"]
+    assert "modification time" in json.loads((runs["file"] / "_run.json").read_text())["clock"]["labels"]
+    dips = [pd.read_parquet(runs[k] / "_events.parquet").query("kind == 'brownout'") for k in runs]
+    assert [d["duration_s"].item() for d in dips] == [pytest.approx(0.25, abs=1e-3)] * 2
+    assert main(["record", "--sim", "--start", "2026-11-30T22:15:00Z", "--out", str(tmp_path / "x")]) == 2
+    assert "--start is for --replay" in _error_line(capsys)

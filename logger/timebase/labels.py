@@ -72,10 +72,10 @@ class Labeler:
 
     def observe(self, device_us: int, arrival: float, wall_offset: float) -> None:
         """The frame at ``device_us`` had arrived by ``arrival`` (steady clock, s); UTC = steady + offset."""
+        if math.isnan(arrival) or not self.paced:
+            return  # without arrivals the labels start from the first sample labelled (``start_utc_s``)
         if self._origin_us is None:
             self._origin_us = device_us
-        if math.isnan(arrival) or not self.paced:
-            return
         self._watch_wall(device_us, wall_offset)
         if self._first is None:
             self._first = (device_us, arrival)
