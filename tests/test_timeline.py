@@ -389,6 +389,21 @@ def test_rows_and_lost_frames_add_up_to_the_span(tmp_path: Path) -> None:
     check_counts(run.samples, stream.truth)
 
 
+def test_the_run_counts_the_link_from_the_first_byte(tmp_path: Path) -> None:
+    """A first read that holds the header, a garbled line and 10,000 data lines: the run's link counters include
+    every one of them (frames = rows, the garbled line rejected), so rows + lost = the sequence span. (A garbled
+    first line would be a fragment of a line cut by opening the port, not an error.)"""
+    from devicestream import Arrival
+
+    device = Device(rate_hz=1000.0, duration_s=10.0)
+    stream = play(device)
+    data = b"".join(stream.lines[:2]) + b"D 00 garbled by a loose cable\n" + b"".join(stream.lines[2:])
+    run = record(ScriptedSource([Arrival(5000.0 + 10.0, 1_800_000_000.0 - 5000.0, data)], answer=None), tmp_path)
+    link = run.meta["link"]
+    assert len(run.samples) == 10_000 == link["frames"]
+    assert link["rejected"] == 1 and link["lost"] == 0
+
+
 @pytest.mark.parametrize("error_us", [8168, -8168])
 def test_a_single_inconsistent_line_is_dropped_and_moves_nothing(tmp_path: Path, error_us: int) -> None:
     """One line with a good CRC and a clock 8168 us off while its sequence steps by one: dropped, counted as
