@@ -17,10 +17,10 @@ from logger.cal.assess import MODELS
 from logger.cal.capture import DEFAULT_MAX_SD, DEFAULT_SAMPLES
 from logger.cal.session import CalError
 from logger.events import Event
-from logger.live import Snapshot
-from logger.pipeline import Pipeline, Settings
+from logger.ingest import Pipeline, Settings
+from logger.ingest.recorder import use_lean_allocator
+from logger.ingest.state import Snapshot
 from logger.plan import PlanError, add_plan_command
-from logger.recording import use_lean_allocator
 from logger.review.command import add_review_commands
 from logger.rig import Rig, RigError, demo_rig_text, load_rig
 from logger.sim.spec import ScenarioError
@@ -284,7 +284,7 @@ def cmd_recal(args: argparse.Namespace) -> int:
     import pyarrow.parquet as pq
 
     from logger.cal.profile import ProfileError, load_profile
-    from logger.cal.recal import EVENTS, recalibrate
+    from logger.store.recal import EVENTS, recalibrate
 
     try:
         profiles = [load_profile(path) for path in args.profile]
@@ -465,9 +465,9 @@ def _print_status(pipeline: Pipeline, quiet: bool) -> None:
     while not pipeline.wait(every):
         if not quiet:
             snap = pipeline.snapshot()
-            # From the event log's own memory (the last 500), not the snapshot's 50: a burst of events
-            # between two status lines (a flickering meter) must all reach the log.
-            fresh = [e for e in pipeline.events.recent(500) if (e.id or 0) > shown][::-1]
+            # The snapshot holds the last 500 events: a burst between two status lines (a flickering meter)
+            # all reaches the log.
+            fresh = [e for e in snap.events if (e.id or 0) > shown][::-1]
             shown = max([shown, *(e.id or 0 for e in fresh)])
             for event in fresh:
                 print(event_line(event), file=sys.stderr)

@@ -11,6 +11,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 
+from logger.cal.apply import Calibrator
 from logger.cal.assess import CalPoint, assess, gain_only
 from logger.cal.capture import judge
 from logger.cal.profile import Profile, ProfileError, load_profile, save_profile
@@ -23,10 +24,9 @@ from logger.cal.session import (
     points_from_csv,
     wait_for_device,
 )
-from logger.calibration import Calibrator
 from logger.cli import main
 from logger.events.outside import OutsideWatch
-from logger.pipeline import Pipeline, Settings
+from logger.ingest import Pipeline, Settings
 from logger.rig import RigError, load_rig, parse_rig
 from logger.sim.adc import Adc, AdcSpec
 from logger.sim.device import SimDevice
@@ -311,8 +311,8 @@ def _line_profile(channel: str, unit: str, gain: float, span: tuple[float, float
 def test_recal_rewrites_values_from_counts_and_detects_events_again(tmp_path: Path) -> None:
     import pandas as pd
 
-    from logger.cal.recal import recalibrate
     from logger.store import StoreError, read_run_json
+    from logger.store.recal import recalibrate
 
     run = _recorded_run(tmp_path)
     before = pd.read_parquet(run / "_events.parquet")

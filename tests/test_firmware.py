@@ -32,7 +32,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from logger.pipeline import Pipeline, Settings
+from logger.ingest import Pipeline, Settings
 from logger.rig import parse_rig
 from logger.sources.replay import ReplaySource
 from logger.sources.serial_port import SerialSource

@@ -18,12 +18,12 @@ from scipy.integrate import trapezoid
 
 from logger.cal.fit import Polynomial
 from logger.cal.profile import Profile, save_profile
-from logger.cal.recal import recalibrate
 from logger.core import GAP_S
-from logger.pipeline import Pipeline, Settings
+from logger.ingest import Pipeline, Settings
 from logger.review.summary import summarize
 from logger.rig import load_rig
 from logger.sim.simple import RIG_TOML
+from logger.store.recal import recalibrate
 from logger.store.reprocess import detect_again
 
 LSB_V = 3.3 / 4096  # the simple rig's 12-bit, 3.3 V converter: FS / 2^N (common practice, no source)

@@ -19,7 +19,7 @@ import pandas as pd
 import pytest
 from fakes import WrongBaud
 
-from logger.pipeline import Pipeline, Settings
+from logger.ingest import Pipeline, Settings
 from logger.rig import parse_rig
 from logger.sim.device import LinkFaults, SimDevice
 from logger.sim.simple import RIG_TOML, simple_rig

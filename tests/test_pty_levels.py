@@ -13,7 +13,7 @@ import pandas as pd
 import pytest
 from devicestream import Device, Dip, play
 
-from logger.pipeline import Pipeline, Settings
+from logger.ingest import Pipeline, Settings
 from logger.sim.simple import simple_rig
 from logger.sources.serial_port import SerialSource
 

@@ -11,7 +11,7 @@ import pyarrow as pa
 import pytest
 from scipy.integrate import trapezoid
 
-from logger.calibration import Calibrator
+from logger.cal.apply import Calibrator
 from logger.cli import main
 from logger.review.export import export_samples, parse_when, run_start
 from logger.review.runs import open_runs, summarize_runs
@@ -91,7 +91,7 @@ def test_ripple_of_a_sine_is_its_peak_to_peak_and_a_over_root_two(tmp_path: Path
 
 def test_summary_events_agree_with_the_simulator_truth(tmp_path: Path) -> None:
     """The simple simulated rail dips to 9.5 V for 0.4 s at 30 s and drops to 0.3 V for 0.15 s at 50 s."""
-    from logger.pipeline import Pipeline, Settings
+    from logger.ingest import Pipeline, Settings
     from logger.sim.device import SimDevice
     from logger.sim.simple import DEFAULT_SCRIPT, simple_rig
     from logger.sources.simulated import SimSource

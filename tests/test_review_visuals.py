@@ -16,7 +16,7 @@ import pyarrow.parquet as pq
 import pytest
 from rich.cells import cell_len
 
-from logger.pipeline import Pipeline, Settings
+from logger.ingest import Pipeline, Settings
 from logger.review.chart import run_limits
 from logger.review.window import around_event
 from logger.rig import Rig

@@ -9,7 +9,7 @@ import pytest
 
 from logger.cli import main
 from logger.review.summary import summarize
-from logger.sim.samples import SAMPLES, record_sample
+from logger.sample_logs import SAMPLES, record_sample
 
 SAMPLE_LOGS = Path(__file__).resolve().parents[1] / "sample_logs"
 
@@ -21,7 +21,7 @@ def _events(run: Path) -> pd.DataFrame:
 def test_the_split_supply_sample_is_what_its_scenario_records_today(tmp_path: Path) -> None:
     """Recorded again from its scenario, seed and start time, the sample has the same events and summary,
     so a change to the simulator, the detectors or the store that would make it stale fails here (remake the
-    samples with `python -m logger.sim.samples sample_logs`)."""
+    samples with `python -m logger.sample_logs sample_logs`)."""
     (sample,) = [s for s in SAMPLES if s.name == "split-supply"]
     fresh = record_sample(sample, SAMPLE_LOGS, tmp_path)
     shipped = SAMPLE_LOGS / sample.name

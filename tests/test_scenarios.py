@@ -9,7 +9,7 @@ import pytest
 
 from logger.events.log import EventLog
 from logger.events.model import Event
-from logger.pipeline import Pipeline, Settings
+from logger.ingest import Pipeline, Settings
 from logger.sim.scenario import load_scenario
 from logger.sim.truth import TrueEvent
 from logger.sources.simulated import SimSource

@@ -13,7 +13,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from scipy.integrate import solve_ivp
 
-from logger.calibration import Calibrator
+from logger.cal.apply import Calibrator
 from logger.rig import parse_rig
 from logger.sim import MeterCircuit, MeterNode, ScenarioError, load_scenario, scenario_names
 from logger.sim.battery import Battery

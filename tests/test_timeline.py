@@ -44,7 +44,7 @@ from devicestream import (
 from hypothesis import HealthCheck, Phase, given, settings
 from hypothesis import strategies as st
 
-from logger.pipeline import Pipeline, Settings
+from logger.ingest import Pipeline, Settings
 from logger.sim.simple import simple_rig
 from logger.wire import Decoder, DeviceHeader, FrameBatch
 

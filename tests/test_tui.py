@@ -13,8 +13,8 @@ import pytest
 from fakes import WrongBaud
 from textual.widgets import Digits, Static
 
-from logger.live import LinkHealth, Ring, Snapshot
-from logger.pipeline import Pipeline, Settings
+from logger.ingest import Pipeline, Settings
+from logger.ingest.state import LinkHealth, Ring, Snapshot
 from logger.rig import Rig
 from logger.sim.scenario import load_scenario
 from logger.sources.simulated import SimSource
@@ -324,7 +324,7 @@ def test_zero_key_tares_the_current_channel(start: Callable[..., Pipeline]) -> N
             await _until(pilot, lambda: pipeline.recorder is not None and pipeline.ring.written > 100)
             await _key(app, pilot, "z")  # the first press only asks
             await pilot.pause(0.3)
-            assert "mark" not in _kinds(app) and not pipeline._zero_requests
+            assert "mark" not in _kinds(app) and not pipeline.calibration_changes
             await _key(app, pilot, "z")
             await _until(pilot, lambda: "mark" in _kinds(app), 2.0)
             (zeroed,) = [e for e in pipeline.events.recent() if e.kind == "mark"]

@@ -12,16 +12,28 @@ from __future__ import annotations
 import time
 from collections.abc import Callable
 from dataclasses import dataclass
+from typing import Protocol
 
 import numpy as np
-
-from logger.live import Ring
 
 DEFAULT_SAMPLES = 2000
 DEFAULT_MAX_SD = 25.0
 """Counts. Ripple on a rail makes the spread wide without making the mean unsure (a window holds many
 ripple cycles), so this only stops a point taken on a badly noisy or oscillating tap; the drift test
 is what waits for the rail to settle."""
+
+
+class Recent(Protocol):
+    """Recent raw counts as the ingest thread keeps them (``logger.ingest.Ring``): how many were ever written,
+    how many are kept, and copies of the newest."""
+
+    @property
+    def written(self) -> int: ...
+
+    @property
+    def capacity(self) -> int: ...
+
+    def latest(self, count: int) -> tuple[np.ndarray, np.ndarray]: ...
 
 
 @dataclass(frozen=True)
@@ -62,7 +74,7 @@ def judge(counts: np.ndarray, max_sd: float = DEFAULT_MAX_SD, full_scale: int | 
 
 
 def take_point(
-    ring: Ring,
+    ring: Recent,
     column: int,
     samples: int = DEFAULT_SAMPLES,
     max_sd: float = DEFAULT_MAX_SD,

@@ -15,16 +15,32 @@ from collections.abc import Callable
 from dataclasses import dataclass
 from datetime import UTC, datetime, timedelta
 from pathlib import Path
+from typing import Any, Protocol
 
 from logger.cal.assess import MODELS, Assessment, CalPoint, Candidate, assess, gain_only
-from logger.cal.capture import DEFAULT_MAX_SD, DEFAULT_SAMPLES, Reading, take_point
+from logger.cal.capture import DEFAULT_MAX_SD, DEFAULT_SAMPLES, Reading, Recent, take_point
 from logger.cal.profile import Profile, save_profile
 from logger.cal.report import assessment_text
-from logger.pipeline import Pipeline
 from logger.rig import Channel, Rig
+from logger.wire import DeviceHeader
 
 Ask = Callable[[str], str]
 Say = Callable[[str], None]
+
+
+class Tap(Protocol):
+    """What a calibration session needs of a running pipeline (``logger.ingest.Pipeline``): its recent raw
+    counts, the device header, and whether and why it stopped."""
+
+    counts_ring: Recent | None
+    header: DeviceHeader | None
+    error: str | None
+    message: str
+
+    @property
+    def source(self) -> Any: ...
+
+    def wait(self, timeout: float | None = None) -> bool: ...
 
 
 class CalError(ValueError):
@@ -84,7 +100,7 @@ def points_from_csv(path: Path, u_reference: float | None = None) -> list[CalPoi
     return points
 
 
-def wait_for_device(pipeline: Pipeline, timeout_s: float = 15.0) -> None:
+def wait_for_device(pipeline: Tap, timeout_s: float = 15.0) -> None:
     """Block until samples flow; raise :class:`CalError` with the pipeline's own words if they do not."""
     deadline = time.monotonic() + timeout_s
     while pipeline.counts_ring is None or pipeline.counts_ring.written == 0:
@@ -92,7 +108,7 @@ def wait_for_device(pipeline: Pipeline, timeout_s: float = 15.0) -> None:
             raise CalError(pipeline.error or f"no samples from {pipeline.source.name}: {pipeline.message}")
 
 
-def capture(pipeline: Pipeline, k: int, opts: CalOptions, say: Say) -> Reading:
+def capture(pipeline: Tap, k: int, opts: CalOptions, say: Say) -> Reading:
     """One point's raw counts, taken once settled; the progress line is rewritten in place."""
     def progress(r: Reading) -> None:
         shown = f"mean {r.mean:.2f}, sd {r.sd:.2f} counts; " if math.isfinite(r.mean) else ""
@@ -105,7 +121,7 @@ def capture(pipeline: Pipeline, k: int, opts: CalOptions, say: Say) -> Reading:
     return reading
 
 
-def collect_points(pipeline: Pipeline, ch: Channel, k: int, opts: CalOptions, ask: Ask, say: Say,
+def collect_points(pipeline: Tap, ch: Channel, k: int, opts: CalOptions, ask: Ask, say: Say,
                    most: int | None = None) -> list[CalPoint]:
     """Ask for reference values and take a settled point for each, until the user is done (or ``most``)."""
     points: list[CalPoint] = []
@@ -139,7 +155,7 @@ def collect_points(pipeline: Pipeline, ch: Channel, k: int, opts: CalOptions, as
     return points
 
 
-def _now_reading(pipeline: Pipeline, k: int) -> str:
+def _now_reading(pipeline: Tap, k: int) -> str:
     """The channel's raw reading over the last second, so the user sees it before typing a value."""
     ring = pipeline.counts_ring
     rate = pipeline.header.rate_hz if pipeline.header else 1000.0
@@ -215,7 +231,7 @@ def _save(rig: Rig, ch: Channel, profile: Profile, opts: CalOptions, say: Say) -
     return path
 
 
-def zero(pipeline: Pipeline, rig: Rig, ch: Channel, k: int, opts: CalOptions, ask: Ask, say: Say) -> None:
+def zero(pipeline: Tap, rig: Rig, ch: Channel, k: int, opts: CalOptions, ask: Ask, say: Say) -> None:
     """Zero a current channel with no current flowing: shift its profile, or give the rig's offset_counts."""
     ask(f"Make sure no current flows through the shunt of {ch.name}, then press Enter: ")
     reading = capture(pipeline, k, opts, say)

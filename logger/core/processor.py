@@ -15,8 +15,8 @@ from typing import Any
 
 import numpy as np
 
+from logger.cal.apply import Calibrator
 from logger.cal.profile import Profile, profile_from_dict
-from logger.calibration import Calibrator
 from logger.core.gaps import GAP_S, gap_rows
 from logger.core.seconds import Pair, Seconds
 from logger.events import Event, EventDetector

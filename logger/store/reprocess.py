@@ -17,8 +17,8 @@ import numpy as np
 import pyarrow as pa
 import pyarrow.parquet as pq
 
+from logger.cal.apply import Calibrator
 from logger.cal.profile import Profile, profile_from_dict
-from logger.calibration import Calibrator
 from logger.core import Block, Change, Processor
 from logger.events.model import Event
 from logger.rig import Rig, RigError, parse_rig

@@ -1,6 +1,6 @@
 """The live text screen: readouts, trend, events, link and recording state, all read from pipeline snapshots.
 
-The screen only reads :meth:`logger.pipeline.Pipeline.snapshot` and the live ring; ingest and recording go on
+The screen only reads :meth:`logger.ingest.Pipeline.snapshot` and the live ring; ingest and recording go on
 in the pipeline's own threads whatever the screen does, so a slow or paused screen never costs a sample.
 """
 

@@ -22,7 +22,7 @@ from textual.css.query import NoMatches
 from textual.widgets import DataTable, Footer
 from textual.worker import get_current_worker
 
-from logger.pipeline import Pipeline
+from logger.ingest import Pipeline
 from logger.tui.banner import Banner
 from logger.tui.calpanel import CalPanel
 from logger.tui.channels import shown_channels
@@ -38,7 +38,7 @@ POLL_S = 0.1
 
 
 class RailtapApp(App[str]):
-    """The live screen over a started :class:`~logger.pipeline.Pipeline`; returns a one-line summary."""
+    """The live screen over a started :class:`~logger.ingest.Pipeline`; returns a one-line summary."""
 
     TITLE = "railtap"
     ENABLE_COMMAND_PALETTE = False

@@ -12,7 +12,7 @@ import time
 from textual.widgets import Static
 
 from logger.events.model import Event
-from logger.live import Snapshot
+from logger.ingest.state import Snapshot
 from logger.tui.fmt import event_title
 
 FAULT_KINDS = ("brownout", "dropout", "overvoltage", "overcurrent", "flicker")

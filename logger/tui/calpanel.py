@@ -21,7 +21,7 @@ from logger.cal.assess import CalPoint
 from logger.cal.capture import DEFAULT_MAX_SD, DEFAULT_SAMPLES, Reading, judge
 from logger.cal.profile import load_profile
 from logger.cal.session import CalError, CalOptions, fit_and_save
-from logger.pipeline import Pipeline
+from logger.ingest import Pipeline
 
 SETTLE_TIMEOUT_S = 60.0
 

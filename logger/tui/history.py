@@ -13,7 +13,7 @@ import math
 
 import numpy as np
 
-from logger.live import Ring
+from logger.ingest.state import Ring
 from logger.tui.channels import Shown
 
 

@@ -9,7 +9,7 @@ from textual.containers import Horizontal
 from textual.widget import Widget
 from textual.widgets import Digits, Static
 
-from logger.live import Snapshot
+from logger.ingest.state import Snapshot
 from logger.tui.fmt import value_text
 from logger.tui.history import TrendHistory
 

@@ -5,7 +5,7 @@ from __future__ import annotations
 from rich.text import Text
 from textual.widgets import Static
 
-from logger.live import Snapshot
+from logger.ingest.state import Snapshot
 from logger.tui.fmt import elapsed_text, size_text
 
 STATE_STYLES = {"running": "bold green", "waiting": "bold yellow", "reconnecting": "bold red",

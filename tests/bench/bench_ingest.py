@@ -28,8 +28,8 @@ from pathlib import Path
 
 import serial
 
-from logger.pipeline import Pipeline, Settings
-from logger.recording import use_lean_allocator
+from logger.ingest import Pipeline, Settings
+from logger.ingest.recorder import use_lean_allocator
 from logger.sim.device import SimDevice
 from logger.sim.simple import simple_rig
 from logger.sources.serial_port import SerialSource

@@ -17,8 +17,8 @@ import tempfile
 import time
 from pathlib import Path
 
-from logger.pipeline import Pipeline, Settings
-from logger.recording import use_lean_allocator
+from logger.ingest import Pipeline, Settings
+from logger.ingest.recorder import use_lean_allocator
 from logger.sim.device import LinkFaults, SimDevice
 from logger.sim.scenario import load_scenario
 from logger.sources.simulated import SimSource

@@ -1,7 +1,9 @@
-"""Live state shared between the ingest thread and whoever watches: a ring of recent samples and a snapshot.
+"""What the ingest thread publishes for whoever watches: frozen snapshots, and rings of recent samples.
 
-The ingest thread appends whole batches under a short lock; readers copy what they need under the same lock
-and get immutable objects, so the screen never slows ingest and never sees a half-written batch.
+The ingest thread builds a new :class:`Snapshot` after each batch and swaps it in; readers only ever see whole
+ones. The rings of recent samples (for the trend and for taking calibration points) are appended by the ingest
+thread under a short lock, and readers copy what they need under the same lock. :class:`RateMeter` is the
+ingest thread's own.
 """
 
 from __future__ import annotations
@@ -9,7 +11,7 @@ from __future__ import annotations
 import threading
 import time
 from collections import deque
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 
@@ -119,10 +121,14 @@ class Snapshot:
     """Per volts/amps pair (``Rig.power_pairs()``), since the start or the last reset."""
     energy_wh: tuple[float, ...] = ()
     at_limit: tuple[bool, ...] = ()
+    """Per channel: the newest reading's counts are at 0 or full scale, so the value may lie beyond it."""
     outside_cal: tuple[bool, ...] = ()
     """Per channel: the newest reading lies outside its calibration profile's span (extrapolated)."""
     recording_on: bool = True
     """Recording now, or about to be from the first header on."""
     last_run: str | None = None
     """The folder of the run sealed last, when recording was stopped and started again."""
-    """Per channel: the newest reading's counts are at 0 or full scale, so the value may lie beyond it."""
+
+    def with_recording(self, recording: RecordingState | None, recording_on: bool) -> Snapshot:
+        """The same picture with the recorder's progress as of now (it moves on its own thread)."""
+        return replace(self, recording=recording, recording_on=recording_on)

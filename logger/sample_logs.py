@@ -3,7 +3,7 @@
 Each sample is a scenario file in ``sample_logs/scenarios/``, a seed and an invented start time; recording it
 again gives the same samples and events (the simulator runs on its own clock, as fast as it can, stamped from
 that start time), so a test can check the shipped files against a fresh recording. Remake them all with
-``python -m logger.sim.samples sample_logs``.
+``python -m logger.sample_logs sample_logs``.
 """
 
 from __future__ import annotations
@@ -15,7 +15,7 @@ from dataclasses import dataclass
 from datetime import datetime
 from pathlib import Path
 
-from logger.pipeline import Pipeline, Settings
+from logger.ingest import Pipeline, Settings
 from logger.sim.scenario import load_scenario
 from logger.sources.simulated import SimSource
 

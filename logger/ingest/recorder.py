@@ -17,7 +17,7 @@ from typing import Any
 import pyarrow as pa
 
 from logger import __version__
-from logger.live import RecordingState
+from logger.ingest.state import RecordingState
 from logger.rig import Rig
 from logger.sources.base import Chunk
 from logger.store import StoreError, new_run

@@ -1,0 +1,584 @@
+"""The ingest thread: source -> decoder -> time base -> processing core -> recorder and live state.
+
+One thread owns a run's state. It reads in bulk, decodes, puts frames on the device's time axis, calibrates,
+detects and accumulates whole batches, hands them to the recorder's queue and the live rings, publishes a frozen
+:class:`Snapshot`, and goes back to the port. Other threads read the latest snapshot and ask for things (a mark,
+a zero, a profile, a reset, recording on or off, a line to the device) through one queue, which the ingest
+thread drains between reads.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import queue
+import threading
+import time
+from collections import deque
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from logger.cal.apply import Calibrator, stand_in_header
+from logger.cal.profile import Profile
+from logger.core import GAP_S, Block, Processor
+from logger.events import Event
+from logger.events.link import LinkWatch
+from logger.events.log import EventLog
+from logger.ingest.account import clock_account, link_counts, link_health
+from logger.ingest.flow import FlowWatch
+from logger.ingest.recorder import Recorder
+from logger.ingest.runs import Runs
+from logger.ingest.state import RateMeter, Ring, Snapshot
+from logger.rig import Rig, RigError
+from logger.sources.base import Chunk, LinkLost, Source, SourceError
+from logger.store import sample_batch, sample_schema
+from logger.store.files import utc_text
+from logger.timebase import Stamped, TimeBase
+from logger.wire import Answer, Decoder, DeviceHeader, FrameBatch, encode_line
+
+ASK_HEADER = encode_line("?H")
+MAX_PENDING_FRAMES = 1 << 20
+PUBLISH_S = 0.1
+"""How often the ingest thread publishes a new snapshot (screens poll about ten times a second)."""
+ZERO_MOMENT_S = 0.05
+"""A zero takes the mean of the readings of the moment it was asked for: 50 ms of them."""
+
+
+@dataclass(frozen=True)
+class Settings:
+    """How a pipeline runs; everything has a default a user would expect."""
+
+    record_root: Path | None = Path("runs")
+    label: str = ""
+    part_seconds: float = 3600.0
+    keep_raw: bool = False
+    duration_s: float | None = None
+    """Stop after this much device time from the first sample."""
+    live_seconds: float = 60.0
+    gap_s: float = GAP_S
+    """Missing frames over a longer step are a gap: a frame_gap event, and not integrated across."""
+    batch_s: float = 0.1
+    """Reads are gathered for this long before decoding: fewer, larger batches cost less CPU."""
+    header_wait_s: float = 10.0
+    retry_s: float = 1.0
+    start_utc: float | None = None
+    """UTC seconds for the first sample when the source cannot say when bytes arrived (a plain byte dump):
+    ``--start`` or the file's own time; None takes the host's clock."""
+    start_from: str = "the host's clock at the first sample"
+    """Where ``start_utc`` came from, for ``_run.json``."""
+    record_at_start: bool = True
+    """False: watch only until :meth:`Pipeline.set_recording` starts a run (needs ``record_root``)."""
+
+
+class Pipeline:
+    """One run: from the first byte to sealed parts. Start it, watch snapshots, stop it."""
+
+    def __init__(self, source: Source, rig: Rig, settings: Settings | None = None) -> None:
+        self.source = source
+        self.rig = rig
+        self.settings = s = settings or Settings()
+        self.decoder = Decoder()
+        self.timebase: TimeBase | None = None
+        """Made at the first header (it needs the rate); the one owner of the run's time."""
+        self.header: DeviceHeader | None = None
+        self.processor: Processor | None = None
+        """Made at the first header; calibrates, detects and accumulates (the same core offline paths use)."""
+        self.ring: Ring | None = None
+        self.counts_ring: Ring | None = None
+        """The same recent rows as raw counts (the rig's channels, its order): what calibration averages."""
+        self.state = "waiting"
+        self.message = f"opening {source.name}"
+        self.error: str | None = None
+        self.stop_reason = "stopped by user"
+        self.answers: deque[Answer] = deque(maxlen=20)
+        self.reconnects = 0
+        self.unheaded = 0
+        """Frames dropped because no header came to say how to read them."""
+        self.down_since: float | None = None
+        """When the link was lost (UTC seconds), while reconnecting."""
+        self.events = EventLog()
+        self._names = tuple(ch.name for ch in rig.channels)
+        self._schema = sample_schema(self._names)
+        self.runs = Runs(s.record_root or Path("."), s.label, rig, self._schema, source.name, gap_s=s.gap_s,
+                         part_seconds=s.part_seconds, keep_raw=s.keep_raw)
+        self._link = LinkWatch()
+        self._rate = RateMeter()
+        self._flow = FlowWatch(source.name)
+        self._commands: queue.SimpleQueue[tuple[str, Any]] = queue.SimpleQueue()
+        self._for_next_block: list[tuple[str, Any]] = []
+        self._record_wanted: bool | None = None
+        self._pending: list[tuple[FrameBatch, float, float]] = []
+        self._pending_frames = 0
+        self._pending_raw: list[Chunk] = []
+        self._held: list[bytes] = []
+        self._held_bytes = 0
+        self._held_time = (float("nan"), 0.0)
+        self._held_since = float("nan")
+        self._fed_at = 0.0
+        self._published_at = 0.0
+        self._first_us: int | None = None
+        self._last_us: int | None = None
+        self._last_utc_us: int | None = None
+        self._snapshot: Snapshot | None = None
+        self._stop = threading.Event()
+        self._done = threading.Event()
+        self._thread = threading.Thread(target=self._run, name="railtap-ingest", daemon=True)
+        self._publish()
+
+    # -- control (any thread) --------------------------------------------------------------------------
+
+    def start(self) -> None:
+        """Open the source (raises :class:`SourceError` at once if it cannot) and start ingesting."""
+        self.source.open()
+        self.decoder.joined_midstream()
+        self._send(ASK_HEADER)
+        self._flow = FlowWatch(self.source.name)
+        self.state, self.message = "waiting", f"connected to {self.source.name}; waiting for the device header"
+        self._publish()
+        self._thread.start()
+
+    def request_stop(self, reason: str = "stopped by user") -> None:
+        self.stop_reason = reason
+        self._stop.set()
+
+    def wait(self, timeout: float | None = None) -> bool:
+        """Block until the run has ended and its parts are sealed; True if it has.
+
+        An Event rather than ``Thread.join``: a join cut short by Ctrl-C can report a live thread as ended,
+        and the process would then exit before the parts are sealed.
+        """
+        return self._done.wait(timeout)
+
+    def stop(self, reason: str = "stopped by user") -> dict[str, Any] | None:
+        """Stop, seal everything and return the run's final metadata (None if nothing was recorded)."""
+        self.request_stop(reason)
+        self.wait()
+        return self.final
+
+    def snapshot(self) -> Snapshot:
+        """The latest picture the ingest thread published, with the recorder's progress as of now."""
+        return self._snapshot.with_recording(self.runs.state(), self.recording)
+
+    def mark(self, note: str) -> None:
+        """A user's note at this moment (the time of the newest sample, else the host clock)."""
+        self._commands.put(("mark", note))
+
+    def set_recording(self, on: bool) -> None:
+        """Start recording to a new run folder under ``record_root``, or stop and seal the present one; done
+        by the ingest thread at its next read. Raises ValueError when there is nowhere to record to."""
+        if on and self.settings.record_root is None:
+            raise ValueError("this run was started without a folder to record to")
+        self._record_wanted = on
+        self._commands.put(("record", on))
+
+    def zero(self, channel: str) -> None:
+        """Take the current reading of an amps channel as its zero (a tare, with no current flowing): done by
+        the ingest thread on the next batch, noted in the event list. Raw counts are always kept, so the run
+        can be calibrated again later whatever was zeroed."""
+        if self.rig.channel(channel).role != "amps":
+            raise ValueError(f"{channel} is not an amps channel; only current channels are zeroed")
+        self._commands.put(("zero", channel))
+
+    def use_profile(self, channel: str, profile: Profile) -> None:
+        """Calibrate ``channel`` with ``profile`` from the next batch on (noted in the event list); raw counts
+        are kept, so a recording can be calibrated again afterwards whatever was used live."""
+        self.rig.channel(channel)
+        self._commands.put(("profile", (channel, profile)))
+
+    def reset_minmax(self) -> None:
+        """Forget min/max and start the charge and energy counters again from zero, from the next batch."""
+        self._commands.put(("reset", None))
+
+    def send(self, command: str) -> None:
+        """Send a host command (``?H``, ``?P token``, ``!R hz``) to the device; its answer comes back in
+        ``answers``. A lost link just drops it (the next read reports the loss)."""
+        self._commands.put(("send", encode_line(command)))
+
+    @property
+    def recording(self) -> bool:
+        """Whether samples are being recorded now, or will be (as last asked, or from the first header on)."""
+        if self._record_wanted is not None:
+            return self._record_wanted
+        return self.settings.record_root is not None and self.settings.record_at_start
+
+    @property
+    def recorder(self) -> Recorder | None:
+        """The run being recorded now, if any."""
+        return self.runs.current
+
+    @property
+    def final(self) -> dict[str, Any] | None:
+        """The final metadata of the run sealed last (None if nothing was recorded)."""
+        return self.runs.final
+
+    @property
+    def sealed(self) -> list[dict[str, Any]]:
+        """Every run this pipeline recorded and sealed, oldest first (recording can be stopped and started)."""
+        return self.runs.sealed
+
+    @property
+    def calibration_changes(self) -> list[dict[str, Any]]:
+        """Zeros and profiles applied while running, oldest first; every run sealed afterwards records them."""
+        return [c.as_dict() for c in self.processor.applied] if self.processor is not None else []
+
+    # -- the ingest thread -------------------------------------------------------------------------------
+
+    def _run(self) -> None:
+        try:
+            while not self._stop.is_set():
+                if not self._step():
+                    break
+                if self.recorder is not None and not self.recorder.alive:
+                    self._fail(self.recorder.error or "recorder stopped")
+                    break
+            self._drain()
+        except (RigError, SourceError) as exc:
+            self._fail(str(exc))
+        except Exception as exc:  # a bug: still seal what was recorded, and say so in one line
+            self._fail(f"internal error, please report it: {type(exc).__name__}: {exc}")
+            raise
+        finally:
+            try:
+                self._finish()
+            finally:
+                self._publish()
+                self._done.set()
+
+    def _step(self) -> bool:
+        try:
+            chunk = self.source.read()
+        except LinkLost as exc:
+            self._drain()
+            return self._reconnect(str(exc))
+        if chunk is None:
+            self._drain()
+            self.stop_reason = "source ended"
+            return False
+        self._take_commands()  # before this read is decoded: what was asked during it applies to it
+        if chunk.data:
+            self._take(chunk)
+        now = time.monotonic()
+        if self._held_bytes >= 65536 or now - self._fed_at >= self.settings.batch_s:
+            self._drain()
+        if now - self._published_at >= PUBLISH_S:
+            self._watch()
+            self._publish()
+            self._published_at = now
+        return not self._duration_reached()
+
+    def _take_commands(self) -> None:
+        """Do what other threads asked; zeros, profiles and resets wait for the next batch's first sample."""
+        while True:
+            try:
+                what, arg = self._commands.get_nowait()
+            except queue.Empty:
+                return
+            if what == "record":
+                self._switch_recording(arg)
+            elif what == "mark":
+                self.events.add(Event("mark", self._now_us(), detail=arg, device_start_us=self._last_us))
+            elif what == "send":
+                self._send(arg)
+            else:
+                self._for_next_block.append((what, arg))
+
+    def _take(self, chunk: Chunk) -> None:
+        """Hold a read until enough has come to decode as one batch (reads at low rates are tiny). A batch
+        spans at most ``batch_s`` of the reads' own arrival times too, so a source faster than real time (a
+        replay, the simulator) is not lumped under one arrival."""
+        if self._held and chunk.host_time - self._held_since >= self.settings.batch_s:
+            self._drain()
+        if not self._held:
+            self._held_since = chunk.host_time
+        if self.recorder is not None:
+            self.recorder.add_raw(chunk)
+        elif self.settings.keep_raw and self.header is None:
+            self._pending_raw.append(chunk)
+        self._flow.bytes_came()
+        self._held.append(chunk.data)
+        self._held_bytes += len(chunk.data)
+        self._held_time = (chunk.host_time, chunk.wall_offset)
+
+    def _drain(self) -> None:
+        """Decode everything held; every byte had arrived by the host time of the last read."""
+        self._fed_at = time.monotonic()
+        if not self._held:
+            return
+        data, (arrival, offset) = b"".join(self._held), self._held_time
+        self._held, self._held_bytes = [], 0
+        for item in self.decoder.feed(data):
+            if isinstance(item, FrameBatch):
+                if self.timebase is None:
+                    self._hold_until_header(item, arrival, offset)
+                else:
+                    self._emit(item, arrival, offset)
+            elif isinstance(item, DeviceHeader):
+                self._on_header(item)
+            else:
+                self.answers.append(item)
+        self._rate.mark(self.decoder.counters.frames)
+        self._flow.frames_so_far(self.decoder.counters.frames)
+        if self._last_utc_us is not None:
+            self._note(self._link.rejects(self.decoder.counters.rejected, self._last_utc_us))
+
+    def _hold_until_header(self, batch: FrameBatch, arrival: float, offset: float) -> None:
+        """Keep frames that came before the first header (they need its ADC bits and reference); past
+        ``MAX_PENDING_FRAMES`` the oldest go, counted, so a device that never sends one cannot fill memory."""
+        self._pending.append((batch, arrival, offset))
+        self._pending_frames += len(batch)
+        while self._pending_frames > MAX_PENDING_FRAMES and len(self._pending) > 1:
+            dropped, _, _ = self._pending.pop(0)
+            self._pending_frames -= len(dropped)
+            self.unheaded += len(dropped)
+
+    def _on_header(self, header: DeviceHeader) -> None:
+        first = self.header is None
+        if first:
+            start = self.settings.start_utc
+            self.timebase = TimeBase(header, time.time() if start is None else start)
+            self.processor = Processor(self.rig, Calibrator(self.rig, header), gap_s=self.settings.gap_s)
+        elif _format(header) != _format(self.header):
+            self._note(self.processor.set_calibrator(Calibrator(self.rig, header)))
+        self.timebase.on_header(header, first)
+        self.header = header
+        if first:
+            self._begin(header)
+
+    def _begin(self, header: DeviceHeader) -> None:
+        """First header: size the live rings, open the run folder, then flush what waited for the header."""
+        capacity = max(1024, int(self.settings.live_seconds * header.rate_hz))
+        self.ring = Ring(capacity, len(self._names))
+        self.counts_ring = Ring(capacity, len(self._names))
+        if self.settings.record_root is not None and self.settings.record_at_start:
+            self._open_run(from_first_byte=True)
+        self.state, self.message = "running", f"receiving from {self.source.name}"
+        pending, self._pending, self._pending_frames = self._pending, [], 0
+        for batch, arrival, offset in pending:
+            self._emit(batch, arrival, offset)
+
+    def _emit(self, batch: FrameBatch, arrival: float, offset: float) -> None:
+        """Put one batch on the run's time axis and hand on what it keeps."""
+        if self._duration_reached():
+            return
+        stamped = self.timebase.feed(batch, arrival, offset)
+        for step in self.timebase.clock_steps():
+            self._note([Event("clock_step", step.utc_us, value=step.step_s, device_start_us=step.device_us,
+                              detail=f"the host's wall clock stepped by {step.step_s:+.3f} s; labels slew to it, "
+                                     "durations are measured on the device clock")])
+        if len(stamped) == 0:
+            return
+        if self._first_us is None:
+            self._first_us = int(stamped.device_us[0])
+        self._process(stamped)
+
+    def _process(self, s: Stamped) -> None:
+        within = self._within_duration(s.device_us)
+        if within.stop == 0:  # all past the end of --duration
+            return
+        block = Block(s.device_us[within], s.utc_us[within], s.seq[within], s.segment[within],
+                      self.processor.calibrator.select(s.counts[within]))
+        self._apply_asked(block)
+        out = self.processor.feed(block)
+        self._note(out.events)
+        self.ring.extend(block.utc_us, out.values)
+        self.counts_ring.extend(block.utc_us, block.counts)
+        self._last_us = int(block.device_us[-1])
+        self._last_utc_us = int(block.utc_us[-1])
+        if self.recorder is not None:
+            self.recorder.add_batch(sample_batch(self._schema, block.utc_us, block.device_us, block.seq,
+                                                 block.segment, out.values, block.counts))
+
+    def _apply_asked(self, block: Block) -> None:
+        """Zeros, profiles and resets asked for since the last batch, applied from this batch's first sample."""
+        asked, self._for_next_block = self._for_next_block, []
+        when = utc_text(int(block.utc_us[0]))
+        at = {"device_start_us": int(block.device_us[0])}
+        for what, arg in asked:
+            if what == "reset":
+                self.processor.reset_figures()
+            elif what == "zero":
+                moment = max(1, round(ZERO_MOMENT_S * 1e6 / self.timebase.period_us))
+                change = self.processor.zero(arg, block, moment, when)
+                note = f"zeroed {arg}: {change.counts:.1f} counts taken as 0 {self.rig.channel(arg).unit}"
+                self.events.add(Event("mark", int(block.utc_us[0]), channel=arg, value=change.counts, detail=note,
+                                      **at))
+            elif what == "profile":
+                name, profile = arg
+                try:
+                    _, closed = self.processor.use_profile(name, profile, block, when)
+                except RigError as exc:
+                    self.message = str(exc)
+                    continue
+                self._note(closed)
+                self.events.add(Event("mark", int(block.utc_us[0]), channel=name, **at,
+                                      detail=f"calibration applied: {profile.model}, {len(profile.points)} points"))
+
+    def _within_duration(self, device_us: np.ndarray) -> slice:
+        """Rows up to the end of ``--duration`` (measured on the device clock from the first sample)."""
+        if self.settings.duration_s is None:
+            return slice(None)
+        end_us = self._first_us + round(self.settings.duration_s * 1e6)
+        return slice(0, np.searchsorted(device_us, end_us, side="left"))
+
+    def _duration_reached(self) -> bool:
+        limit = self.settings.duration_s
+        if limit is None or self._first_us is None or self._last_us is None:
+            return False
+        if self._last_us - self._first_us >= round(limit * 1e6) - self.timebase.period_us:
+            self.stop_reason = f"duration of {limit:g} s reached"
+            return True
+        return False
+
+    def _note(self, events: list[Event]) -> None:
+        for event in events:
+            self.events.add(event)
+
+    def _now_us(self) -> int:
+        """The time of the newest sample, else the host clock."""
+        return self._last_utc_us if self._last_utc_us is not None else int(time.time() * 1e6)
+
+    # -- the link and the run folders --------------------------------------------------------------------
+
+    def _reconnect(self, why: str) -> bool:
+        """Wait out an unplug: retry the source every ``retry_s`` until it is back or the run is stopped."""
+        lost_at = self.down_since = time.time()
+        self.state, self.message = "reconnecting", (
+            f"link lost ({why}); retrying every {self.settings.retry_s:g} s, and the run goes on when it is back")
+        self._publish()
+        self.source.close()
+        while not self._stop.wait(self.settings.retry_s):
+            self._take_commands()
+            try:
+                self.source.open()
+            except SourceError as exc:
+                self.message = f"link lost; still retrying: {exc}"
+                self._publish()
+                continue
+            self.reconnects += 1
+            self.down_since = None
+            self._flow.restart()
+            self.decoder.joined_midstream()
+            back = time.time()
+            # Anchored at the last sample's time (the data's own clock, which a replay or a fast simulation
+            # runs ahead of the wall clock), lasting as long as the wall clock says the outage did.
+            start_us = self._last_utc_us if self._last_utc_us is not None else int(lost_at * 1e6)
+            self.events.add(Event("link_lost", start_us, start_us + int((back - lost_at) * 1e6), detail=why))
+            self._send(ASK_HEADER)
+            self.state, self.message = "running", f"reconnected to {self.source.name} after {back - lost_at:.1f} s"
+            return True
+        return False
+
+    def _open_run(self, from_first_byte: bool = False) -> None:
+        """A new run folder. The run opened at the first header counts the link from the first byte (the lines
+        decoded with that header and any rejected before it included); one started later, from then on."""
+        base = {} if from_first_byte else link_counts(self.decoder.counters, self.timebase, self.reconnects,
+                                                      self.header)
+        recorder = self.runs.open(self.header, base)
+        self.events.sink = recorder.add_event
+        for chunk in self._pending_raw:
+            recorder.add_raw(chunk)
+        self._pending_raw = []
+
+    def _switch_recording(self, on: bool) -> None:
+        """Start or stop recording, between reads: a stopped run is sealed on a thread of its own, so ingest
+        goes straight back to the port; the next start opens a new run folder."""
+        if on and self.recorder is None and self.header is not None:
+            self._open_run()
+            self.events.add(Event("mark", self._now_us(), detail=f"recording started: {self.recorder.folder}"))
+        elif not on and self.recorder is not None:
+            self.events.add(Event("mark", self._now_us(), detail=f"recording stopped: {self.recorder.folder}"))
+            self.events.sink = None
+            self.runs.stop("recording stopped by user", self._run_account(self.recorder))
+
+    def _run_account(self, recorder: Recorder) -> dict[str, Any]:
+        """What a run says at its end, worked out here on the ingest thread."""
+        extra: dict[str, Any] = {
+            "link": link_counts(self.decoder.counters, self.timebase, self.reconnects, self.header,
+                                recorder.link_base),
+            "clock": clock_account(self.timebase, self.settings.start_from),
+        }
+        if self.calibration_changes:
+            extra["calibration_changes"] = self.calibration_changes
+        return extra
+
+    def _watch(self) -> None:
+        """Ask for a header while none has come, fall back on the rig's after a while, and say why no samples
+        come when they do not."""
+        if self.header is None:
+            if self._flow.ask_header_now():
+                self._send(ASK_HEADER)
+            waited = self._flow.waited_s()
+            if waited >= self.settings.header_wait_s:
+                fallback = stand_in_header(self.rig, self._pending[-1][0]) if self._pending else None
+                if fallback is not None:
+                    self._on_header(fallback)
+                    return
+                got = self.decoder.counters
+                self.message = (
+                    f"no header from the device after {waited:.0f} s ({got.frames} frames, {got.rejected} "
+                    "rejected lines): check the baud rate and firmware, or set device.adc_bits and "
+                    "device.vref_mv in the rig")
+        verdict = self._flow.verdict(self.state, self.decoder.counters.rejected, self.header is not None)
+        if verdict is not None:
+            self.state, self.message = verdict
+        if self.runs.failed:
+            self.message, self.runs.failed = self.runs.failed, None
+
+    def _send(self, line: bytes) -> None:
+        with contextlib.suppress(SourceError):  # a lost link shows up on the next read
+            self.source.write(line)
+
+    def _fail(self, message: str) -> None:
+        self.error = message
+        self.state, self.message = "failed", message
+        self.stop_reason = f"failed: {message}"
+
+    def _finish(self) -> None:
+        self.source.close()
+        if self.header is None and self.decoder.counters.frames and not self.error:
+            self._fail(
+                f"{self.decoder.counters.frames} frames arrived but never a header line, so nothing could be "
+                "recorded: check the firmware, or set device.adc_bits and device.vref_mv in the rig file"
+            )
+        if self.timebase is not None:
+            self.timebase.finish()
+        if self.processor is not None:
+            self._note(self.processor.finish())
+        extra = self._run_account(self.recorder) if self.recorder is not None else {}
+        error = self.runs.finish(self.stop_reason, extra)
+        if error and not self.error:
+            self._fail(error)
+        if self.state != "failed":
+            self.state, self.message = "stopped", self.stop_reason
+
+    def _publish(self) -> None:
+        """Swap in a new frozen picture of the run for other threads."""
+        core = self.processor
+        latest = self.ring.latest(1)[1][0] if self.ring is not None and self.ring.written else None
+        self._snapshot = Snapshot(
+            state=self.state,
+            message=self.message,
+            channels=self._names,
+            units=tuple(ch.unit for ch in self.rig.channels),
+            latest=latest,
+            at_limit=core.at_limit if core else (),
+            outside_cal=core.outside_now if core else (),
+            minimum=None if core is None or core.minimum is None else core.minimum.copy(),
+            maximum=None if core is None or core.maximum is None else core.maximum.copy(),
+            link=link_health(self.source.name, self.state in ("running", "waiting", "garbled", "silent"),
+                             self.down_since, self.decoder.counters, self.timebase, self._rate.per_second(),
+                             self.reconnects),
+            recording=None,
+            last_run=self.final.get("folder") if self.final else None,
+            events=self.events.recent(500),
+            active=tuple(core.active()) if core else (),
+            charge_ah=core.charge_ah if core else (),
+            energy_wh=core.energy_wh if core else (),
+        )
+
+
+def _format(header: DeviceHeader) -> tuple[Any, ...]:
+    """What a header says about how to read the frames after it: the inputs, bits and reference."""
+    return header.channels, header.adc_bits, header.vref_mv
