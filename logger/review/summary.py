@@ -105,7 +105,7 @@ def summarize(folder: Path, *, full: bool = False, progress: Callable[[int, int]
     first, last = (spans[0][0], spans[-1][1]) if spans else (meta.get("start_utc"), meta.get("end_utc"))
     return Summary(
         folder=folder, status=str(meta.get("status")), stop_reason=str(meta.get("stop_reason", "")),
-        start_utc=first, end_utc=last, duration_s=_seconds_between(first, last),
+        start_utc=first, end_utc=last, duration_s=_device_span_s(folder, first, last),
         samples=int(table["count"].to_numpy().sum()) if len(utc) else 0,
         gaps=sum(k.count for k in gaps), gap_s=sum(_total_s(events, k.kind) for k in gaps),
         channels=[_channel(table, c, units.get(c, ""), events) for c in channels],
@@ -130,7 +130,14 @@ def run_pairs(meta: dict[str, Any]) -> list[Pair]:
     return [Pair(p.rail, rig.channels[p.volts].name, rig.channels[p.amps].name, p.sign) for p in rig.power_pairs()]
 
 
-def _seconds_between(first: str | None, last: str | None) -> float:
+def _device_span_s(folder: Path, first: str | None, last: str | None) -> float:
+    """From the first sample to the last on the device clock (the axis every duration is measured on); between
+    the UTC labels only for a run without samples to read."""
+    parts = [path for _, path in parts_in(folder)]
+    head = pq.ParquetFile(parts[0]) if parts else None
+    if head is not None and head.metadata.num_rows and (end := last_sample(parts[-1])) is not None:
+        start = head.read_row_group(0, columns=["device_us"]).column(0)[0].as_py()
+        return (end.device_us - int(start)) / 1e6
     if not first or not last:
         return 0.0
     return (datetime.fromisoformat(last) - datetime.fromisoformat(first)).total_seconds()

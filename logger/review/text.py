@@ -23,7 +23,7 @@ def _n(count: int, noun: str) -> str:
 
 
 def _duration(seconds: float) -> str:
-    whole = int(seconds)
+    whole = round(seconds)
     clock = f"{whole // 3600}:{whole // 60 % 60:02d}:{whole % 60:02d}"
     return clock + (f" ({seconds:.1f} s)" if seconds < 3600 else "")
 
