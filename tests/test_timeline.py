@@ -404,6 +404,30 @@ def test_the_run_counts_the_link_from_the_first_byte(tmp_path: Path) -> None:
     assert link["rejected"] == 1 and link["lost"] == 0
 
 
+def test_a_rate_change_moves_the_sliding_mean_with_it(tmp_path: Path) -> None:
+    """10 kHz, then a header that says 1 kHz from here, then a 3 ms drop to 0 V: a 3 ms dropout (the sliding
+    mean is 1 ms of device time at any rate; one frozen at 10 samples made it a 12 ms brownout)."""
+    from devicestream import Arrival, RailTap, data_line, header_line
+
+    tap = RailTap()
+    volts, amps = int(tap.volts_counts(12.0)), int(tap.amps_counts(1.0))
+    lines, seq, clock = [b"\n", header_line(tap.channels, tap.bits, tap.vref_mv, 10_000.0, "boot")], 0, 5_000_000
+    for _ in range(10_000):  # 1 s at 10 kHz
+        lines.append(data_line(seq, clock, (volts, amps)))
+        seq, clock = seq + 1, clock + 100
+    lines.append(header_line(tap.channels, tap.bits, tap.vref_mv, 1000.0, "rate"))
+    clock += 900  # the first period at the new rate
+    for k in range(2000):  # 2 s at 1 kHz, the rail at 0 V for 3 samples in the middle
+        lines.append(data_line(seq, clock, (0 if 1000 <= k < 1003 else volts, amps)))
+        seq, clock = seq + 1, clock + 1000
+    arrivals = [Arrival(5000.0 + 0.1 * (i + 1), 1_800_000_000.0 - 5000.0, b"".join(lines[i * 400 : (i + 1) * 400]))
+                for i in range((len(lines) + 399) // 400)]
+    run = record(ScriptedSource(arrivals, answer=None), tmp_path)
+    (dip,) = run.events[run.events.kind.isin(RAIL_KINDS)].itertuples()
+    assert dip.kind == "dropout" and dip.duration_s == pytest.approx(0.003, abs=1e-6)
+    assert run.meta["link"]["lost"] == 0 and "device_reset" not in set(run.events.kind)
+
+
 @pytest.mark.parametrize("error_us", [8168, -8168])
 def test_a_single_inconsistent_line_is_dropped_and_moves_nothing(tmp_path: Path, error_us: int) -> None:
     """One line with a good CRC and a clock 8168 us off while its sequence steps by one: dropped, counted as
@@ -524,7 +548,7 @@ def test_a_wall_clock_step_changes_no_duration(tmp_path: Path, step_s: float) ->
 def timelines(draw: st.DrawFn) -> tuple[Device, Link]:
     """A few seconds of a device with one or two IEC dips, maybe a silence of up to 200 s, maybe a restart
     with or without its header, maybe one inconsistent line, in random order; over a link with random reads,
-    arrival jitter and a backlog of up to 10 s."""
+    arrival jitter, a backlog of up to 10 s and maybe a step of the host's wall clock."""
     rate = draw(st.sampled_from([100.0, 250.0, 500.0, 1000.0]))
     period_s = 1.0 / rate
     # Crystal tolerance of tens of ppm (common practice, no source); jitter well under a period.
@@ -565,11 +589,14 @@ def timelines(draw: st.DrawFn) -> tuple[Device, Link]:
     device = Device(rate_hz=rate, duration_s=t + draw(st.floats(0.2, 0.6)), drift_ppm=drift, jitter_us=jitter_us,
                     first_seq=first_seq, first_clock_us=first_clock, noise_lsb=draw(st.sampled_from([0.0, 1.0])),
                     script=tuple(script), seed=draw(st.integers(0, 1000)))
+    step = st.builds(WallStep, st.floats(0.0, t), st.sampled_from([-0.5, 2.0]))  # NTP steps back, a user forward
+    steps = draw(st.one_of(st.just(()), st.tuples(step)))
     link = Link(
         read_s=draw(st.sampled_from([0.001, 0.005, 0.02, 0.1])),
         jitter_s=draw(st.floats(0.0, 0.05)),
         backlog_s=backlog_s,
         split=draw(st.booleans()),
+        wall_steps=steps,
         seed=draw(st.integers(0, 1000)),
     )
     return device, link
