@@ -103,3 +103,23 @@ def test_live_review_full_recovery_and_recal_agree(tmp_path: Path, rate: float) 
     pd.testing.assert_frame_equal(_events(run), events)
     assert _figures(run) == pytest.approx(live, rel=1e-9)
     assert _figures(run, full=True) == pytest.approx(live, rel=1e-9)
+
+
+def test_a_zero_made_while_running_is_replayed_by_recal_at_its_sample(tmp_path: Path) -> None:
+    """A tare asked for while recording takes effect from a sample; recal and recovery apply it at the same
+    sample, so their values, figures and events are the live ones (common practice, no source)."""
+    rig = load_rig(_rig_with_profile(tmp_path))
+    source, _ = make_source(_device(1000.0), Link(read_s=0.002, seed=6))
+    pipeline = Pipeline(source, rig, Settings(record_root=tmp_path / "runs"))
+    pipeline.zero("out_a")  # taken by the ingest thread with the first batch it processes
+    pipeline.start()
+    assert pipeline.wait(120) and pipeline.error is None, pipeline.error
+    (run,) = (tmp_path / "runs").iterdir()
+    (change,) = pipeline.calibration_changes
+    assert change["change"] == "zero" and change["device_us"] > 0
+    before = pd.read_parquet(run, columns=["out_v", "out_a"])
+    assert abs(float(before["out_a"].iloc[:40].mean())) < 0.01  # the tare took the constant current to 0 A
+    live = _figures(run)
+    recalibrate(run, [rig.channel("out_v").profile])
+    pd.testing.assert_frame_equal(pd.read_parquet(run, columns=["out_v", "out_a"]), before)
+    assert _figures(run) == pytest.approx(live, rel=1e-12)

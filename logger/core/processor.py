@@ -64,9 +64,13 @@ class Change:
         return out
 
     @staticmethod
-    def from_dict(doc: dict[str, Any]) -> Change:
-        return Change(int(doc.get("device_us", -(2**62))), str(doc.get("utc", "")), str(doc["channel"]),
-                      str(doc["change"]), doc.get("counts"), doc.get("profile"))
+    def from_dict(doc: dict[str, Any]) -> Change | None:
+        """The change as ``_run.json`` keeps it; None for one recorded without the sample it took effect from
+        (runs recorded before that was kept), which cannot be placed."""
+        if not isinstance(doc.get("device_us"), int):
+            return None
+        return Change(doc["device_us"], str(doc.get("utc", "")), str(doc["channel"]), str(doc["change"]),
+                      doc.get("counts"), doc.get("profile"))
 
 
 @dataclass
@@ -182,7 +186,7 @@ class Processor:
         if change.change == "zero" and change.counts is not None:
             self.calibrator.zero(k, np.array([change.counts]))
         elif change.change == "profile" and change.profile is not None:
-            self.calibrator.use(k, _profile(change.profile))
+            self.calibrator.use(k, profile_from_dict(change.profile))
             events = self._watch_spans()
         self.applied.append(change)
         return events
@@ -242,7 +246,3 @@ class Processor:
             events.append(Event("device_reset", int(utc[row]), detail="device restarted; its counters began again",
                                 device_start_us=int(t[row])))
         return events
-
-
-def _profile(doc: dict[str, Any]) -> Profile:
-    return profile_from_dict(doc)

@@ -55,8 +55,9 @@ def run_processor(meta: dict[str, Any], names: list[str], profiles: list[Profile
         raise StoreError(f"the run's _run.json cannot say how it was calibrated ({exc}); "
                          "cannot process it again") from None
     replaced = {p.channel for p in profiles}
-    changes = [Change.from_dict(c) for c in meta.get("calibration_changes", [])
-               if isinstance(c, dict) and not (c.get("change") == "profile" and c.get("channel") in replaced)]
+    kept = [Change.from_dict(c) for c in meta.get("calibration_changes", [])
+            if isinstance(c, dict) and not (c.get("change") == "profile" and c.get("channel") in replaced)]
+    changes = [c for c in kept if c is not None]
     return Processor(rig, calibrator, gap_s=gap_us(meta) / 1e6, changes=changes)
 
 

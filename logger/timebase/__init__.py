@@ -28,11 +28,8 @@ class Stamped:
     device_us: np.ndarray
     utc_us: np.ndarray
     segment: np.ndarray
+    """Boot segment of each row: where it steps, the device restarted."""
     counts: np.ndarray
-    gaps: tuple[tuple[int, int], ...] = ()
-    """(row, frames lost just before it) inside a segment."""
-    resets: tuple[int, ...] = ()
-    """Rows that start a new boot segment."""
 
     def __len__(self) -> int:
         return len(self.seq)
@@ -96,7 +93,7 @@ class TimeBase:
 
     def _stamp(self, u: Unwrapped, counts: np.ndarray) -> Stamped:
         return Stamped(seq=u.seq, device_us=u.device_us, utc_us=self.labels.label(u.device_us), segment=u.segment,
-                       counts=counts, gaps=u.gaps, resets=u.resets)
+                       counts=counts)
 
     def finish(self) -> None:
         """The stream has ended: a frame held for judgement is rejected."""
@@ -108,6 +105,3 @@ class TimeBase:
         new = self.labels.steps[self._steps_seen :]
         self._steps_seen = len(self.labels.steps)
         return [ClockStep(d, int(self.labels.label_of(d)), s) for d, s in new]
-
-    def label_of(self, device_us: int) -> int:
-        return int(self.labels.label_of(device_us))
