@@ -13,7 +13,6 @@ import contextlib
 import queue
 import threading
 import time
-from collections import deque
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -92,7 +91,8 @@ class Pipeline:
         self.message = f"opening {source.name}"
         self.error: str | None = None
         self.stop_reason = "stopped by user"
-        self.answers: deque[Answer] = deque(maxlen=20)
+        self.answers: tuple[Answer, ...] = ()
+        """The device's latest answers to host commands, oldest first (a new tuple each time: safe to read)."""
         self.reconnects = 0
         self.unheaded = 0
         """Frames dropped because no header came to say how to read them."""
@@ -317,7 +317,7 @@ class Pipeline:
             elif isinstance(item, DeviceHeader):
                 self._on_header(item)
             else:
-                self.answers.append(item)
+                self.answers = (*self.answers[-19:], item)
         self._rate.mark(self.decoder.counters.frames)
         self._flow.frames_so_far(self.decoder.counters.frames)
         if self._last_utc_us is not None:
