@@ -53,20 +53,29 @@ class SlidingMean:
         x = np.asarray(x, dtype=np.float64)
         if self.window_us == 0 or len(x) == 0:
             return x
+        before = int(self._t[-1]) if len(self._t) else int(t_us[0]) - self.window_us
+        step = np.diff(t_us, prepend=before)
+        if (self.window_us <= step + step // 2).all():  # no window reaches the sample before: each its own mean
+            self._carry(t_us, x)
+            return x
         jt, jx = np.r_[self._t, t_us], np.r_[self._x, x]
         m = len(self._t)
         mine = np.arange(m, len(jt))
-        step = np.diff(jt, prepend=jt[0] - self.window_us)[m:]
-        cutoff = np.minimum(jt[m:] - self.window_us + step // 2, jt[m:] - 1)  # a sample is always its own window
-        left = np.searchsorted(jt, cutoff, side="right")
-        width = mine + 1 - left
+        cutoff = np.minimum(t_us - self.window_us + step // 2, t_us - 1)  # a sample is always its own window
+        width = mine + 1 - np.searchsorted(jt, cutoff, side="right")
         out = np.empty(len(x))
         for w in np.unique(width):
             rows = np.flatnonzero(width == w)
             out[rows] = np.lib.stride_tricks.sliding_window_view(jx, int(w))[mine[rows] - w + 1].sum(axis=1) / w
-        keep = max(len(jt) - self.MAX_TAIL, int(np.searchsorted(jt, jt[-1] - self.window_us, side="left")) - 1, 0)
-        self._t, self._x = jt[keep:], jx[keep:]
+        self._carry(t_us, x)
         return out
+
+    def _carry(self, t_us: np.ndarray, x: np.ndarray) -> None:
+        """Keep the samples a later window may reach: those within ``window_us`` of the last, and one more."""
+        if t_us[-1] - t_us[0] <= self.window_us:  # a short batch: the older samples may still be needed
+            t_us, x = np.r_[self._t, t_us], np.r_[self._x, x]
+        keep = max(int(np.searchsorted(t_us, t_us[-1] - self.window_us, side="left")) - 1, len(t_us) - self.MAX_TAIL, 0)
+        self._t, self._x = t_us[keep:], x[keep:]
 
 
 class Comparator:

@@ -29,7 +29,7 @@ def stream(seconds: float, rate_hz: float = 1000.0) -> tuple[np.ndarray, np.ndar
 
 
 def run(utc: np.ndarray, values: np.ndarray, batch: int) -> tuple[float, int]:
-    detector = EventDetector(simple_rig(), 1000.0)
+    detector = EventDetector(simple_rig())
     events = 0
     t0 = time.perf_counter()
     for i in range(0, len(utc), batch):

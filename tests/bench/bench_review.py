@@ -58,7 +58,8 @@ def make_run(root: Path, hours: float) -> Path:
         ac = np.clip(np.rint(amps / LSB_A + rng.normal(0, 1.0, len(t))), 0, 4095).astype(np.uint16)
         utc = t0 + n * 1000
         writer.append(pa.record_batch([
-            pa.array(utc, pa.int64()).cast(UTC_TYPE), pa.array(n, pa.int64()), pa.array(n % 65536, pa.int64()),
+            pa.array(utc, pa.int64()).cast(UTC_TYPE), pa.array(utc - t0, pa.int64()), pa.array(n, pa.int64()),
+            pa.array(np.zeros(len(n), np.int32)),
             pa.array((vc * LSB_V).astype(np.float32)), pa.array(vc),
             pa.array((ac * LSB_A).astype(np.float32)), pa.array(ac),
         ], schema=schema))
