@@ -119,3 +119,14 @@ def test_a_restart_is_never_integrated_across_however_short(tmp_path: Path) -> N
     assert sum(table["out_a_int"]) == pytest.approx(_integral(utc, amps.astype(np.float64), cuts), rel=1e-12)
     # every 1 ms step, less the restart and the gap, plus the 10 ms bridged
     assert sum(table["covered_s"]) == pytest.approx((n - 1) * 1e-3 - 2e-3 + 0.010, rel=1e-12)
+
+
+def test_a_part_recorded_before_segments_were_kept_still_rolls_up(tmp_path: Path) -> None:
+    """Format 1 parts have no ``segment`` column: every row counts as the first boot segment."""
+    utc, volts, amps = _signal(4, 5.0, 1000.0)
+    new = _part(tmp_path / "new.parquet", utc, volts, amps)
+    old = tmp_path / "old.parquet"
+    pq.write_table(pq.read_table(new).drop_columns(["segment"]), old)
+    pairs = [Pair("out", "out_v", "out_a")]
+    a, b = rollup_part(new, pairs), rollup_part(old, pairs)
+    assert a.equals(b)
