@@ -17,11 +17,9 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
-import numpy as np
-
-from logger.cal.apply import Calibrator, stand_in_header
+from logger.cal.apply import stand_in_header
 from logger.cal.profile import Profile
-from logger.core import GAP_S, Block, Processor
+from logger.core import GAP_S, Processor
 from logger.events import Event
 from logger.events.link import LinkWatch
 from logger.events.log import EventLog
@@ -30,19 +28,16 @@ from logger.ingest.flow import FlowWatch
 from logger.ingest.recorder import Recorder
 from logger.ingest.runs import Runs
 from logger.ingest.state import RateMeter, Ring, Snapshot
+from logger.ingest.stream import Processed, SampleStream
 from logger.rig import Rig, RigError
 from logger.sources.base import Chunk, LinkLost, Source, SourceError
 from logger.store import sample_batch, sample_schema
-from logger.store.files import utc_text
-from logger.timebase import Stamped, TimeBase
+from logger.timebase import TimeBase
 from logger.wire import Answer, Decoder, DeviceHeader, FrameBatch, encode_line
 
 ASK_HEADER = encode_line("?H")
-MAX_PENDING_FRAMES = 1 << 20
 PUBLISH_S = 0.1
 """How often the ingest thread publishes a new snapshot (screens poll about ten times a second)."""
-ZERO_MOMENT_S = 0.05
-"""A zero takes the mean of the readings of the moment it was asked for: 50 ms of them."""
 
 
 @dataclass(frozen=True)
@@ -79,14 +74,9 @@ class Pipeline:
         self.rig = rig
         self.settings = s = settings or Settings()
         self.decoder = Decoder()
-        self.timebase: TimeBase | None = None
-        """Made at the first header (it needs the rate); the one owner of the run's time."""
-        self.header: DeviceHeader | None = None
-        self.processor: Processor | None = None
-        """Made at the first header; calibrates, detects and accumulates (the same core offline paths use)."""
-        self.ring: Ring | None = None
-        self.counts_ring: Ring | None = None
-        """The same recent rows as raw counts (the rig's channels, its order): what calibration averages."""
+        self.events = EventLog()
+        self.stream = SampleStream(rig, self.events, gap_s=s.gap_s, duration_s=s.duration_s,
+                                   live_seconds=s.live_seconds, start_utc=s.start_utc)
         self.state = "waiting"
         self.message = f"opening {source.name}"
         self.error: str | None = None
@@ -94,11 +84,8 @@ class Pipeline:
         self.answers: tuple[Answer, ...] = ()
         """The device's latest answers to host commands, oldest first (a new tuple each time: safe to read)."""
         self.reconnects = 0
-        self.unheaded = 0
-        """Frames dropped because no header came to say how to read them."""
         self.down_since: float | None = None
         """When the link was lost (UTC seconds), while reconnecting."""
-        self.events = EventLog()
         self._names = tuple(ch.name for ch in rig.channels)
         self._schema = sample_schema(self._names)
         self.runs = Runs(s.record_root or Path("."), s.label, rig, self._schema, source.name, gap_s=s.gap_s,
@@ -107,10 +94,7 @@ class Pipeline:
         self._rate = RateMeter()
         self._flow = FlowWatch(source.name)
         self._commands: queue.SimpleQueue[tuple[str, Any]] = queue.SimpleQueue()
-        self._for_next_block: list[tuple[str, Any]] = []
         self._record_wanted: bool | None = None
-        self._pending: list[tuple[FrameBatch, float, float]] = []
-        self._pending_frames = 0
         self._pending_raw: list[Chunk] = []
         self._held: list[bytes] = []
         self._held_bytes = 0
@@ -118,9 +102,6 @@ class Pipeline:
         self._held_since = float("nan")
         self._fed_at = 0.0
         self._published_at = 0.0
-        self._first_us: int | None = None
-        self._last_us: int | None = None
-        self._last_utc_us: int | None = None
         self._snapshot: Snapshot | None = None
         self._stop = threading.Event()
         self._done = threading.Event()
@@ -221,7 +202,28 @@ class Pipeline:
     @property
     def calibration_changes(self) -> list[dict[str, Any]]:
         """Zeros and profiles applied while running, oldest first; every run sealed afterwards records them."""
-        return [c.as_dict() for c in self.processor.applied] if self.processor is not None else []
+        return self.stream.calibration_changes()
+
+    @property
+    def header(self) -> DeviceHeader | None:
+        return self.stream.header
+
+    @property
+    def timebase(self) -> TimeBase | None:
+        return self.stream.timebase
+
+    @property
+    def processor(self) -> Processor | None:
+        return self.stream.processor
+
+    @property
+    def ring(self) -> Ring | None:
+        return self.stream.ring
+
+    @property
+    def counts_ring(self) -> Ring | None:
+        """The same recent rows as raw counts (the rig's channels, its order): what calibration averages."""
+        return self.stream.counts_ring
 
     # -- the ingest thread -------------------------------------------------------------------------------
 
@@ -278,11 +280,11 @@ class Pipeline:
             if what == "record":
                 self._switch_recording(arg)
             elif what == "mark":
-                self.events.add(Event("mark", self._now_us(), detail=arg, device_start_us=self._last_us))
+                self.events.add(Event("mark", self._now_us(), detail=arg, device_start_us=self.stream.last_us))
             elif what == "send":
                 self._send(arg)
             else:
-                self._for_next_block.append((what, arg))
+                self.stream.ask(what, arg)
 
     def _take(self, chunk: Chunk) -> None:
         """Hold a read until enough has come to decode as one batch (reads at low rates are tiny). A batch
@@ -310,124 +312,39 @@ class Pipeline:
         self._held, self._held_bytes = [], 0
         for item in self.decoder.feed(data):
             if isinstance(item, FrameBatch):
-                if self.timebase is None:
-                    self._hold_until_header(item, arrival, offset)
+                if self.header is None:
+                    self.stream.hold(item, arrival, offset)
                 else:
-                    self._emit(item, arrival, offset)
+                    self._record(self.stream.emit(item, arrival, offset))
             elif isinstance(item, DeviceHeader):
                 self._on_header(item)
             else:
                 self.answers = (*self.answers[-19:], item)
         self._rate.mark(self.decoder.counters.frames)
         self._flow.frames_so_far(self.decoder.counters.frames)
-        if self._last_utc_us is not None:
-            self._note(self._link.rejects(self.decoder.counters.rejected, self._last_utc_us))
-
-    def _hold_until_header(self, batch: FrameBatch, arrival: float, offset: float) -> None:
-        """Keep frames that came before the first header (they need its ADC bits and reference); past
-        ``MAX_PENDING_FRAMES`` the oldest go, counted, so a device that never sends one cannot fill memory."""
-        self._pending.append((batch, arrival, offset))
-        self._pending_frames += len(batch)
-        while self._pending_frames > MAX_PENDING_FRAMES and len(self._pending) > 1:
-            dropped, _, _ = self._pending.pop(0)
-            self._pending_frames -= len(dropped)
-            self.unheaded += len(dropped)
+        if self.stream.last_utc_us is not None:
+            self._note(self._link.rejects(self.decoder.counters.rejected, self.stream.last_utc_us))
 
     def _on_header(self, header: DeviceHeader) -> None:
-        first = self.header is None
-        if first:
-            start = self.settings.start_utc
-            self.timebase = TimeBase(header, time.time() if start is None else start)
-            self.processor = Processor(self.rig, Calibrator(self.rig, header), gap_s=self.settings.gap_s)
-        elif _format(header) != _format(self.header):
-            self._note(self.processor.set_calibrator(Calibrator(self.rig, header)))
-        self.timebase.on_header(header, first)
-        self.header = header
-        if first:
-            self._begin(header)
-
-    def _begin(self, header: DeviceHeader) -> None:
-        """First header: size the live rings, open the run folder, then flush what waited for the header."""
-        capacity = max(1024, int(self.settings.live_seconds * header.rate_hz))
-        self.ring = Ring(capacity, len(self._names))
-        self.counts_ring = Ring(capacity, len(self._names))
+        if not self.stream.on_header(header):
+            return
         if self.settings.record_root is not None and self.settings.record_at_start:
             self._open_run(from_first_byte=True)
         self.state, self.message = "running", f"receiving from {self.source.name}"
-        pending, self._pending, self._pending_frames = self._pending, [], 0
-        for batch, arrival, offset in pending:
-            self._emit(batch, arrival, offset)
+        for processed in self.stream.flush():
+            self._record(processed)
 
-    def _emit(self, batch: FrameBatch, arrival: float, offset: float) -> None:
-        """Put one batch on the run's time axis and hand on what it keeps."""
-        if self._duration_reached():
+    def _record(self, processed: Processed | None) -> None:
+        """Hand a processed batch to the run being recorded, if any."""
+        if processed is None or self.recorder is None:
             return
-        stamped = self.timebase.feed(batch, arrival, offset)
-        for step in self.timebase.clock_steps():
-            self._note([Event("clock_step", step.utc_us, value=step.step_s, device_start_us=step.device_us,
-                              detail=f"the host's wall clock stepped by {step.step_s:+.3f} s; labels slew to it, "
-                                     "durations are measured on the device clock")])
-        if len(stamped) == 0:
-            return
-        if self._first_us is None:
-            self._first_us = int(stamped.device_us[0])
-        self._process(stamped)
-
-    def _process(self, s: Stamped) -> None:
-        within = self._within_duration(s.device_us)
-        if within.stop == 0:  # all past the end of --duration
-            return
-        block = Block(s.device_us[within], s.utc_us[within], s.seq[within], s.segment[within],
-                      self.processor.calibrator.select(s.counts[within]))
-        self._apply_asked(block)
-        out = self.processor.feed(block)
-        self._note(out.events)
-        self.ring.extend(block.utc_us, out.values)
-        self.counts_ring.extend(block.utc_us, block.counts)
-        self._last_us = int(block.device_us[-1])
-        self._last_utc_us = int(block.utc_us[-1])
-        if self.recorder is not None:
-            self.recorder.add_batch(sample_batch(self._schema, block.utc_us, block.device_us, block.seq,
-                                                 block.segment, out.values, block.counts))
-
-    def _apply_asked(self, block: Block) -> None:
-        """Zeros, profiles and resets asked for since the last batch, applied from this batch's first sample."""
-        asked, self._for_next_block = self._for_next_block, []
-        when = utc_text(int(block.utc_us[0]))
-        at = {"device_start_us": int(block.device_us[0])}
-        for what, arg in asked:
-            if what == "reset":
-                self.processor.reset_figures()
-            elif what == "zero":
-                moment = max(1, round(ZERO_MOMENT_S * 1e6 / self.timebase.period_us))
-                change = self.processor.zero(arg, block, moment, when)
-                note = f"zeroed {arg}: {change.counts:.1f} counts taken as 0 {self.rig.channel(arg).unit}"
-                self.events.add(Event("mark", int(block.utc_us[0]), channel=arg, value=change.counts, detail=note,
-                                      **at))
-            elif what == "profile":
-                name, profile = arg
-                try:
-                    _, closed = self.processor.use_profile(name, profile, block, when)
-                except RigError as exc:
-                    self.message = str(exc)
-                    continue
-                self._note(closed)
-                self.events.add(Event("mark", int(block.utc_us[0]), channel=name, **at,
-                                      detail=f"calibration applied: {profile.model}, {len(profile.points)} points"))
-
-    def _within_duration(self, device_us: np.ndarray) -> slice:
-        """Rows up to the end of ``--duration`` (measured on the device clock from the first sample)."""
-        if self.settings.duration_s is None:
-            return slice(None)
-        end_us = self._first_us + round(self.settings.duration_s * 1e6)
-        return slice(0, np.searchsorted(device_us, end_us, side="left"))
+        b = processed.block
+        self.recorder.add_batch(sample_batch(self._schema, b.utc_us, b.device_us, b.seq, b.segment, processed.values,
+                                             b.counts))
 
     def _duration_reached(self) -> bool:
-        limit = self.settings.duration_s
-        if limit is None or self._first_us is None or self._last_us is None:
-            return False
-        if self._last_us - self._first_us >= round(limit * 1e6) - self.timebase.period_us:
-            self.stop_reason = f"duration of {limit:g} s reached"
+        if self.stream.duration_reached():
+            self.stop_reason = f"duration of {self.settings.duration_s:g} s reached"
             return True
         return False
 
@@ -437,7 +354,8 @@ class Pipeline:
 
     def _now_us(self) -> int:
         """The time of the newest sample, else the host clock."""
-        return self._last_utc_us if self._last_utc_us is not None else int(time.time() * 1e6)
+        last = self.stream.last_utc_us
+        return last if last is not None else int(time.time() * 1e6)
 
     # -- the link and the run folders --------------------------------------------------------------------
 
@@ -463,7 +381,7 @@ class Pipeline:
             back = time.time()
             # Anchored at the last sample's time (the data's own clock, which a replay or a fast simulation
             # runs ahead of the wall clock), lasting as long as the wall clock says the outage did.
-            start_us = self._last_utc_us if self._last_utc_us is not None else int(lost_at * 1e6)
+            start_us = self.stream.last_utc_us if self.stream.last_utc_us is not None else int(lost_at * 1e6)
             self.events.add(Event("link_lost", start_us, start_us + int((back - lost_at) * 1e6), detail=why))
             self._send(ASK_HEADER)
             self.state, self.message = "running", f"reconnected to {self.source.name} after {back - lost_at:.1f} s"
@@ -511,7 +429,8 @@ class Pipeline:
                 self._send(ASK_HEADER)
             waited = self._flow.waited_s()
             if waited >= self.settings.header_wait_s:
-                fallback = stand_in_header(self.rig, self._pending[-1][0]) if self._pending else None
+                pending = self.stream.last_pending
+                fallback = stand_in_header(self.rig, pending) if pending is not None else None
                 if fallback is not None:
                     self._on_header(fallback)
                     return
@@ -525,6 +444,8 @@ class Pipeline:
             self.state, self.message = verdict
         if self.runs.failed:
             self.message, self.runs.failed = self.runs.failed, None
+        if self.stream.notice:
+            self.message, self.stream.notice = self.stream.notice, None
 
     def _send(self, line: bytes) -> None:
         with contextlib.suppress(SourceError):  # a lost link shows up on the next read
@@ -542,10 +463,7 @@ class Pipeline:
                 f"{self.decoder.counters.frames} frames arrived but never a header line, so nothing could be "
                 "recorded: check the firmware, or set device.adc_bits and device.vref_mv in the rig file"
             )
-        if self.timebase is not None:
-            self.timebase.finish()
-        if self.processor is not None:
-            self._note(self.processor.finish())
+        self.stream.finish()
         extra = self._run_account(self.recorder) if self.recorder is not None else {}
         error = self.runs.finish(self.stop_reason, extra)
         if error and not self.error:
@@ -577,8 +495,3 @@ class Pipeline:
             charge_ah=core.charge_ah if core else (),
             energy_wh=core.energy_wh if core else (),
         )
-
-
-def _format(header: DeviceHeader) -> tuple[Any, ...]:
-    """What a header says about how to read the frames after it: the inputs, bits and reference."""
-    return header.channels, header.adc_bits, header.vref_mv

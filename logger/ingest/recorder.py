@@ -8,6 +8,7 @@ store's one-line message; whatever reached the journal stays there for ``railtap
 from __future__ import annotations
 
 import contextlib
+import os
 import queue
 import threading
 import time
@@ -77,11 +78,10 @@ class Recorder:
 
     def state(self) -> RecordingState:
         """Where the run is going and how far it has got, for screens."""
-        files = [p for p in self.folder.glob("*") if p.is_file()] if self.folder.exists() else []
         return RecordingState(
             folder=str(self.folder),
             rows=self.rows,
-            bytes_on_disk=sum(p.stat().st_size for p in files),
+            bytes_on_disk=_bytes_in(self.folder),
             elapsed_s=time.monotonic() - self.started,
             journal_lag_rows=self.rows - self.durable_rows,
             error=self.error,
@@ -150,6 +150,17 @@ class Recorder:
                     break
             except queue.Empty:
                 break
+
+
+def _bytes_in(folder: Path) -> int:
+    """What the run's files take on disk now; a file sealed or renamed away meanwhile is simply not counted."""
+    total = 0
+    with contextlib.suppress(FileNotFoundError):
+        for entry in os.scandir(folder):
+            with contextlib.suppress(FileNotFoundError):
+                if entry.is_file():
+                    total += entry.stat().st_size
+    return total
 
 
 def run_metadata(rig: Rig, header: DeviceHeader, source: str, gap_s: float) -> dict[str, Any]:

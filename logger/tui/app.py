@@ -14,7 +14,7 @@ import threading
 import time
 from typing import ClassVar
 
-from textual import work
+from textual import events, work
 from textual.app import App, ComposeResult
 from textual.binding import Binding, BindingType
 from textual.containers import Horizontal, Vertical
@@ -229,6 +229,13 @@ class RailtapApp(App[str]):
 
     def on_run_sealed(self, message: RunSealed) -> None:
         self.exit(message.summary)
+
+    def _on_key(self, event: events.Key) -> None:
+        """Runs before Textual's own key handling (handlers run down the class tree) and skips it once no screen
+        is left: a key still on its way up to the app when the run is sealed and the app exits would otherwise
+        raise (seen on a loaded machine)."""
+        if not self.screen_stack:
+            event.prevent_default()
 
 
 def run_screen(pipeline: Pipeline, grace_s: float = 5.0) -> str | None:
