@@ -423,6 +423,7 @@ def _record(source: Source, rig: Rig, args: argparse.Namespace, screen: bool = F
         print(f"railtap record: {rig.name} from {source.name} into {args.out}/; Ctrl-C stops and seals the run",
               file=sys.stderr)
     _on_signals(lambda: pipeline.request_stop("stopped by signal"))
+    failure = None
     try:
         if screen:
             from logger.tui import run_screen
@@ -432,10 +433,17 @@ def _record(source: Source, rig: Rig, args: argparse.Namespace, screen: bool = F
             print_status(pipeline, args.quiet)
     except KeyboardInterrupt:
         pipeline.request_stop("stopped by user")
+    except Exception as exc:  # the screen or the status log broke: the run is sealed and says so, never "by user"
+        failure = f"the {'screen' if screen else 'status log'} stopped: {type(exc).__name__}: {exc}"
+        pipeline.request_stop(f"failed: {failure}")
     finally:
         pipeline.request_stop(pipeline.stop_reason)
         _wait_for_seal(pipeline)
-    return report(pipeline)
+    code = report(pipeline)
+    if failure is not None:
+        print(f"railtap: {failure}; the run is sealed (please report this)", file=sys.stderr)
+        return 1
+    return code
 
 
 def _start_time(args: argparse.Namespace) -> dict[str, Any]:

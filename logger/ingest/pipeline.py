@@ -13,6 +13,7 @@ import contextlib
 import queue
 import threading
 import time
+import traceback
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -75,12 +76,14 @@ class Pipeline:
         self.settings = s = settings or Settings()
         self.decoder = Decoder()
         self.events = EventLog()
-        self.stream = SampleStream(rig, self.events, gap_s=s.gap_s, duration_s=s.duration_s,
+        self.stream = SampleStream(rig, self._note, gap_s=s.gap_s, duration_s=s.duration_s,
                                    live_seconds=s.live_seconds, start_utc=s.start_utc)
         self.state = "waiting"
         self.message = f"opening {source.name}"
         self.error: str | None = None
         self.stop_reason = "stopped by user"
+        self.crash: str | None = None
+        """The traceback of an unexpected error in the ingest thread, for ``_run.json``."""
         self.answers: tuple[Answer, ...] = ()
         """The device's latest answers to host commands, oldest first (a new tuple each time: safe to read)."""
         self.reconnects = 0
@@ -238,9 +241,10 @@ class Pipeline:
             self._drain()
         except (RigError, SourceError) as exc:
             self._fail(str(exc))
-        except Exception as exc:  # a bug: still seal what was recorded, and say so in one line
-            self._fail(f"internal error, please report it: {type(exc).__name__}: {exc}")
-            raise
+        except Exception as exc:  # a bug: still seal what was recorded, say so in one line, keep the details
+            self.crash = traceback.format_exc()
+            self._fail(f"internal error, please report it: {type(exc).__name__}: {exc} (the traceback is kept "
+                       "in the run's _run.json, under crash)")
         finally:
             try:
                 self._finish()
@@ -419,6 +423,8 @@ class Pipeline:
         }
         if self.calibration_changes:
             extra["calibration_changes"] = self.calibration_changes
+        if self.crash:
+            extra["crash"] = self.crash
         return extra
 
     def _watch(self) -> None:

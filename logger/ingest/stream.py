@@ -9,6 +9,7 @@ stops at ``--duration`` of device time. Everything here runs on the ingest threa
 from __future__ import annotations
 
 import time
+from collections.abc import Callable
 from dataclasses import dataclass
 from typing import Any
 
@@ -17,7 +18,6 @@ import numpy as np
 from logger.cal.apply import Calibrator
 from logger.core import Block, Processor
 from logger.events import Event
-from logger.events.log import EventLog
 from logger.ingest.state import Ring
 from logger.rig import Rig, RigError
 from logger.store.files import utc_text
@@ -42,17 +42,17 @@ class SampleStream:
 
     Args:
         rig: what each input measures.
-        events: where events go (the pipeline's log).
+        note: where events go (the pipeline hands them to its log).
         gap_s: the gap rule's limit.
         duration_s: stop after this much device time from the first sample (None: never).
         live_seconds: how much the live rings hold.
         start_utc: the first label when the source gives no arrival times (None: the host's clock then).
     """
 
-    def __init__(self, rig: Rig, events: EventLog, *, gap_s: float, duration_s: float | None, live_seconds: float,
-                 start_utc: float | None) -> None:
+    def __init__(self, rig: Rig, note: Callable[[list[Event]], None], *, gap_s: float, duration_s: float | None,
+                 live_seconds: float, start_utc: float | None) -> None:
         self.rig = rig
-        self.events = events
+        self._note = note
         self.gap_s, self.duration_s, self.live_seconds, self.start_utc = gap_s, duration_s, live_seconds, start_utc
         self.header: DeviceHeader | None = None
         self.timebase: TimeBase | None = None
@@ -153,8 +153,8 @@ class SampleStream:
                 moment = max(1, round(ZERO_MOMENT_S * 1e6 / self.timebase.period_us))
                 change = self.processor.zero(arg, block, moment, when)
                 note = f"zeroed {arg}: {change.counts:.1f} counts taken as 0 {self.rig.channel(arg).unit}"
-                self.events.add(Event("mark", int(block.utc_us[0]), channel=arg, value=change.counts, detail=note,
-                                      **at))
+                self._note([Event("mark", int(block.utc_us[0]), channel=arg, value=change.counts, detail=note,
+                                      **at)])
             elif what == "profile":
                 name, profile = arg
                 try:
@@ -163,8 +163,8 @@ class SampleStream:
                     self.notice = str(exc)
                     continue
                 self._note(closed)
-                self.events.add(Event("mark", int(block.utc_us[0]), channel=name, **at,
-                                      detail=f"calibration applied: {profile.model}, {len(profile.points)} points"))
+                self._note([Event("mark", int(block.utc_us[0]), channel=name, **at,
+                                      detail=f"calibration applied: {profile.model}, {len(profile.points)} points")])
 
     def _within_duration(self, device_us: np.ndarray) -> slice:
         """Rows up to the end of ``--duration`` (measured on the device clock from the first sample)."""
@@ -188,10 +188,6 @@ class SampleStream:
     def calibration_changes(self) -> list[dict[str, Any]]:
         """Zeros and profiles applied while running, oldest first."""
         return [c.as_dict() for c in self.processor.applied] if self.processor is not None else []
-
-    def _note(self, events: list[Event]) -> None:
-        for event in events:
-            self.events.add(event)
 
 
 def _format(header: DeviceHeader) -> tuple[Any, ...]:
