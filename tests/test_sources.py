@@ -259,3 +259,33 @@ def test_sim_source_unplug_and_reconnect() -> None:
     assert isinstance(items[0], DeviceHeader) and items[0].reason == "boot"
     assert items[1].seq[0] == 0
     assert chunk.host_time > 4.15
+
+
+def test_a_port_is_recorded_by_one_process_at_a_time() -> None:
+    """The second opener of a device path gets one line saying it is busy, and the first keeps the stream."""
+    import os
+    import tty
+
+    from logger.sources.base import SourceError
+    from logger.sources.serial_port import SerialSource
+
+    master, slave = os.openpty()
+    tty.setraw(slave)
+    first, second = SerialSource(os.ttyname(slave)), SerialSource(os.ttyname(slave))
+    try:
+        first.open()
+        with pytest.raises(SourceError, match="port is busy; another program has it open"):
+            second.open()
+        os.write(master, b"D 0000*0000\n")
+        got = b""
+        for _ in range(50):  # reads return within their 0.1 s timeout
+            chunk = first.read()
+            got += chunk.data
+            if got:
+                break
+        assert got.startswith(b"D 0000")
+    finally:
+        first.close()
+        second.close()
+        os.close(master)
+        os.close(slave)

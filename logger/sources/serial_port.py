@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import contextlib
 import errno
+import os
 import time
 
 import serial
@@ -50,8 +51,12 @@ class SerialSource:
         """Open the port (closing any earlier handle first); raises :class:`SourceError`."""
         self.close()
         try:
+            # A device path is opened exclusively, so a second recorder on the same port is refused at once
+            # instead of splitting the stream with the first (pyserial's ``exclusive``: an advisory lock on POSIX).
+            local = "://" not in self.url
             self._ser = serial.serial_for_url(
-                self.url, baudrate=self.baud, timeout=READ_TIMEOUT_S, write_timeout=WRITE_TIMEOUT_S
+                self.url, baudrate=self.baud, timeout=READ_TIMEOUT_S, write_timeout=WRITE_TIMEOUT_S,
+                **({"exclusive": True} if local and os.name == "posix" else {}),
             )
         except ValueError as exc:
             raise SourceError(f"{self.url}: not a usable port name or URL ({exc})") from None
@@ -105,7 +110,8 @@ def open_failure(url: str, exc: BaseException) -> str:
         return f"{url}: no such port; check the cable, or run `railtap ports` to see the ports there are"
     # Windows reports a port held by another program as "access is denied".
     if code in _BUSY or "exclusively lock" in text or "access is denied" in text:
-        return f"{url}: port is busy; another program has it open (close the serial monitor or other logger)"
+        return (f"{url}: port is busy; another program has it open (another railtap recording it, a serial "
+                "monitor, a logger): close that one first")
     if code == errno.EACCES or "permission" in text:
         return (
             f"{url}: permission denied; add yourself to the group that owns the device "
