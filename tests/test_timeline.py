@@ -615,3 +615,23 @@ def test_any_link_and_script_keeps_the_timeline(tmp_path_factory: pytest.TempPat
     check_rail_events(run, stream.truth)
     check_stamps(run.samples, link)
     check_counts(run.samples, stream.truth)
+
+
+def test_hostile_headers_and_lines_of_the_wrong_width_are_refused_and_the_run_goes_on(tmp_path: Path) -> None:
+    """A header with a good CRC but rate_hz=1e308 is refused with its reason (it would have sized buffers from
+    it); data lines narrower than the header's channels are counted and not recorded; the rest is recorded."""
+    from devicestream import Arrival, RailTap
+
+    tap = RailTap()
+    volts, amps = int(tap.volts_counts(12.0)), int(tap.amps_counts(1.0))
+    hostile = header_line(tap.channels, tap.bits, tap.vref_mv, 1e308, "boot")
+    lines = [b"\n", header_line(tap.channels, tap.bits, tap.vref_mv, 1000.0, "boot"), hostile]
+    lines += [data_line(k, 1_000 * k, (volts, amps)) for k in range(1000)]
+    lines += [data_line(k, 1_000 * k, (volts,)) for k in range(1000, 1100)]  # one count each: the wrong width
+    lines += [data_line(k, 1_000 * k, (volts, amps)) for k in range(1100, 2000)]
+    arrivals = [Arrival(5000.0 + 0.1 * (i + 1), 1_800_000_000.0 - 5000.0, b"".join(lines[i * 100 : (i + 1) * 100]))
+                for i in range((len(lines) + 99) // 100)]
+    run = record(ScriptedSource(arrivals, answer=None), tmp_path)
+    assert len(run.samples) == 1900 and run.pipeline.stream.wrong_width == 100
+    assert run.pipeline.header.rate_hz == 1000.0 and run.pipeline.decoder.counters.malformed == 1
+    assert run.meta["link"]["lost"] == 100  # the sequence says they were sent; none of them was recorded

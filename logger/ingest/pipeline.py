@@ -452,6 +452,8 @@ class Pipeline:
             self.message, self.runs.failed = self.runs.failed, None
         if self.stream.notice:
             self.message, self.stream.notice = self.stream.notice, None
+        if self.decoder.refused:
+            self.message, self.decoder.refused = f"{self.decoder.refused}; it was not used", None
 
     def _send(self, line: bytes) -> None:
         with contextlib.suppress(SourceError):  # a lost link shows up on the next read

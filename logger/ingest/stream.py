@@ -64,6 +64,8 @@ class SampleStream:
         """The same recent rows as raw counts (the rig's channels, its order): what calibration averages."""
         self.unheaded = 0
         """Frames dropped because no header came to say how to read them."""
+        self.wrong_width = 0
+        """Frames dropped because they held another number of counts than the header names channels."""
         self.first_us: int | None = None
         self.last_us: int | None = None
         self.last_utc_us: int | None = None
@@ -115,6 +117,12 @@ class SampleStream:
     def emit(self, batch: FrameBatch, arrival: float, offset: float) -> Processed | None:
         """Put one batch on the run's time axis and through the core; None when nothing of it is kept."""
         if self.duration_reached():
+            return None
+        if batch.channels != len(self.header.channels):
+            self.wrong_width += len(batch)
+            self.notice = (f"{self.wrong_width:,} data lines with {batch.channels} count(s) where the header says "
+                           f"{len(self.header.channels)} channel(s): not recorded (does the firmware's header match "
+                           "what it sends?)")
             return None
         stamped = self.timebase.feed(batch, arrival, offset)
         for step in self.timebase.clock_steps():

@@ -81,6 +81,8 @@ class Decoder:
 
     def __init__(self) -> None:
         self.counters = DecoderCounters()
+        self.refused: str | None = None
+        """Why the latest header line with a good CRC was refused (a value out of range), if one was."""
         self._tail = b""
         self._skipping = False
         self._joined = False
@@ -195,7 +197,11 @@ class Decoder:
             answer = Answer.parse(text)
             self.counters.answers += 1
             return answer
-        except (UnicodeDecodeError, ValueError):
+        except UnicodeDecodeError:
+            return "malformed"
+        except ValueError as exc:
+            if body[:1] == b"H":
+                self.refused = f"a header line was refused: {exc}"
             return "malformed"
 
     def _assemble(

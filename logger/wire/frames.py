@@ -12,7 +12,6 @@ four upper-case hex digits. The first byte of the body says what the line is:
 
 from __future__ import annotations
 
-import math
 from dataclasses import dataclass
 
 import numpy as np
@@ -23,6 +22,12 @@ MAX_LINE = 160
 """Longest line accepted, newline included; anything longer is dropped and counted."""
 
 MAX_CHANNELS = 8
+MIN_RATE_HZ = 0.001
+MAX_RATE_HZ = 100_000.0
+"""A full-speed USB link carries about 1 MB/s, fewer than 40,000 of the shortest data lines a second; a header
+claiming more (or a rate that is not a number) is refused rather than believed."""
+MAX_VREF_MV = 65_535
+"""The largest reference a firmware keeps in 16 bits; no ADC reference comes near it."""
 SEQ_MODULUS = 1 << 16
 CLOCK_MODULUS = 1 << 32
 
@@ -104,8 +109,12 @@ class DeviceHeader:
         bits, vref_mv, rate_hz = int(fields["bits"]), int(fields["vref_mv"]), float(fields["rate_hz"])
         if not 1 <= len(channels) <= MAX_CHANNELS or not all(channels) or len(set(channels)) != len(channels):
             raise ValueError(f"header channels {fields['ch']!r}: 1 to {MAX_CHANNELS} distinct names expected")
-        if not 1 <= bits <= 16 or vref_mv <= 0 or not 0 < rate_hz < math.inf:
-            raise ValueError("header bits, vref_mv or rate_hz out of range")
+        if not 1 <= bits <= 16:
+            raise ValueError(f"header bits={bits}: 1 to 16 expected (counts are 16-bit hex)")
+        if not 1 <= vref_mv <= MAX_VREF_MV:
+            raise ValueError(f"header vref_mv={vref_mv}: 1 to {MAX_VREF_MV} expected")
+        if not MIN_RATE_HZ <= rate_hz <= MAX_RATE_HZ:
+            raise ValueError(f"header rate_hz={fields['rate_hz']}: {MIN_RATE_HZ:g} to {MAX_RATE_HZ:g} expected")
         known = {*cls.REQUIRED, "why"}
         extra = tuple((k, v) for k, v in fields.items() if k not in known)
         return cls(
