@@ -6,6 +6,7 @@ Errors always name the file, the key and what was expected, because a rig file i
 from __future__ import annotations
 
 import difflib
+import keyword
 import math
 import re
 import tomllib
@@ -19,6 +20,8 @@ from logger.cal.profile import Profile, ProfileError, load_profile
 ROLES = ("volts", "amps", "aux")
 UNITS = {"volts": "V", "amps": "A", "aux": "V"}  # an aux tap is a voltage through a divider, unless it says
 _NAME = re.compile(r"^[a-z][a-z0-9_]{0,23}$")
+RESERVED = ("utc", "device_us", "seq", "segment")
+"""Columns every run's sample table has: no channel may take their names."""
 
 
 class RigError(ValueError):
@@ -210,15 +213,20 @@ def _device(c: _Checker, table: dict[str, Any]) -> Device:
         raise c.fail("device.baud", "a positive integer")
     if bits is not None and not 1 <= bits <= 16:
         raise c.fail("device.adc_bits", "1 to 16")
-    return Device(port=c.get(table, "port", str, None, w), baud=baud, adc_bits=bits,
-                  vref_mv=c.get(table, "vref_mv", int, None, w))
+    vref_mv = c.get(table, "vref_mv", int, None, w)
+    if vref_mv is not None and not 1 <= vref_mv <= 65_535:
+        raise c.fail("device.vref_mv", "the ADC's reference in millivolts, 1 to 65535")
+    return Device(port=c.get(table, "port", str, None, w), baud=baud, adc_bits=bits, vref_mv=vref_mv)
 
 
 def _channel(c: _Checker, index: int, table: dict[str, Any], base: Path | None) -> Channel:
     w = f"channel[{index}]."
     name = c.get(table, "name", str, None, w)
-    if name is None or not _NAME.match(name):
-        raise c.fail(f"{w}name", "a lower-case name such as out_v (letters, digits, _; up to 24)")
+    if name is None or not _NAME.match(name) or keyword.iskeyword(name):
+        raise c.fail(f"{w}name", "a lower-case name such as out_v (letters, digits, _; up to 24; not a Python word)")
+    if name in RESERVED or name.endswith("_counts"):
+        raise c.fail(f"{w}name", f"a name other than {', '.join(RESERVED)} and not ending in _counts (the sample "
+                     "table has those columns)")
     w = f"channel {name!r}: "
     c.known(table, CHANNEL_KEYS, w)
     role = c.get(table, "role", str, None, w)
@@ -232,6 +240,13 @@ def _channel(c: _Checker, index: int, table: dict[str, Any], base: Path | None) 
         if numbers[key] is not None and numbers[key] <= 0:
             raise c.fail(f"{w}{key}", "a positive number")
     events = _event_settings(c, table.get("events", {}), w)
+    negative = c.get(table, "negative", bool, False, w)
+    nominal = numbers["nominal"]
+    if nominal == 0:
+        raise c.fail(f"{w}nominal", "the rail's normal value, not 0 (events are measured against it; leave nominal "
+                     "out to watch no events)")
+    if nominal is not None and nominal < 0 and not negative and role != "amps":
+        raise c.fail(f"{w}nominal", f"a positive value, or `negative = true` for a rail below zero (got {nominal:g})")
     low, high = numbers["low"], numbers["high"]
     if low is not None and high is not None and low >= high:
         raise c.fail(f"{w}low", f"less than high ({high})")
@@ -242,7 +257,7 @@ def _channel(c: _Checker, index: int, table: dict[str, Any], base: Path | None) 
         name=name,
         role=role,
         input=_input(c, table, w),
-        negative=c.get(table, "negative", bool, False, w),
+        negative=negative,
         unit=unit,
         events=events,
         profile=_profile(c, base, profile_path, name, unit, w),
@@ -267,10 +282,17 @@ def _profile(c: _Checker, base: Path | None, path: str | None, name: str, unit: 
     return profile
 
 
-EVENT_KEYS = (
-    "brownout_pct", "dropout_pct", "overvoltage_pct", "hysteresis_pct", "min_event_s", "mean_window_s",
-    "overcurrent_s", "flicker_window_s",
-)
+EVENT_RANGES = {
+    "brownout_pct": (1.0, 99.0, "a share of nominal from 1 to 99 (%)"),
+    "dropout_pct": (0.0, 99.0, "a share of nominal from 0 to 99 (%)"),
+    "overvoltage_pct": (101.0, 1000.0, "a share of nominal from 101 to 1000 (%)"),
+    "hysteresis_pct": (0.0, 50.0, "a share of nominal from 0 to 50 (%)"),
+    "min_event_s": (0.0, 3600.0, "seconds, 0 to 3600"),
+    "mean_window_s": (0.0, 1.0, "seconds, 0 to 1 (a short mean against single noisy samples)"),
+    "overcurrent_s": (0.0, 3600.0, "seconds, 0 to 3600"),
+    "flicker_window_s": (0.001, 3600.0, "seconds, 0.001 to 3600"),
+}
+EVENT_KEYS = tuple(EVENT_RANGES)
 
 
 def _event_settings(c: _Checker, table: dict[str, Any], where: str) -> dict[str, float]:
@@ -282,8 +304,9 @@ def _event_settings(c: _Checker, table: dict[str, Any], where: str) -> dict[str,
         raise c.fail(f"{where}events.{unknown[0]}", f"one of {', '.join(EVENT_KEYS)}")
     settings = {k: c.get(table, k, float, None, f"{where}events.") for k in table}
     for key, value in settings.items():
-        if value < 0:
-            raise c.fail(f"{where}events.{key}", "a number of zero or more")
+        low, high, words = EVENT_RANGES[key]
+        if not low <= value <= high:
+            raise c.fail(f"{where}events.{key}", words)
     return settings
 
 

@@ -52,6 +52,16 @@ def test_port_without_rig_says_what_to_do(capsys) -> None:
         ("[[channel]]\nname = 'v'\nrole = 'volts'\ninput = 0\n[[channel]]\nname = 'w'\nrole = 'aux'\ninput = 0\n",
          "input 0 already used"),
         ("[[channel]]\nname = 'v'\nrole = 'volts'\ninput = 0\nlow = 5\nhigh = 4\n", "low: expected less than"),
+        # Names that would clash with the sample table's columns, or are not usable as a column name:
+        ("[[channel]]\nname = 'utc'\nrole = 'volts'\ninput = 0\n", "channel[0].name: expected a name other than utc"),
+        ("[[channel]]\nname = 'class'\nrole = 'volts'\ninput = 0\n", "not a Python word"),
+        ("[[channel]]\nname = 'out_v_counts'\nrole = 'volts'\ninput = 0\n", "not ending in _counts"),
+        # Values that would silently disable or invert the events, or size a window from nonsense:
+        ("[[channel]]\nname = 'v'\nrole = 'volts'\ninput = 0\nnominal = 0\n", "nominal: expected the rail's normal"),
+        ("[[channel]]\nname = 'v'\nrole = 'volts'\ninput = 0\nnominal = -12\n", "or `negative = true`"),
+        ("[[channel]]\nname = 'v'\nrole = 'volts'\ninput = 0\nnominal = 12\n[channel.events]\nmean_window_s = 1e9\n",
+         "events.mean_window_s: expected seconds, 0 to 1"),
+        ("[device]\nvref_mv = -3300\n[[channel]]\nname = 'v'\nrole = 'volts'\ninput = 0\n", "device.vref_mv"),
     ],
 )
 def test_rig_errors_name_file_and_key(text: str, expected: str) -> None:
