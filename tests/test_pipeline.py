@@ -122,9 +122,13 @@ def test_disk_full_stops_with_one_line_and_keeps_the_journal(tmp_path: Path, mon
         real_write(fd, data)
 
     monkeypatch.setattr(journal, "write_all", failing)
-    p = _run(SimSource(SimDevice(seed=1), speed=10.0, duration_s=20), tmp_path)
+    # An hour of simulated data as fast as it comes: the run must stop at the failure, not read on to the end.
+    p = _run(SimSource(SimDevice(seed=1), speed=0, duration_s=3600), tmp_path)
     assert p.error is not None and "\n" not in p.error
     assert "disk full" in p.error or "space" in p.error
+    assert ("are safe on disk" in p.error or "no samples had reached the disk" in p.error)
+    assert p.stop_reason.startswith("failed: ")
+    assert p.decoder.counters.frames < 600_000  # of 3.6 million: it stopped within moments of the failure
     run = _only_run(tmp_path)
     assert list(run.glob("_journal-*.arrows")), "journal must be kept for recovery"
 

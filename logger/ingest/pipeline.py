@@ -235,8 +235,9 @@ class Pipeline:
             while not self._stop.is_set():
                 if not self._step():
                     break
-                if self.recorder is not None and not self.recorder.alive:
-                    self._fail(self.recorder.error or "recorder stopped")
+                recorder = self.recorder
+                if recorder is not None and (recorder.error or not recorder.alive):  # a store failure stops the run
+                    self._fail(recorder.error or "the recorder stopped")
                     break
             self._drain()
         except (RigError, SourceError) as exc:
