@@ -181,3 +181,40 @@ def test_recovery_detects_the_brownout_a_crash_cut_short(tmp_path: Path) -> None
     (dip,) = events[events.kind.isin(["brownout", "dropout"])].itertuples()
     assert dip.channel == "out_v" and dip.value == pytest.approx(6.0, abs=0.01) and "still below" in dip.detail
     assert meta["status"] == "recovered" and meta["events"] == len(events)
+
+
+@pytest.mark.parametrize("damage", ["truncated part", "empty part", "garbage events", "garbage rollup",
+                                    "wrong types in _run.json"])
+@pytest.mark.parametrize("command", ["review", "review --full", "report", "export", "compare"])
+def test_a_damaged_run_gets_one_line_naming_the_file(tmp_path: Path, capsys, damage: str, command: str) -> None:
+    """Every reading command on a damaged run folder: one line naming the damaged file and what to do, exit 2,
+    never a traceback; a damaged rollup is derived data and is simply written again (common practice)."""
+    t = np.arange(0, 30.0, 1 / 100)
+    good = _write_run(tmp_path / "good", t, np.full(len(t), 12.0), np.full(len(t), 1.0), rate_hz=100.0)
+    run = _write_run(tmp_path / "bad", t, np.full(len(t), 12.0), np.full(len(t), 1.0), rate_hz=100.0)
+    part, named = run / "part-00000.parquet", "part-00000.parquet"
+    if damage == "truncated part":
+        part.write_bytes(part.read_bytes()[:3000])
+    elif damage == "empty part":
+        part.write_bytes(b"")
+    elif damage == "garbage events":
+        (run / "_events.parquet").write_bytes(b"not parquet at all" * 100)
+        named = "_events.parquet"
+    elif damage == "garbage rollup":
+        main(["review", str(run)])  # makes the rollup
+        (run / "_rollup-00000.parquet").write_bytes(b"PAR1" + b"\0" * 500)
+        named = None
+    else:
+        meta = json.loads((run / "_run.json").read_text())
+        (run / "_run.json").write_text(json.dumps({**meta, "parts": "p", "link": 5}))
+        named = "_run.json"
+    capsys.readouterr()
+    args = {"review": ["review", str(run)], "review --full": ["review", str(run), "--full"],
+            "report": ["report", str(run), "--md", str(tmp_path / "md")],
+            "export": ["export", str(run), str(tmp_path / "out.csv")], "compare": ["compare", str(good), str(run)]}
+    code = main(args[command])
+    err = capsys.readouterr().err.strip().splitlines()
+    if named is None:
+        assert code == 0
+        return
+    assert code == 2 and len(err) == 1 and named in err[0] and err[0].startswith("railtap: "), err

@@ -12,6 +12,7 @@ from pathlib import Path
 
 from logger.review.progress import Bar
 from logger.review.show import show
+from logger.store.check import check_readable
 from logger.store.files import StoreError
 
 
@@ -63,6 +64,7 @@ def cmd_review(args: argparse.Namespace) -> int:
     folder: Path = args.folder
     if not (folder / "_run.json").exists():
         return _review_many(folder)
+    check_readable(folder)
     channels = _channels(args.channels)
     if args.event is not None:
         from logger.review.window import around_event
@@ -131,6 +133,7 @@ def _print_chart(text) -> None:
 def cmd_report(args: argparse.Namespace) -> int:
     from logger.review.report import report_html, report_markdown
 
+    check_readable(args.folder)
     with Bar("drawing the report") as bar:
         if args.html is not None:
             path = report_html(args.folder, args.html, args.worst, progress=bar)
@@ -144,6 +147,8 @@ def cmd_report(args: argparse.Namespace) -> int:
 def cmd_compare(args: argparse.Namespace) -> int:
     from logger.review.compare import compare_text
 
+    check_readable(args.a)
+    check_readable(args.b)
     show(compare_text(args.a, args.b, full=args.full))
     return 0
 
@@ -168,6 +173,7 @@ def _review_many(root: Path) -> int:
 def cmd_export(args: argparse.Namespace) -> int:
     from logger.review.export import check_span, export_samples, parse_when, run_start
 
+    check_readable(args.folder)
     start = end = None
     if args.start or args.end:
         first = run_start(args.folder)

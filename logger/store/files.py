@@ -96,11 +96,20 @@ def write_json_atomic(path: Path, data: dict[str, Any]) -> None:
     fsync_dir(path.parent)
 
 
+RUN_JSON_TYPES: dict[str, type] = {
+    "parts": list, "link": dict, "clock": dict, "power_pairs": list, "channels_info": list, "calibration": dict,
+    "calibration_changes": list, "calibration_history": list, "status": str, "stop_reason": str, "rows": int,
+    "events": int,
+}
+"""The keys readers rely on, and what each must be."""
+_KIND_WORDS = {list: "list", dict: "table (JSON object)", str: "text", int: "whole number"}
+
+
 def read_run_json(folder: Path) -> dict[str, Any]:
     """The run metadata of ``folder``.
 
     Raises:
-        StoreError: ``_run.json`` is missing or is not a JSON object.
+        StoreError: ``_run.json`` is missing, is not a JSON object, or a key readers rely on has the wrong type.
     """
     path = folder / RUN_JSON
     try:
@@ -111,6 +120,10 @@ def read_run_json(folder: Path) -> dict[str, Any]:
         raise StoreError(f"{path} is unreadable or not JSON ({one_line(str(exc))}); fix it by hand") from None
     if not isinstance(data, dict):
         raise StoreError(f"{path} is not a JSON object; fix or remove it by hand")
+    for key, kind in RUN_JSON_TYPES.items():
+        if key in data and data[key] is not None and not isinstance(data[key], kind):
+            raise StoreError(f"{path}: {key!r} should be a {_KIND_WORDS[kind]}, not {type(data[key]).__name__}; "
+                             "fix it by hand (the samples do not depend on it)")
     return data
 
 

@@ -63,7 +63,10 @@ def run_processor(meta: dict[str, Any], names: list[str], profiles: list[Profile
 
 def _rig(meta: dict[str, Any], names: list[str]) -> Rig:
     try:
-        rig = parse_rig(meta.get("rig") or "", "the rig kept in _run.json", profiles=False)
+        text = meta.get("rig")
+        if not isinstance(text, str):
+            raise RigError("the rig kept in _run.json is not the rig file's text")
+        rig = parse_rig(text, "the rig kept in _run.json", profiles=False)
     except RigError as exc:
         raise StoreError(f"{exc}; cannot process the run again") from None
     if [ch.name for ch in rig.channels] != names:

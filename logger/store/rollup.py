@@ -167,7 +167,15 @@ def read_rollups(folder: Path, pairs: list[Pair], gap: int = round(GAP_S * 1e6))
     wanted = {"device_s", *(f"{p.rail}_w_int" for p in pairs)}
     for index, _ in parts_in(folder):
         path = folder / rollup_name(index)
-        if not path.exists() or not wanted <= set(pq.read_schema(path).names):
+        if not _usable(path, wanted):
             write_rollup(folder, index, pairs, gap)
         tables.append(pq.read_table(path))
     return pa.concat_tables(tables) if tables else pa.table({})
+
+
+def _usable(path: Path, wanted: set[str]) -> bool:
+    """A rollup that exists, opens, and has the columns asked for (else it is written again: derived data)."""
+    try:
+        return path.exists() and wanted <= set(pq.read_schema(path).names)
+    except (OSError, pa.ArrowException):
+        return False
