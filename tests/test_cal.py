@@ -339,3 +339,44 @@ def test_recal_rewrites_values_from_counts_and_detects_events_again(tmp_path: Pa
     assert not [p for p in run.iterdir() if p.name.startswith("_recal")]
     with pytest.raises(StoreError, match="no channel 'out_x'"):
         recalibrate(run, [_line_profile("out_x", "V", 1.0, (0, 1))])
+
+
+def test_a_killed_recal_leaves_the_old_calibration_or_the_new_never_a_mix(tmp_path: Path, monkeypatch) -> None:
+    """Killed while writing its new files: recovery clears them and the old values stand. Killed after its
+    point of no return: recovery finishes it, and every part, the events and _run.json have the new values."""
+    import pandas as pd
+
+    import logger.store.recal as recal
+    from logger.store import find_unfinished, read_run_json, recover_run
+    from logger.store.recal import recalibrate
+
+    run = _recorded_run(tmp_path)
+    old = pd.read_parquet(run, columns=["out_v"])["out_v"].to_numpy()
+    lsb = 3.3 / 4096  # FS / 2^N (common practice, no source)
+    new = _line_profile("out_v", "V", lsb * 11.0 * 1.02, (0.0, 4095.0))
+
+    def killed(*_args, **_kwargs):
+        raise KeyboardInterrupt  # as if the process had died here
+
+    monkeypatch.setattr(recal, "write_events", killed)  # the last new file: parts already written aside
+    with pytest.raises(KeyboardInterrupt):
+        recalibrate(run, [new])
+    assert find_unfinished(run.parent) == [] and not list(run.glob("_recal-*"))
+    assert (pd.read_parquet(run, columns=["out_v"])["out_v"].to_numpy() == old).all()
+    (run / "_recal-part-00000.parquet").write_bytes(b"half a file")  # what a kill -9 there would leave
+    assert find_unfinished(run.parent) == [run]
+    recover_run(run)
+    assert not list(run.glob("_recal-*"))
+    assert (pd.read_parquet(run, columns=["out_v"])["out_v"].to_numpy() == old).all()
+
+    monkeypatch.undo()
+    monkeypatch.setattr(recal, "finish_recal", killed)  # after the point of no return
+    with pytest.raises(KeyboardInterrupt):
+        recalibrate(run, [new])
+    assert list(run.glob("_recal-*")) and find_unfinished(run.parent) == [run]
+    meta = recover_run(run)
+    values = pd.read_parquet(run, columns=["out_v", "out_v_counts"])
+    expected = (values["out_v_counts"].to_numpy() * lsb * 11.0 * 1.02).astype(np.float32)
+    assert np.array_equal(values["out_v"].to_numpy(), expected)
+    assert meta == read_run_json(run) and "recalibrating" not in meta
+    assert meta["calibration"]["out_v"]["by"] == "railtap recal" and not list(run.glob("_recal-*"))

@@ -8,10 +8,10 @@ events are detected again (link events and marks are kept as they were), the per
 again, and ``_run.json`` records the new calibration and keeps the one it replaces under
 ``calibration_history``. Recal with the profile a run already had gives back the same run.
 
-Safety: new parts and the new event table are written under temporary names first; the originals are
-replaced only once all are complete. A crash in the short replacing step can leave some parts new and some
-old, which ``_run.json`` then says (``recalibrating``); running the same recal again finishes it, since the
-values come from the counts either way.
+All or nothing: new parts and the new event table are written under temporary names (``_recal-*``) first. Once
+all are whole and on disk, ``_run.json`` takes the new metadata under ``recalibrating``, and only then are the
+originals replaced. A crash before that point leaves the old calibration, and recovery clears the leftovers; a
+crash after it is finished by ``railtap recover`` (:func:`finish_recal`).
 """
 
 from __future__ import annotations
@@ -37,6 +37,9 @@ from logger.store.rollup import gap_us, pairs_of, write_rollup
 from logger.store.seal import RUN_KEY, sample_parquet_options
 
 EVENTS = EVENTS_PARQUET
+RECALIBRATING = "recalibrating"
+"""Key of ``_run.json`` that holds a recalibration's new metadata while its files are being put in place."""
+TEMP_PREFIX = "_recal-"
 
 
 def recalibrate(folder: Path, profiles: list[Profile], progress: Callable[[str], None] = lambda s: None) -> dict:
@@ -67,22 +70,55 @@ def recalibrate(folder: Path, profiles: list[Profile], progress: Callable[[str],
             temps.append(temp)
             detected += events
         temps.append(write_events(folder, detected + core.finish()))
-        write_json_atomic(folder / "_run.json", {**meta, "recalibrating": new_meta["calibration"]})
-        for temp, target in zip(temps, [*parts, folder / EVENTS], strict=True):
-            os.replace(temp, target)
         fsync_dir(folder)
-        for index, _ in parts_in(folder):  # the per-second rollups follow the new values
-            write_rollup(folder, index, pairs_of(meta), gap_us(meta))
-        link_episodes(folder / EVENTS)
-        new_meta["events"] = pq.ParquetFile(folder / EVENTS).metadata.num_rows
-        write_json_atomic(folder / "_run.json", new_meta)
-        return new_meta
     except OSError as exc:
-        raise StoreError(f"{folder}: cannot recalibrate ({exc.strerror or exc}); the run is as it was") from None
-    finally:
-        for temp in temps:
+        for temp in [*temps, *recal_leftovers(folder)]:
             temp.unlink(missing_ok=True)
         lock.release()
+        raise StoreError(f"{folder}: cannot recalibrate ({exc.strerror or exc}); the run is as it was") from None
+    except BaseException:
+        for temp in [*temps, *recal_leftovers(folder)]:
+            temp.unlink(missing_ok=True)
+        lock.release()
+        raise
+    try:
+        # The point of no return: every new file is whole and on disk, and _run.json says so. From here a crash
+        # is finished by `railtap recover` (or this same command), never left half old and half new.
+        write_json_atomic(folder / "_run.json", {**meta, RECALIBRATING: new_meta})
+        return finish_recal(folder)
+    except OSError as exc:
+        raise StoreError(f"{folder}: recalibration stopped ({exc.strerror or exc}); `railtap recover {folder}` "
+                         "finishes it") from None
+    finally:
+        lock.release()
+
+
+def recal_leftovers(folder: Path) -> list[Path]:
+    """New files of a recalibration not yet put in place (``_recal-*``)."""
+    return sorted(folder.glob(f"{TEMP_PREFIX}*"))
+
+
+def finish_recal(folder: Path) -> dict[str, Any]:
+    """Put a recalibration's new files in place and write its ``_run.json`` (the caller holds the run lock).
+
+    ``_run.json`` holds the new metadata under ``recalibrating`` once every new file is whole; whatever was not
+    yet moved is moved now, so a run is never left with some parts new and some old.
+    """
+    meta = read_run_json(folder)
+    new_meta = meta.get(RECALIBRATING)
+    if not isinstance(new_meta, dict):
+        raise StoreError(f"{folder}/_run.json: no recalibration to finish")
+    for temp in recal_leftovers(folder):
+        name = temp.name[len(TEMP_PREFIX):]
+        os.replace(temp, folder / (EVENTS if name == "events.parquet" else name))
+    fsync_dir(folder)
+    for index, _ in parts_in(folder):  # the per-second rollups follow the new values
+        write_rollup(folder, index, pairs_of(new_meta), gap_us(new_meta))
+    link_episodes(folder / EVENTS)
+    new_meta = {k: v for k, v in new_meta.items() if k != RECALIBRATING}
+    new_meta["events"] = pq.ParquetFile(folder / EVENTS).metadata.num_rows
+    write_json_atomic(folder / "_run.json", new_meta)
+    return new_meta
 
 
 def _updated_metadata(meta: dict[str, Any], profiles: list[Profile]) -> dict[str, Any]:
@@ -92,7 +128,7 @@ def _updated_metadata(meta: dict[str, Any], profiles: list[Profile]) -> dict[str
     for profile in profiles:
         history.append({"channel": profile.channel, "replaced": now, "was": calibration.get(profile.channel)})
         calibration[profile.channel] = {"profile": profile.to_dict(), "applied": now, "by": "railtap recal"}
-    new = {k: v for k, v in meta.items() if k != "recalibrating"}
+    new = {k: v for k, v in meta.items() if k != RECALIBRATING}
     return {**new, "calibration": calibration, "calibration_history": history}
 
 
@@ -104,7 +140,7 @@ def _rewrite_part(part: Path, names: list[str], run_meta: dict[str, Any], core: 
     kv = dict(schema.metadata or {})
     kv[RUN_KEY.encode()] = to_json(run_meta).encode()
     schema = schema.with_metadata(kv)
-    temp = part.with_name(f"_recal-{part.name}")
+    temp = part.with_name(f"{TEMP_PREFIX}{part.name}")
     events: list[Event] = []
     with pq.ParquetWriter(temp, schema, **sample_parquet_options(schema)) as writer:
         for batch, block in blocks(part, names):

@@ -37,6 +37,7 @@ from logger.store.layout import (
     temp_files_in,
 )
 from logger.store.meta import finished_metadata, start_part
+from logger.store.recal import RECALIBRATING, finish_recal, recal_leftovers
 from logger.store.reprocess import detect_again
 from logger.store.schema import event_schema
 from logger.store.seal import event_parquet_options, read_part_info, seal_journal, write_empty
@@ -65,6 +66,14 @@ def recover_run(folder: Path) -> dict[str, Any]:
     lock = RunLock(folder)
     lock.acquire("recover")
     try:
+        if isinstance(metadata.get(RECALIBRATING), dict):  # a recal stopped after its point of no return
+            try:
+                return finish_recal(folder)
+            except OSError as exc:
+                raise StoreError(f"{os_error_text(exc, folder)}; fix that, then run `railtap recover {folder}` "
+                                 "again") from None
+        for leftover in recal_leftovers(folder):  # a recal stopped before it: the old calibration stands
+            leftover.unlink()
         if _is_clean(folder, metadata):
             return metadata
         final = _recover_locked(folder, metadata)
@@ -81,8 +90,9 @@ def find_unfinished(root: Path) -> list[Path]:
     """Run folders directly under ``root`` that need :func:`recover_run`.
 
     A run needs it when its ``_run.json`` says ``recording`` (or ``failed``: the writer stopped on an error
-    and left its journal) and no live process holds its lock. Folders with an unreadable ``_run.json`` are
-    skipped (:func:`recover_run` on them names the problem); a missing ``root`` gives an empty list.
+    and left its journal), or a recalibration of it was cut short, and no live process holds its lock.
+    Folders with an unreadable ``_run.json`` are skipped (:func:`recover_run` on them names the problem); a
+    missing ``root`` gives an empty list.
     """
     found: list[Path] = []
     if not Path(root).is_dir():
@@ -91,10 +101,11 @@ def find_unfinished(root: Path) -> list[Path]:
         if not (child / RUN_JSON).is_file():
             continue
         try:
-            status = read_run_json(child).get("status")
+            meta = read_run_json(child)
         except StoreError:
             continue
-        if status in UNFINISHED and lock_is_free(child):
+        cut = meta.get("status") in UNFINISHED or RECALIBRATING in meta or recal_leftovers(child)
+        if cut and lock_is_free(child):
             found.append(child)
     return found
 
