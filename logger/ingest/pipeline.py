@@ -275,15 +275,17 @@ class Pipeline:
             self._published_at = now
         return not self._duration_reached()
 
-    def _take_commands(self) -> None:
-        """Do what other threads asked; zeros, profiles and resets wait for the next batch's first sample."""
+    def _take_commands(self, finishing: bool = False) -> None:
+        """Do what other threads asked; zeros, profiles and resets wait for the next batch's first sample, and
+        once the run is finishing, a new run folder is no longer opened."""
         while True:
             try:
                 what, arg = self._commands.get_nowait()
             except queue.Empty:
                 return
             if what == "record":
-                self._switch_recording(arg)
+                if not finishing:
+                    self._switch_recording(arg)
             elif what == "mark":
                 self.events.add(Event("mark", self._now_us(), detail=arg, device_start_us=self.stream.last_us))
             elif what == "send":
@@ -466,6 +468,7 @@ class Pipeline:
         self.stop_reason = f"failed: {message}"
 
     def _finish(self) -> None:
+        self._take_commands(finishing=True)  # what was asked before the stop: a mark still goes into the run
         self.source.close()
         if self.header is None and self.decoder.counters.frames and not self.error:
             self._fail(
