@@ -3,7 +3,7 @@ PYTHON ?= python3
 VENV ?= .venv
 BIN := $(VENV)/bin
 
-.PHONY: demo test bench clean
+.PHONY: demo test test-loaded bench clean
 
 $(BIN)/railtap: pyproject.toml
 	$(PYTHON) -m venv $(VENV)
@@ -21,6 +21,9 @@ demo: $(BIN)/railtap
 test: $(VENV)/.test-extras
 	$(BIN)/ruff check logger tests
 	$(BIN)/python -m pytest
+
+test-loaded: $(VENV)/.test-extras
+	$(BIN)/python tests/loaded.py 5
 
 bench: $(VENV)/.test-extras
 	$(BIN)/python tests/bench/bench_ingest.py
