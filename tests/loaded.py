@@ -30,7 +30,7 @@ def main() -> int:
     try:
         for n in range(1, runs + 1):
             t0 = time.monotonic()
-            done = subprocess.run([sys.executable, "-m", "pytest", "-q", "-p", "no:cacheprovider"],
+            done = subprocess.run([sys.executable, "-m", "pytest", "-p", "no:cacheprovider"],
                                   capture_output=True, text=True)
             last = (done.stdout.strip().splitlines() or ["(no output)"])[-1]
             print(f"run {n} of {runs} with {len(hogs)} CPU hogs: {last} ({time.monotonic() - t0:.0f} s)", flush=True)
