@@ -11,6 +11,8 @@ from datetime import datetime
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
+import pyarrow as pa
+
 from logger import __version__
 from logger.cal.assess import MODELS
 from logger.cal.capture import DEFAULT_MAX_SD, DEFAULT_SAMPLES
@@ -56,6 +58,10 @@ def main(argv: list[str] | None = None) -> int:
     except OSError as exc:
         where = f"{exc.filename}: " if exc.filename else ""
         print(f"railtap: {where}{exc.strerror or exc}", file=sys.stderr)
+        return 1
+    except pa.ArrowException as exc:  # a damaged page inside a file that opened: one line, not a traceback
+        print(f"railtap: reading the run failed ({' '.join(str(exc).split())}); a file in it is damaged: move the "
+              "damaged part out of the run folder, or recover the run from its journal", file=sys.stderr)
         return 1
 
 

@@ -218,3 +218,26 @@ def test_a_damaged_run_gets_one_line_naming_the_file(tmp_path: Path, capsys, dam
         assert code == 0
         return
     assert code == 2 and len(err) == 1 and named in err[0] and err[0].startswith("railtap: "), err
+
+
+@pytest.mark.parametrize("full", [False, True])
+def test_a_damaged_page_inside_a_part_is_named(tmp_path: Path, capsys, full: bool) -> None:
+    """Bytes flipped inside a data page (the footer still opens): the part is named in one line."""
+    import pyarrow.parquet as pq
+
+    t = np.arange(0, 30.0, 1 / 100)
+    run = _write_run(tmp_path, t, 12.0 + 0.1 * np.sin(t), np.full(len(t), 1.0), rate_hz=100.0)
+    part = run / "part-00000.parquet"
+    column = pq.read_metadata(part).row_group(0).column(4)
+    data = bytearray(part.read_bytes())
+    start = column.dictionary_page_offset or column.data_page_offset
+    for i in range(start + 40, min(start + column.total_compressed_size, len(data)) - 8, 7):
+        data[i] ^= 0x5A
+    part.write_bytes(bytes(data))
+    for rollup in run.glob("_rollup-*.parquet"):
+        rollup.unlink()
+    capsys.readouterr()
+    code = main(["review", str(run), *(["--full"] if full else [])])
+    err = capsys.readouterr().err.strip().splitlines()
+    assert code in (1, 2) and len(err) == 1 and err[0].startswith("railtap: "), err
+    assert "part-00000.parquet" in err[0] or "damaged" in err[0]

@@ -24,7 +24,7 @@ import pyarrow.parquet as pq
 from logger.core.gaps import GAP_S
 from logger.core.seconds import STATS, Carry, Pair, Seconds
 from logger.store.arrays import as_numpy, from_numpy
-from logger.store.files import fsync_dir
+from logger.store.files import StoreError, fsync_dir, one_line
 from logger.store.layout import parts_in
 from logger.store.schema import UTC_TYPE, channels_of
 from logger.store.seal import temp_name
@@ -56,7 +56,19 @@ def rollup_schema(channels: list[str], pairs: list[Pair]) -> pa.Schema:
 
 
 def feed_part(seconds: Seconds, part: Path) -> None:
-    """Fold every sample of a sealed part into ``seconds``, row group by row group."""
+    """Fold every sample of a sealed part into ``seconds``, row group by row group.
+
+    Raises:
+        StoreError: the part cannot be read to its end (a damaged page), naming it.
+    """
+    try:
+        _feed(seconds, part)
+    except (OSError, pa.ArrowException) as exc:
+        raise StoreError(f"{part} is damaged ({one_line(str(exc))}); move it out of the run folder to review "
+                         "the rest") from None
+
+
+def _feed(seconds: Seconds, part: Path) -> None:
     source = pq.ParquetFile(part)
     channels = channels_of(source.schema_arrow)
     has_segment = SEGMENT in source.schema_arrow.names
