@@ -23,7 +23,7 @@ test: $(VENV)/.test-extras
 	$(BIN)/python -m pytest
 
 test-loaded: $(VENV)/.test-extras
-	$(BIN)/python tests/loaded.py 5
+	$(BIN)/python tests/bench/suite_under_load.py 5
 
 bench: $(VENV)/.test-extras
 	$(BIN)/python tests/bench/bench_ingest.py

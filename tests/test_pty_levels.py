@@ -24,15 +24,15 @@ KINDS = ["brownout", "brownout", "dropout", "dropout"]
 
 
 def _serve(lines: tuple[bytes, ...], sent_s, paced: bool, master: int, done: threading.Event) -> None:
-    """Write the device's lines to the pty: at their own times (paced) or as fast as it takes them."""
+    """Write the device's lines to the pty: at their own times (paced: the simulated device keeps its clock,
+    and stops at once when the test ends) or as fast as the pty takes them."""
     start = time.monotonic()
     for line, at in zip(lines, sent_s, strict=True):
-        if paced and (wait := start + at - time.monotonic()) > 0:
-            time.sleep(wait)  # pacing the simulated device, not waiting on the system under test
+        if paced and done.wait(max(0.0, start + at - time.monotonic())):
+            return
         view = memoryview(line)
         while view:
             view = view[os.write(master, view):]
-    done.set()
 
 
 @pytest.mark.parametrize("paced", [True, False], ids=["paced", "unpaced"])
@@ -42,16 +42,17 @@ def test_iec_levels_through_a_pty(tmp_path: Path, paced: bool) -> None:
     master, slave = os.openpty()
     tty.setraw(slave)
     done = threading.Event()
+    writer = threading.Thread(target=_serve, args=(stream.lines, stream.sent_s, paced, master, done), daemon=True)
     try:
         pipeline = Pipeline(SerialSource(os.ttyname(slave), 921600), simple_rig(),
                             Settings(record_root=tmp_path, duration_s=2.9))
         pipeline.start()
-        writer = threading.Thread(target=_serve, args=(stream.lines, stream.sent_s, paced, master, done),
-                                  daemon=True)
         writer.start()
         assert pipeline.wait(60), "the run did not reach its duration"
-        writer.join(30)
     finally:
+        done.set()
+        if writer.is_alive():
+            writer.join(30)
         os.close(master)
         os.close(slave)
     assert pipeline.error is None, pipeline.error

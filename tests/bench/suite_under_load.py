@@ -1,6 +1,6 @@
 """Run the whole suite several times in a row with a CPU hog on every core, as a busy CI machine would be.
 
-    .venv/bin/python tests/loaded.py [RUNS]      (also `make test-loaded`)
+    .venv/bin/python tests/bench/suite_under_load.py [RUNS]      (also `make test-loaded`)
 
 Prints each run's outcome and time; exits non-zero if any run failed. Not a test itself: it proves the suite
 waits on conditions rather than on the clock.
