@@ -406,3 +406,34 @@ def test_a_negative_rails_dip_towards_zero_is_the_one_drawn_as_low() -> None:
     width = len(lo) + 8  # the gutter, then one cell per column, then a newline
     columns = {(span.start % (width + 1)) - 8 for span in text.spans if span.style == low}
     assert columns == {2}
+
+
+def test_a_failed_run_keeps_the_screen_up_with_its_reason(start: Callable[..., Pipeline], monkeypatch) -> None:
+    """A run that stops on an error is sealed, and the screen stays with a red FAILED banner saying why until q;
+    the run says it failed, not that a user stopped it."""
+    from logger.core import Processor
+
+    feed, calls = Processor.feed, {"n": 0}
+
+    def failing(self, block):
+        calls["n"] += 1
+        if calls["n"] == 30:
+            raise RuntimeError("a detector fell over")
+        return feed(self, block)
+
+    monkeypatch.setattr(Processor, "feed", failing)
+    pipeline = start(speed=10.0)
+
+    async def run() -> None:
+        app = RailtapApp(pipeline)
+        async with app.run_test(size=SIZE) as pilot:
+            banner = app.query_one(Banner)
+            await _until(pilot, lambda: pipeline.wait(0) and "FAILED" in str(banner.content), 30.0)
+            assert banner.has_class("-alert") and "a detector fell over" in str(banner.content)
+            assert app.return_value is None  # still up: the reason is on screen until someone reads it
+            await _key(app, pilot, "q")
+            await _until(pilot, lambda: app.return_value is not None, 30.0)
+        assert "failed: internal error" in app.return_value
+
+    asyncio.run(run())
+    assert pipeline.final is not None and pipeline.final["stop_reason"].startswith("failed: internal error")

@@ -90,6 +90,7 @@ class RailtapApp(App[str]):
 
     def on_mount(self) -> None:
         self._polls = 0
+        self._failure_told = False
         for warning in self.pipeline.rig.warnings():
             self.notify(warning, severity="warning", timeout=15)
         self.set_interval(POLL_S, self.poll)
@@ -122,6 +123,12 @@ class RailtapApp(App[str]):
             if fresh_samples and self._polls % 2 == 0:
                 self.query_one(Trend).refresh()
         if not self.sealing and self.pipeline.wait(0):
+            if self.pipeline.error:  # stays up with the red FAILED banner until someone has read it
+                if not self._failure_told:
+                    self._failure_told = True
+                    self.notify("the run stopped on an error and its parts are sealed; q leaves", severity="error",
+                                timeout=24 * 3600)
+                return
             self._seal(f"run ended: {self.pipeline.stop_reason}")
 
     def on_data_table_row_highlighted(self, message: DataTable.RowHighlighted) -> None:
@@ -245,13 +252,14 @@ def run_screen(pipeline: Pipeline, grace_s: float = 5.0) -> str | None:
     If the terminal goes away (a closed window, a dropped SSH session), the hangup signal stops and seals the
     run, but the screen can then block for ever writing to the dead terminal. So once the run is sealed, the
     screen has ``grace_s`` to close; after that the process ends without it (exit status 129, as for a
-    hangup), its data already safe on disk.
+    hangup), its data already safe on disk. A run that stopped on an error keeps the screen up, its red banner
+    saying why, until someone presses q.
     """
     closed = threading.Event()
 
     def watch() -> None:
         pipeline.wait()
-        if not closed.wait(grace_s):
+        if pipeline.stop_reason == "stopped by signal" and not closed.wait(grace_s):  # the terminal went away
             os._exit(129)
 
     threading.Thread(target=watch, name="railtap-screen-watch", daemon=True).start()
