@@ -77,7 +77,7 @@ def _rig(meta: dict[str, Any], names: list[str]) -> Rig:
 
 def blocks(part: Path, names: list[str]) -> Iterator[tuple[pa.RecordBatch, Block]]:
     """Each row group of a part as a core block (counts in the rig's order), with the batch it came from."""
-    source = pq.ParquetFile(part)
+    source = pq.ParquetFile(part, page_checksum_verification=True)  # a damaged page fails, never misreads
     has_segment = SEGMENT in source.schema_arrow.names
     for batch in source.iter_batches(batch_size=row_group_rows(source.schema_arrow)):
         t = as_numpy(batch.column("device_us"), np.int64)

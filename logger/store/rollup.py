@@ -69,7 +69,7 @@ def feed_part(seconds: Seconds, part: Path) -> None:
 
 
 def _feed(seconds: Seconds, part: Path) -> None:
-    source = pq.ParquetFile(part)
+    source = pq.ParquetFile(part, page_checksum_verification=True)  # parts are written with page checksums
     channels = channels_of(source.schema_arrow)
     has_segment = SEGMENT in source.schema_arrow.names
     columns = ["utc", "device_us", "seq", *([SEGMENT] if has_segment else []), *channels]
