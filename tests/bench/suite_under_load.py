@@ -2,7 +2,8 @@
 
     .venv/bin/python tests/bench/suite_under_load.py [RUNS]      (also `make test-loaded`)
 
-Prints each run's outcome (pytest's summary line, with its time); exits non-zero if any run failed. Not a test itself: it proves the suite
+Prints each run's outcome (pytest's summary line, with its time); exits non-zero if any run failed. Not
+a test itself: it proves the suite
 waits on conditions rather than on the clock.
 """
 
@@ -31,7 +32,7 @@ def main() -> int:
             done = subprocess.run([sys.executable, "-m", "pytest", "-p", "no:cacheprovider"],
                                   capture_output=True, text=True)
             last = (done.stdout.strip().splitlines() or ["(no output)"])[-1]
-            print(f"run {n} of {runs} with {len(hogs)} CPU hogs: {last}", flush=True)  # pytest's own summary has the time
+            print(f"run {n} of {runs} with {len(hogs)} CPU hogs: {last}", flush=True)  # the summary has the time
             if done.returncode:
                 failed += 1
                 print("\n".join(line for line in done.stdout.splitlines() if line.startswith("FAILED")), flush=True)
