@@ -3,8 +3,7 @@
     .venv/bin/python tests/bench/suite_under_load.py [RUNS]      (also `make test-loaded`)
 
 Prints each run's outcome (pytest's summary line, with its time); exits non-zero if any run failed. Not
-a test itself: it proves the suite
-waits on conditions rather than on the clock.
+a test itself: it shows the suite waits on conditions rather than on the clock.
 """
 
 from __future__ import annotations
