@@ -241,3 +241,44 @@ def test_a_damaged_page_inside_a_part_is_named(tmp_path: Path, capsys, full: boo
     err = capsys.readouterr().err.strip().splitlines()
     assert code in (1, 2) and len(err) == 1 and err[0].startswith("railtap: "), err
     assert "part-00000.parquet" in err[0] or "damaged" in err[0]
+
+
+@pytest.mark.parametrize("damage", ["truncated", "flipped page"])
+@pytest.mark.parametrize("full", [False, True])
+def test_review_leaves_out_a_damaged_part_and_says_the_run_is_incomplete(tmp_path: Path, capsys, damage: str,
+                                                                          full: bool) -> None:
+    """A three-part run whose middle part is damaged: review prints the figures of the other two, names the
+    part in an INCOMPLETE line and exits 3; the sample count is exactly what the two readable parts hold
+    (common practice, no source: a reader that cannot vouch for a file leaves it out and says so)."""
+    import pyarrow.parquet as pq
+
+    t = np.arange(0, 30.0, 1 / 100)
+    run = _write_run(tmp_path, t, 12.0 + 0.1 * np.sin(t), np.full(len(t), 1.0), rate_hz=100.0, part_seconds=10.0)
+    parts = sorted(run.glob("part-*.parquet"))
+    assert len(parts) == 3
+    middle = parts[1]
+    readable = sum(pq.read_metadata(p).num_rows for p in (parts[0], parts[2]))
+    for rollup in run.glob("_rollup-*.parquet"):
+        rollup.unlink()
+    if damage == "truncated":
+        middle.write_bytes(middle.read_bytes()[:2000])
+    else:
+        column = pq.read_metadata(middle).row_group(0).column(4)
+        data = bytearray(middle.read_bytes())
+        start = column.dictionary_page_offset or column.data_page_offset
+        for i in range(start + 40, min(start + column.total_compressed_size, len(data)) - 8, 7):
+            data[i] ^= 0x5A
+        middle.write_bytes(bytes(data))
+    s = summarize(run, full=full)
+    assert s.samples == readable and len(s.skipped) == 1 and middle.name in s.skipped[0]
+    capsys.readouterr()
+    code = main(["review", str(run), *(["--full"] if full else []), "--plot", str(tmp_path / "png")])
+    out, err = capsys.readouterr()
+    assert code == 3
+    assert "INCOMPLETE" in out and middle.name in out
+    assert [line for line in err.splitlines() if line.startswith("railtap: ")] == [
+        f"railtap: incomplete: {s.skipped[0]}"]
+    assert (tmp_path / "png" / f"{run.name}-overview.png").exists()
+    assert main(["review", str(tmp_path)]) == 3 and "INCOMPLETE" in capsys.readouterr().out  # a folder of runs
+    assert main(["export", str(run), str(tmp_path / "out.csv")]) in (1, 2)  # export refuses, naming the part
+    assert middle.name in capsys.readouterr().err

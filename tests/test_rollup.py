@@ -93,7 +93,7 @@ def test_rollups_of_several_parts_carry_the_interval_between_them(tmp_path: Path
     seq = _seq(utc)
     for index, rows in enumerate((slice(0, cut), slice(cut, None))):
         _part(tmp_path / f"part-{index:05d}.parquet", utc[rows], volts[rows], amps[rows], seq=seq[rows])
-    table = read_rollups(tmp_path, [Pair("out", "out_v", "out_a")])
+    table = read_rollups(tmp_path, [Pair("out", "out_v", "out_a")]).table
     assert (tmp_path / "_rollup-00001.parquet").exists()
     assert sum(table["out_v_int"].to_pylist()) == pytest.approx(_integral(utc, volts.astype(np.float64)), rel=1e-12)
 

@@ -76,7 +76,7 @@ def run_rollups(folder: Path) -> pa.Table:
     meta = read_run_json(folder)
     if not parts_in(folder):
         raise StoreError(f"{folder}: no sealed parts; if the run was cut short, run `railtap recover {folder}`")
-    rollups = read_rollups(folder, run_pairs(meta), gap_us(meta))
+    rollups = read_rollups(folder, run_pairs(meta), gap_us(meta)).table
     if not rollups.num_rows or not pc.sum(rollups["count"]).as_py():
         raise StoreError(f"{folder}: no samples were recorded; nothing to draw")
     return rollups

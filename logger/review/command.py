@@ -1,7 +1,8 @@
 """The after-the-test commands: ``railtap review``, ``export``, ``report`` and ``compare``.
 
 Thin: each parses its options, calls the review modules and prints. Errors are :class:`StoreError` lines, which
-the main command line prints with exit status 2.
+the main command line prints with exit status 2. A review that had to leave out a damaged part prints its
+figures, says so, and exits with :data:`INCOMPLETE`.
 """
 
 from __future__ import annotations
@@ -14,6 +15,9 @@ from logger.review.progress import Bar
 from logger.review.show import show
 from logger.store.check import check_readable
 from logger.store.files import StoreError
+
+INCOMPLETE = 3
+"""Exit status of a review that printed its figures without a part it could not read."""
 
 
 def add_review_commands(sub: argparse._SubParsersAction) -> None:
@@ -64,7 +68,7 @@ def cmd_review(args: argparse.Namespace) -> int:
     folder: Path = args.folder
     if not (folder / "_run.json").exists():
         return _review_many(folder)
-    check_readable(folder)
+    check_readable(folder, parts=args.event is not None)  # the summary leaves out a damaged part and says so
     channels = _channels(args.channels)
     if args.event is not None:
         from logger.review.window import around_event
@@ -82,7 +86,9 @@ def cmd_review(args: argparse.Namespace) -> int:
         print()
         show(events_text(folder))
     _run_pictures(folder, [c.name for c in summary.channels if not channels or c.name in channels], args)
-    return 0
+    for line in summary.skipped:
+        print(f"railtap: incomplete: {line}", file=sys.stderr)
+    return INCOMPLETE if summary.skipped else 0
 
 
 def _event_pictures(folder: Path, window, args: argparse.Namespace) -> None:
@@ -166,8 +172,9 @@ def _review_many(root: Path) -> int:
             raise StoreError(f"{root}: {len(cut)} run(s) here were cut short and are not sealed yet; seal them with "
                              f"`railtap recover {root}`")
         raise StoreError(f"{root}: not a run folder (no _run.json) and no run folders in it")
-    show(runs_text(summarize_runs(root)))
-    return 0
+    lines = summarize_runs(root)
+    show(runs_text(lines))
+    return INCOMPLETE if any(line.summary is None or line.summary.skipped for line in lines) else 0
 
 
 def cmd_export(args: argparse.Namespace) -> int:

@@ -19,6 +19,7 @@ import pyarrow.csv as pacsv
 import pyarrow.dataset as ds
 
 from logger.review.window import pick_channels
+from logger.store.check import naming_damage, parts_dataset
 from logger.store.files import StoreError, read_run_json
 
 FORMATS = ("csv", "jsonl")
@@ -84,7 +85,7 @@ def export_samples(
     fmt = path.suffix.lstrip(".").lower()
     if fmt not in FORMATS:
         raise StoreError(f"{path}: say .csv or .jsonl, the format is taken from the name")
-    data = ds.dataset(folder, format="parquet")
+    data = parts_dataset(folder)
     chosen = pick_channels(folder, data.schema, channels)
     columns = ["utc", *[c for name in chosen for c in ((name, f"{name}_counts") if counts else (name,))]]
     # Little read-ahead: memory stays near one batch per core however long the run.
@@ -93,7 +94,8 @@ def export_samples(
     total = data.count_rows() if progress is not None else 0
     tmp = path.with_name(f".{path.name}.part")
     try:
-        rows = _write(scanner, tmp, fmt, total, progress)
+        with naming_damage(folder):
+            rows = _write(scanner, tmp, fmt, total, progress)
         os.replace(tmp, path)
     finally:
         tmp.unlink(missing_ok=True)

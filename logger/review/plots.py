@@ -9,6 +9,7 @@ renamed into place, so an interrupted plot leaves no half-written PNG.
 
 from __future__ import annotations
 
+import contextlib
 import os
 from collections.abc import Callable, Iterator
 from contextlib import contextmanager
@@ -16,7 +17,7 @@ from pathlib import Path
 from typing import Any
 
 import numpy as np
-import pyarrow.parquet as pq
+import pyarrow as pa
 
 from logger.core.seconds import SECOND_US
 from logger.review.chart import (
@@ -38,6 +39,7 @@ from logger.review.chart import (
     zone_text,
 )
 from logger.review.window import Window
+from logger.store.check import open_part
 from logger.store.files import RUN_JSON, StoreError
 from logger.store.layout import parts_in
 
@@ -160,13 +162,20 @@ def _histogram(folder: Path, channel: str, bins: int,
     counts = np.zeros(bins, dtype=np.int64)
     parts = parts_in(folder)
     for n, (_, part) in enumerate(parts, start=1):
-        source = pq.ParquetFile(part)
-        for group in range(source.num_row_groups):
-            values = source.read_row_group(group, columns=[channel]).column(0).to_numpy().astype(np.float64)
-            counts += np.histogram(values, edges)[0]
+        with contextlib.suppress(OSError, pa.ArrowException):  # a damaged part is left out, as the summary does
+            counts += _part_histogram(part, channel, edges)
         if progress is not None:
             progress(n, len(parts))
     return counts, edges, mean
+
+
+def _part_histogram(part: Path, channel: str, edges: np.ndarray) -> np.ndarray:
+    source = open_part(part)
+    counts = np.zeros(len(edges) - 1, dtype=np.int64)
+    for group in range(source.num_row_groups):
+        values = source.read_row_group(group, columns=[channel]).column(0).to_numpy().astype(np.float64)
+        counts += np.histogram(values, edges)[0]
+    return counts
 
 
 def histogram_png(folder: Path, channel: str, path: Path, bins: int = 200,

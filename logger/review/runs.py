@@ -15,6 +15,7 @@ import pyarrow.dataset as ds
 import pyarrow.parquet as pq
 
 from logger.review.summary import Summary, summarize
+from logger.store.check import parts_dataset
 from logger.store.files import StoreError
 from logger.store.layout import parts_in
 
@@ -37,7 +38,7 @@ def open_runs(root: Path) -> ds.Dataset:
     run_field = pa.schema([("run", pa.string())])
     schema = pa.unify_schemas([pq.read_schema(parts_in(run)[0][1]).remove_metadata() for run in runs] + [run_field])
     partitioning = ds.partitioning(run_field)
-    return ds.dataset(files, schema=schema, format="parquet", partitioning=partitioning,
+    return parts_dataset(files, schema=schema, partitioning=partitioning,
                       partition_base_dir=str(root))
 
 
@@ -69,6 +70,7 @@ def runs_text(lines: list[RunLine]) -> str:
             continue
         count = {k: sum(e.count for e in s.events if e.kind == k) for k in ("brownout", "dropout")}
         rails = ", ".join(f"{r.rail} {r.charge_ah:.4g} Ah {r.energy_wh:.4g} Wh" for r in s.rails) or "-"
-        out.append(f"| {line.folder.name} | {s.duration_s / 3600:.2f} h | {s.samples:,} | {count['brownout']} "
+        name = line.folder.name + (f" (INCOMPLETE: {len(s.skipped)} damaged part(s) left out)" if s.skipped else "")
+        out.append(f"| {name} | {s.duration_s / 3600:.2f} h | {s.samples:,} | {count['brownout']} "
                    f"| {count['dropout']} | {s.gaps} | {rails} |")
     return "\n".join(out)

@@ -10,9 +10,7 @@ detectors timed them), gaps, and the events by kind with counts, worst depth and
 
 from __future__ import annotations
 
-import os
 from collections.abc import Callable
-from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
 from datetime import datetime
 from pathlib import Path
@@ -25,7 +23,7 @@ import pyarrow.parquet as pq
 from logger.rig import RigError, parse_rig
 from logger.store.files import StoreError, read_run_json
 from logger.store.layout import EVENTS_PARQUET, parts_in
-from logger.store.rollup import Pair, gap_us, last_sample, pairs_of, read_rollups, rollup_part
+from logger.store.rollup import Pair, gap_us, last_sample, pairs_of, read_rollups
 
 GAP_KINDS = ("frame_gap", "link_lost")
 
@@ -85,6 +83,8 @@ class Summary:
     calibration: dict[str, str]
     link: dict[str, Any] = field(default_factory=dict)
     source: str = "rollups"
+    skipped: tuple[str, ...] = ()
+    """Parts left out because they cannot be read, one line each: the figures are then incomplete."""
 
 
 def summarize(folder: Path, *, full: bool = False, progress: Callable[[int, int], None] | None = None) -> Summary:
@@ -93,8 +93,10 @@ def summarize(folder: Path, *, full: bool = False, progress: Callable[[int, int]
     if not parts_in(folder):
         raise StoreError(f"{folder}: no sealed parts; if the run was cut short, run `railtap recover {folder}`")
     pairs = run_pairs(meta)
-    limit = gap_us(meta)
-    table = _full_scan(folder, pairs, limit, progress) if full else read_rollups(folder, pairs, limit)
+    rollups = read_rollups(folder, pairs, gap_us(meta), full=full, progress=progress if full else None)
+    if not rollups.table.num_columns:
+        raise StoreError(f"no part of {folder} can be read: " + rollups.skipped[0])
+    table = rollups.table
     events = pq.read_table(folder / EVENTS_PARQUET) if (folder / EVENTS_PARQUET).exists() else None
     units = {c["name"]: c.get("unit", "") for c in meta.get("channels_info", [])}
     channels = [n for n in units if f"{n}_int" in table.column_names] or _channels_in(table)
@@ -115,6 +117,7 @@ def summarize(folder: Path, *, full: bool = False, progress: Callable[[int, int]
                      + _changes_text(meta.get("calibration_changes", []), c) for c in channels},
         link=meta.get("link", {}),
         source="full-rate scan" if full else "per-second rollups",
+        skipped=rollups.skipped,
     )
 
 
@@ -132,32 +135,18 @@ def run_pairs(meta: dict[str, Any]) -> list[Pair]:
 
 def _device_span_s(folder: Path, first: str | None, last: str | None) -> float:
     """From the first sample to the last on the device clock (the axis every duration is measured on); between
-    the UTC labels only for a run without samples to read."""
+    the UTC labels only for a run without a readable sample at either end."""
     parts = [path for _, path in parts_in(folder)]
-    head = pq.ParquetFile(parts[0]) if parts else None
-    if head is not None and head.metadata.num_rows and (end := last_sample(parts[-1])) is not None:
-        start = head.read_row_group(0, columns=["device_us"]).column(0)[0].as_py()
-        return (end.device_us - int(start)) / 1e6
+    try:
+        head = pq.ParquetFile(parts[0]) if parts else None
+        if head is not None and head.metadata.num_rows and (end := last_sample(parts[-1])) is not None:
+            start = head.read_row_group(0, columns=["device_us"]).column(0)[0].as_py()
+            return (end.device_us - int(start)) / 1e6
+    except (OSError, pa.ArrowException):
+        pass  # a damaged first or last part: the summary names it
     if not first or not last:
         return 0.0
     return (datetime.fromisoformat(last) - datetime.fromisoformat(first)).total_seconds()
-
-
-def _full_scan(folder: Path, pairs: list[Pair], limit_us: int,
-               progress: Callable[[int, int], None] | None) -> pa.Table:
-    """The rollup rows again, from every sample of every part. Parts are independent once each is given the
-    last sample of the one before (read from its last row group), so they are scanned on every core."""
-    parts = [path for _, path in parts_in(folder)]
-    carries = [None] + [last_sample(part) for part in parts[:-1]]
-    with ThreadPoolExecutor(max_workers=os.cpu_count() or 1) as pool:
-        futures = [pool.submit(rollup_part, part, pairs, carry, limit_us) for part, carry in zip(parts, carries,
-                                                                                                  strict=True)]
-        tables = []
-        for n, future in enumerate(futures, start=1):
-            tables.append(future.result())
-            if progress is not None:
-                progress(n, len(parts))
-    return pa.concat_tables(tables)
 
 
 def _channels_in(table: pa.Table) -> list[str]:

@@ -13,7 +13,6 @@ from pathlib import Path
 from typing import Any
 
 import numpy as np
-import pyarrow.dataset as ds
 from rich.style import Style
 from rich.text import Text
 
@@ -32,6 +31,7 @@ from logger.review.chart import (
     utc_us,
 )
 from logger.review.window import around_event
+from logger.store.check import naming_damage, parts_dataset
 from logger.store.files import StoreError
 from logger.textplot import DEFAULT_STYLES, GUTTER, draw_columns, value_range
 
@@ -55,7 +55,8 @@ def run_chart(folder: Path, channel: str, width: int = 80, height: int = 16) -> 
         lo, hi = fold(t, rollups[f"{channel}_min"].to_numpy()[count > 0],
                       rollups[f"{channel}_max"].to_numpy()[count > 0], start, stop, columns)
     else:
-        table = ds.dataset(folder, format="parquet").to_table(columns=["utc", channel])
+        with naming_damage(folder):
+            table = parts_dataset(folder).to_table(columns=["utc", channel])
         t_all = utc_us(table["utc"])
         start, stop = int(t_all.min()), int(t_all.max()) + 1
         values = table[channel].to_numpy().astype(np.float64)

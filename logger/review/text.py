@@ -42,6 +42,9 @@ def summary_text(s: Summary) -> str:
         else "device clock drift: not measured",
         f"figures from the {s.source}",
     ]
+    if s.skipped:
+        head[1:1] = [f"INCOMPLETE: {len(s.skipped)} part(s) could not be read and are left out of every figure "
+                     "below: " + "; ".join(s.skipped)]
     lines = [
         *(line + "  " for line in head[:-1]),  # two spaces: a line break where the text is read as Markdown
         head[-1],

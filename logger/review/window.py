@@ -14,9 +14,9 @@ from typing import Any
 
 import pyarrow as pa
 import pyarrow.compute as pc
-import pyarrow.dataset as ds
 import pyarrow.parquet as pq
 
+from logger.store.check import naming_damage, parts_dataset
 from logger.store.files import StoreError
 from logger.store.layout import EVENTS_PARQUET
 from logger.store.schema import channels_of
@@ -34,11 +34,12 @@ class Window:
 
 def samples_between(folder: Path, start: datetime, end: datetime, channels: list[str] | None = None) -> pa.Table:
     """Rows with ``start <= utc <= end`` (UTC datetimes), columns ``utc`` and the chosen channels."""
-    data = ds.dataset(folder, format="parquet")
+    data = parts_dataset(folder)
     chosen = pick_channels(folder, data.schema, channels)
     when = (pc.field("utc") >= pa.scalar(start, data.schema.field("utc").type)) & (
         pc.field("utc") <= pa.scalar(end, data.schema.field("utc").type))
-    return data.to_table(columns=["utc", *chosen], filter=when).sort_by("utc")
+    with naming_damage(folder):
+        return data.to_table(columns=["utc", *chosen], filter=when).sort_by("utc")
 
 
 def pick_channels(folder: Path, schema: pa.Schema, channels: list[str] | None) -> list[str]:

@@ -23,6 +23,7 @@ from logger.core import Block, Change, Processor
 from logger.events.model import Event
 from logger.rig import Rig, RigError, parse_rig
 from logger.store.arrays import as_numpy
+from logger.store.check import open_part
 from logger.store.episodes import link_episodes
 from logger.store.files import StoreError, read_run_json, write_json_atomic
 from logger.store.layout import EVENTS_PARQUET, parts_in
@@ -77,7 +78,7 @@ def _rig(meta: dict[str, Any], names: list[str]) -> Rig:
 
 def blocks(part: Path, names: list[str]) -> Iterator[tuple[pa.RecordBatch, Block]]:
     """Each row group of a part as a core block (counts in the rig's order), with the batch it came from."""
-    source = pq.ParquetFile(part, page_checksum_verification=True)  # a damaged page fails, never misreads
+    source = open_part(part)
     has_segment = SEGMENT in source.schema_arrow.names
     for batch in source.iter_batches(batch_size=row_group_rows(source.schema_arrow)):
         t = as_numpy(batch.column("device_us"), np.int64)

@@ -13,7 +13,9 @@ from __future__ import annotations
 import contextlib
 import os
 import threading
+from collections.abc import Callable
 from concurrent.futures import Future, ThreadPoolExecutor
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
@@ -24,8 +26,9 @@ import pyarrow.parquet as pq
 from logger.core.gaps import GAP_S
 from logger.core.seconds import STATS, Carry, Pair, Seconds
 from logger.store.arrays import as_numpy, from_numpy
-from logger.store.files import StoreError, fsync_dir, one_line
-from logger.store.layout import parts_in
+from logger.store.check import damaged_part, open_part
+from logger.store.files import StoreError, fsync_dir
+from logger.store.layout import part_name, parts_in
 from logger.store.schema import UTC_TYPE, channels_of
 from logger.store.seal import temp_name
 
@@ -64,12 +67,11 @@ def feed_part(seconds: Seconds, part: Path) -> None:
     try:
         _feed(seconds, part)
     except (OSError, pa.ArrowException) as exc:
-        raise StoreError(f"{part} is damaged ({one_line(str(exc))}); move it out of the run folder to review "
-                         "the rest") from None
+        raise StoreError(damaged_part(part, exc)) from None
 
 
 def _feed(seconds: Seconds, part: Path) -> None:
-    source = pq.ParquetFile(part, page_checksum_verification=True)  # parts are written with page checksums
+    source = open_part(part)
     channels = channels_of(source.schema_arrow)
     has_segment = SEGMENT in source.schema_arrow.names
     columns = ["utc", "device_us", "seq", *([SEGMENT] if has_segment else []), *channels]
@@ -84,7 +86,11 @@ def rollup_part(part: Path, pairs: list[Pair], carry: Carry | None = None, gap: 
                 ) -> pa.Table:
     """The per-second rollup of one sealed part. ``carry`` is the last sample of the part before, whose
     interval to this part's first sample counts here."""
-    seconds = Seconds(channels_of(pq.read_schema(part)), pairs, gap, carry)
+    try:
+        channels = channels_of(pq.read_schema(part))
+    except (OSError, pa.ArrowException) as exc:
+        raise StoreError(damaged_part(part, exc)) from None
+    seconds = Seconds(channels, pairs, gap, carry)
     feed_part(seconds, part)
     return rollup_table(seconds)
 
@@ -109,7 +115,7 @@ def rollup_table(seconds: Seconds) -> pa.Table:
 
 def last_sample(part: Path) -> Carry | None:
     """The last row of a part, read from its last row group only."""
-    source = pq.ParquetFile(part)
+    source = open_part(part)
     if source.metadata.num_rows == 0:
         return None
     channels = channels_of(source.schema_arrow)
@@ -127,8 +133,7 @@ def write_rollup(folder: Path, index: int, pairs: list[Pair], gap: int = round(G
     """Write the rollup of part ``index`` (carrying the previous part's last sample), atomically."""
     parts = dict(parts_in(folder))
     before = [i for i in parts if i < index]
-    carry = last_sample(parts[max(before)]) if before else None
-    table = rollup_part(parts[index], pairs, carry, gap)
+    table = rollup_part(parts[index], pairs, _carry(parts[max(before)]) if before else None, gap)
     target = folder / rollup_name(index)
     tmp = temp_name(target)
     try:
@@ -172,17 +177,70 @@ class RollupQueue:
             self._pool = None
 
 
-def read_rollups(folder: Path, pairs: list[Pair], gap: int = round(GAP_S * 1e6)) -> pa.Table:
-    """Every part's rollup, in order; those missing (an older run, a crash between sealing a part and
-    writing its rollup), of an older layout or lacking a rail asked for are written first."""
-    tables = []
-    wanted = {"device_s", *(f"{p.rail}_w_int" for p in pairs)}
-    for index, _ in parts_in(folder):
-        path = folder / rollup_name(index)
-        if not _usable(path, wanted):
-            write_rollup(folder, index, pairs, gap)
-        tables.append(pq.read_table(path))
-    return pa.concat_tables(tables) if tables else pa.table({})
+@dataclass(frozen=True)
+class Rollups:
+    """A run's per-second rows, and the parts left out of them because they cannot be read."""
+
+    table: pa.Table
+    skipped: tuple[str, ...] = ()
+    """One line per part left out, naming it and what is wrong with it."""
+
+
+def read_rollups(folder: Path, pairs: list[Pair], gap: int = round(GAP_S * 1e6), *, full: bool = False,
+                 progress: Callable[[int, int], None] | None = None) -> Rollups:
+    """Every part's per-second rows, in order: from its rollup file, or (``full``) from every sample again.
+
+    A rollup that is missing (an older run, a crash between sealing a part and writing its rollup), of an older
+    layout or lacking a rail asked for is written first. A part that cannot be read is left out and named in
+    ``skipped``; the interval across it is not counted. The full scan runs its parts on every core: parts are
+    independent once each is given the last sample of the one before (read from its last row group)."""
+    parts = parts_in(folder)
+    if full:
+        jobs = [(part, _carry(parts[n - 1][1]) if n else None) for n, (_, part) in enumerate(parts)]
+        with ThreadPoolExecutor(max_workers=os.cpu_count() or 1) as pool:
+            futures = [pool.submit(rollup_part, part, pairs, carry, gap) for part, carry in jobs]
+            results = [_outcome(part, future.result, progress, n, len(parts))
+                       for n, ((_, part), future) in enumerate(zip(parts, futures, strict=True), 1)]
+    else:
+        wanted = {"device_s", *(f"{p.rail}_w_int" for p in pairs)}
+        results = [_outcome(part, lambda i=index: _rollup_of(folder, i, pairs, gap, wanted), progress, n,
+                            len(parts)) for n, (index, part) in enumerate(parts, 1)]
+    tables = [r for r in results if isinstance(r, pa.Table)]
+    return Rollups(pa.concat_tables(tables) if tables else pa.table({}),
+                   tuple(r for r in results if isinstance(r, str)))
+
+
+def _rollup_of(folder: Path, index: int, pairs: list[Pair], gap: int, wanted: set[str]) -> pa.Table:
+    """A part's rollup; only while the part itself still opens (its samples are what the rollup vouches for)."""
+    pq.read_metadata(folder / part_name(index))
+    path = folder / rollup_name(index)
+    if not _usable(path, wanted):
+        write_rollup(folder, index, pairs, gap)
+    return pq.read_table(path)
+
+
+def _outcome(part: Path, read: Callable[[], pa.Table], progress: Callable[[int, int], None] | None, n: int,
+             of: int) -> pa.Table | str:
+    """A part's rows, or the one line that says why it cannot be read."""
+    try:
+        table = read()
+    except StoreError as exc:
+        return str(exc)
+    except (OSError, pa.ArrowException) as exc:
+        return damaged_part(part, exc)
+    finally:
+        if progress is not None:
+            progress(n, of)
+    return table
+
+
+def _carry(part: Path) -> Carry | None:
+    """The last sample of the part before, or none when that part cannot be read (the interval across a damaged
+    part is not counted)."""
+    try:
+        return last_sample(part)
+    except (OSError, pa.ArrowException):
+        return None
 
 
 def _usable(path: Path, wanted: set[str]) -> bool:
