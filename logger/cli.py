@@ -26,6 +26,7 @@ from logger.rig import Rig, RigError, demo_rig_text, load_rig
 from logger.sim.spec import ScenarioError
 from logger.sources.base import Source, SourceError
 from logger.store import StoreError
+from logger.store.files import check_writable
 
 if TYPE_CHECKING:
     from logger.sim.scenario import Scenario
@@ -334,11 +335,17 @@ def cmd_recover(args: argparse.Namespace) -> int:
             raise UsageError(f"{path}: not a run folder or a folder of runs")
     if not runs:
         print("nothing to recover", file=sys.stderr)
-    for run in runs:
-        meta = _recover(run)
+    failed = 0
+    for run in runs:  # one run that cannot be recovered does not hold up the others
+        try:
+            meta = _recover(run)
+        except StoreError as exc:
+            print(f"railtap: {exc}", file=sys.stderr)
+            failed += 1
+            continue
         print(f"{run}: {meta.get('status')}, {meta.get('rows', 0)} rows in {len(meta.get('parts', []))} part(s), "
               f"{meta.get('events', 0)} events")
-    return 0
+    return 2 if failed else 0
 
 
 def cmd_rig_init(args: argparse.Namespace) -> int:
@@ -411,6 +418,7 @@ def _sim_source(scenario: Scenario, speed: float | None, seed: int) -> Source:
 def _record(source: Source, rig: Rig, args: argparse.Namespace, screen: bool = False) -> int:
     """Record until stopped, showing the live screen (``screen``) or status lines; then seal and report."""
     use_lean_allocator()
+    check_writable(args.out)
     _recover_leftovers(args.out)
     settings = Settings(
         record_root=args.out,
@@ -497,7 +505,11 @@ def _recover_leftovers(root: Path) -> None:
     if not root.is_dir():
         return
     for run in find_unfinished(root):
-        meta = _recover(run)
+        try:
+            meta = _recover(run)
+        except StoreError as exc:  # an old run that cannot be sealed must not stop a new recording
+            print(f"railtap: warning: {exc}; recording goes on, run `railtap recover {run}` later", file=sys.stderr)
+            continue
         print(f"railtap: recovered {run} ({meta.get('rows', 0)} rows) left by an unclean stop", file=sys.stderr)
 
 

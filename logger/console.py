@@ -37,6 +37,8 @@ def report(pipeline: Pipeline) -> int:
     print(f"frames {link.frames}, lost {link.lost}, rejected lines {link.rejected} (bad CRC {link.bad_crc}), "
           f"device resets {link.resets}, reconnects {link.reconnects}, device clock drift {drift}")
     if pipeline.error:
+        if pipeline.crash and not pipeline.sealed:  # no run folder to keep the traceback in
+            print(pipeline.crash, file=sys.stderr, end="")
         print(f"railtap: {pipeline.error}", file=sys.stderr)
         return 1
     return 0

@@ -177,3 +177,40 @@ def test_a_plain_byte_dump_is_labelled_from_start_or_its_file_time(tmp_path: Pat
     assert [d["duration_s"].item() for d in dips] == [pytest.approx(0.25, abs=1e-3)] * 2
     assert main(["record", "--sim", "--start", "2026-11-30T22:15:00Z", "--out", str(tmp_path / "x")]) == 2
     assert "--start is for --replay" in _error_line(capsys)
+
+
+def test_an_output_folder_that_cannot_be_written_is_refused_before_recording(tmp_path: Path, capsys) -> None:
+    """A path through a plain file (unwritable even for root, so the test holds on CI): one line naming the
+    folder, exit 2, and no sample is read."""
+    (tmp_path / "a-file").write_text("not a folder")
+    out = tmp_path / "a-file" / "runs"
+    assert main(["record", "--sim", "--speed", "0", "--duration", "2", "--out", str(out), "--quiet"]) == 2
+    line = _error_line(capsys)
+    assert str(out) in line and "--out" in line and "not a folder" in line
+
+
+def test_recover_goes_on_past_a_run_it_cannot_seal(tmp_path: Path, capsys, monkeypatch) -> None:
+    """Two runs cut short, one of which cannot be written: the other is sealed, the first named in one line,
+    and the exit status says that not everything was recovered; a recording into that folder still starts."""
+    import logger.store as store
+    from logger.store import RunWriter, StoreError, sample_schema
+
+    for name in ("a-stuck", "b-fine"):
+        RunWriter(tmp_path / name, sample_schema(["out_v"]), {}).abandon()
+    real = store.recover_run
+
+    def stuck(folder: Path) -> dict:
+        if folder.name == "a-stuck":
+            raise StoreError(f"cannot recover {folder}: read-only file system writing {folder}/_run.lock")
+        return real(folder)
+
+    monkeypatch.setattr(store, "recover_run", stuck)
+    assert main(["recover", str(tmp_path)]) == 2
+    captured = capsys.readouterr()
+    assert [line for line in captured.err.splitlines() if line.startswith("railtap:")] == [
+        f"railtap: cannot recover {tmp_path / 'a-stuck'}: read-only file system writing "
+        f"{tmp_path / 'a-stuck'}/_run.lock"]
+    assert "b-fine: recovered" in captured.out
+    code = main(["record", "--sim", "--speed", "0", "--duration", "1", "--out", str(tmp_path), "--quiet"])
+    err = capsys.readouterr().err
+    assert code == 0 and "warning: cannot recover" in err and "recording goes on" in err

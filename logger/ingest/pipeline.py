@@ -32,7 +32,7 @@ from logger.ingest.state import RateMeter, Ring, Snapshot
 from logger.ingest.stream import Processed, SampleStream
 from logger.rig import Rig, RigError
 from logger.sources.base import Chunk, LinkLost, Source, SourceError
-from logger.store import sample_batch, sample_schema
+from logger.store import StoreError, sample_batch, sample_schema
 from logger.timebase import TimeBase
 from logger.wire import Answer, Decoder, DeviceHeader, FrameBatch, encode_line
 
@@ -240,12 +240,13 @@ class Pipeline:
                     self._fail(recorder.error or "the recorder stopped")
                     break
             self._drain()
-        except (RigError, SourceError) as exc:
+        except (RigError, SourceError, StoreError) as exc:
             self._fail(str(exc))
         except Exception as exc:  # a bug: still seal what was recorded, say so in one line, keep the details
             self.crash = traceback.format_exc()
+            kept = "in the run's _run.json, under crash" if self.recorder is not None else "printed above"
             self._fail(f"internal error, please report it: {type(exc).__name__}: {exc} (the traceback is kept "
-                       "in the run's _run.json, under crash)")
+                       f"{kept})")
         finally:
             try:
                 self._finish()

@@ -10,6 +10,7 @@ import contextlib
 import errno
 import json
 import os
+import tempfile
 from datetime import UTC, date, datetime
 from pathlib import Path
 from typing import Any
@@ -96,6 +97,22 @@ def write_json_atomic(path: Path, data: dict[str, Any]) -> None:
     fsync_dir(path.parent)
 
 
+def check_writable(folder: Path) -> None:
+    """Make ``folder`` if needed and prove that a file can be written in it, before a recording starts: a wrong
+    or read-only output folder is one line at the start, not a failure once samples are flowing.
+
+    Raises:
+        StoreError: naming the folder and the reason (read-only, permission, not a folder...).
+    """
+    try:
+        folder.mkdir(parents=True, exist_ok=True)
+        handle, name = tempfile.mkstemp(prefix="_railtap-check-", suffix=".tmp", dir=folder)
+        os.close(handle)
+        os.unlink(name)
+    except OSError as exc:
+        raise StoreError(f"{os_error_text(exc, folder)}; choose an output folder you can write to (--out)") from None
+
+
 RUN_JSON_TYPES: dict[str, type] = {
     "parts": list, "link": dict, "clock": dict, "power_pairs": list, "channels_info": list, "calibration": dict,
     "calibration_changes": list, "calibration_history": list, "status": str, "stop_reason": str, "rows": int,
@@ -168,7 +185,8 @@ class RunLock:
             fd = os.open(self.path, os.O_RDWR | os.O_CREAT, 0o644)
         except OSError as exc:
             problem = os_error_text(exc, self.path)
-            raise StoreError(f"{problem}; check the folder and its permissions") from None
+            raise StoreError(f"cannot {purpose} {self.path.parent}: {problem}; check the folder and its permissions, "
+                             "or copy the run folder to a disk you can write to") from None
         try:
             _lock_fd(fd)
         except OSError:
@@ -198,13 +216,20 @@ class RunLock:
 
 
 def lock_is_free(folder: Path) -> bool:
-    """True when no live process holds the run lock of ``folder``."""
-    lock = RunLock(folder)
+    """True when no live process holds the run lock of ``folder``. Checked through a read-only descriptor, so a
+    run on a read-only disk still shows as free (and its recovery then says why it cannot write)."""
     try:
-        lock.acquire("check")
-    except StoreError:
+        fd = os.open(folder / LOCK_FILE, os.O_RDONLY)
+    except FileNotFoundError:
+        return True
+    except OSError:
         return False
-    lock.release()
+    try:
+        _lock_fd(fd)
+    except OSError:
+        return False
+    finally:
+        os.close(fd)  # closing drops a lock taken here
     return True
 
 
