@@ -41,7 +41,7 @@ from devicestream import (
     make_source,
     play,
 )
-from hypothesis import HealthCheck, Phase, given, settings
+from hypothesis import HealthCheck, Phase, example, given, settings
 from hypothesis import strategies as st
 
 from logger.ingest import Pipeline, Settings
@@ -606,6 +606,11 @@ def timelines(draw: st.DrawFn) -> tuple[Device, Link]:
 @settings(max_examples=25, deadline=None, phases=(Phase.explicit, Phase.reuse, Phase.generate),
           suppress_health_check=[HealthCheck.too_slow, HealthCheck.data_too_large])
 @given(timelines())
+@example(case=(  # found by the search: a 73 s silence (a sequence wrap) 0.5 s after a restart, at -69 ppm
+    Device(rate_hz=1000.0, duration_s=78.59, drift_ppm=-69.0, first_seq=18622, first_clock_us=702, jitter_us=20,
+           script=(Reboot(3.7221, 0.3574, header=True, boot_clock_us=1000, cut_line=True), Dip(4.2748, 0.1, 0.0),
+                   Silence(4.5488, 72.995), Inconsistent(78.0192, -5323)), seed=90),
+    Link(read_s=0.001, idle_s=0.1, latency_s=0.002, jitter_s=6.1e-05, backlog_s=6.224, seed=166)))
 def test_any_link_and_script_keeps_the_timeline(tmp_path_factory: pytest.TempPathFactory,
                                                case: tuple[Device, Link]) -> None:
     """Whatever the reads, jitter and backlog, and whatever the script: every dip's duration and start within a

@@ -23,8 +23,15 @@ from logger.wire.frames import CLOCK_MODULUS, SEQ_MODULUS
 PERIOD_SLACK = 0.5
 """A step may differ from its sequence count times the period by this share of a period (timer jitter)."""
 RATE_TOLERANCE = 50e-6
-"""...plus this share of the step: the sampling timer and the clock share one oscillator, so only the
-period's estimate and timer rounding separate them (50 ppm, common practice, no source)."""
+"""...plus this share of the step: the sampling timer and the clock share one oscillator, so only timer
+rounding separates them (50 ppm, common practice, no source)...
+"""
+NOMINAL_TOLERANCE = 200e-6
+"""...plus how well the period is known: the header's nominal period is off by the crystal's tolerance (tens
+of ppm, up to about 100; common practice, no source), a measured one by its own estimate's uncertainty. Only
+long steps (silences) feel these shares; a single step is judged by PERIOD_SLACK."""
+MEASURED_AFTER = 100
+"""Frames of a segment after which its own average period replaces the nominal one."""
 HOST_SLACK_S = 2.0
 """Whole clock wraps in a silence are counted from the host's steady clock when it agrees within this (plus
 2 % of the silence); a wrap is 71.6 minutes, so a backlog of seconds cannot mislead it."""
@@ -64,7 +71,8 @@ class UnwrapCounters:
 
 
 def _steps(p_seq: np.ndarray, p_dev: np.ndarray, seq: np.ndarray, dev: np.ndarray, period: float,
-           clock_wraps: np.ndarray | int = 0) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+           clock_wraps: np.ndarray | int = 0, rate_tol: float = RATE_TOLERANCE + NOMINAL_TOLERANCE
+           ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Sequence and clock steps from frames ``p`` to frames ``seq, dev``, and whether they agree.
 
     The clock step (plus any whole clock wraps the host measured) says how many periods passed; the sequence
@@ -74,7 +82,7 @@ def _steps(p_seq: np.ndarray, p_dev: np.ndarray, seq: np.ndarray, dev: np.ndarra
     dseq_raw = (seq - p_seq) % SEQ_MODULUS
     wraps = np.maximum(np.rint((ddev / period - dseq_raw) / SEQ_MODULUS), 0).astype(np.int64)
     dseq = dseq_raw + wraps * SEQ_MODULUS
-    ok = (dseq >= 1) & (np.abs(ddev - dseq * period) <= PERIOD_SLACK * period + RATE_TOLERANCE * ddev)
+    ok = (dseq >= 1) & (np.abs(ddev - dseq * period) <= PERIOD_SLACK * period + rate_tol * ddev)
     return dseq, ddev, ok
 
 
@@ -92,6 +100,7 @@ class Unwrapper:
         self._last: tuple[int, int] | None = None  # last kept (seq, clock) unwrapped
         self._segment = 0
         self._origin: tuple[int, int] | None = None  # first (seq, clock) unwrapped of this segment
+        self._step_dev_us = 0.0  # largest deviation of a single step from the period since the origin
         self._restart_pending = False
         self._rate_changed = False
         self._last_arrival = math.nan  # host steady time by which the last kept frame had arrived
@@ -101,9 +110,24 @@ class Unwrapper:
     @property
     def period_us(self) -> float:
         """The sample period in device µs: the segment's own average once it has 100 frames, else nominal."""
-        if self._origin is None or self._last is None or self._last[0] - self._origin[0] < 100:
+        if not self._measured:
             return self.nominal_us
         return (self._last[1] - self._origin[1]) / (self._last[0] - self._origin[0])
+
+    @property
+    def rate_tolerance(self) -> float:
+        """How far the clock may stray from the sequence count times :attr:`period_us`, as a share of the step:
+        timer rounding, plus the nominal period's crystal tolerance or the measured period's uncertainty (the
+        average over a span is off by at most twice the largest single-step deviation seen, over the span)."""
+        if not self._measured:
+            return RATE_TOLERANCE + NOMINAL_TOLERANCE
+        span = self._last[1] - self._origin[1]
+        return RATE_TOLERANCE + 2 * self._step_dev_us / span
+
+    @property
+    def _measured(self) -> bool:
+        return self._origin is not None and self._last is not None and (
+            self._last[0] - self._origin[0] >= MEASURED_AFTER)
 
     @property
     def segment(self) -> int:
@@ -119,7 +143,7 @@ class Unwrapper:
         if abs(period - self.nominal_us) > 1e-9 * period:
             self._rate_changed = self._raw is not None
             if self._last is not None:
-                self._origin = self._last
+                self._origin, self._step_dev_us = self._last, 0.0
         self.nominal_us = period
 
     def feed(self, seq: np.ndarray, device_us: np.ndarray, arrival: float = math.nan,
@@ -161,7 +185,7 @@ class Unwrapper:
                 self.counters.inconsistent += 1
                 first = 1
             self._raw = self._last = (int(seq[first]) - 1, int(dev[first]) - round(self.nominal_us))
-        d.ok = self._in_step(seq, dev, 0, self._raw, self.period_us)
+        d.ok = self._in_step(seq, dev, 0, self._raw, self.period_us, self.rate_tolerance)
         if first is not None:
             d.ok[first] = True
         if self._rate_changed:
@@ -173,12 +197,13 @@ class Unwrapper:
         return d
 
     @staticmethod
-    def _in_step(seq: np.ndarray, dev: np.ndarray, start: int, before: tuple[int, int], period: float) -> np.ndarray:
+    def _in_step(seq: np.ndarray, dev: np.ndarray, start: int, before: tuple[int, int], period: float,
+                 rate_tol: float) -> np.ndarray:
         """Whether each row from ``start`` on agrees with the row before it (``before`` for the first);
         exact repeats count as agreeing here and are dropped as duplicates later."""
         p_seq = np.r_[before[0], seq[start:-1]]
         p_dev = np.r_[before[1], dev[start:-1]]
-        _, ddev, ok = _steps(p_seq, p_dev, seq[start:], dev[start:], period)
+        _, ddev, ok = _steps(p_seq, p_dev, seq[start:], dev[start:], period, 0, rate_tol)
         repeat = (ddev == 0) & ((seq[start:] - p_seq) % SEQ_MODULUS == 0)
         return np.r_[np.ones(start, dtype=bool), ok | repeat]
 
@@ -215,7 +240,8 @@ class Unwrapper:
             elif (new_period := self._same_new_rate(seq, dev, i)) is not None:
                 d.breaks.add(i)  # a rate change whose header was lost: measured afresh from here
                 self.nominal_us = period = new_period
-                d.ok[i + 1 :] = self._in_step(seq, dev, i + 1, (int(seq[i]), int(dev[i])), period)[i + 1 :]
+                d.ok[i + 1 :] = self._in_step(seq, dev, i + 1, (int(seq[i]), int(dev[i])), period,
+                                              RATE_TOLERANCE + NOMINAL_TOLERANCE)[i + 1 :]
             else:
                 d.reject(i)
                 self.counters.inconsistent += 1
@@ -223,7 +249,7 @@ class Unwrapper:
 
     def _agree(self, s0: int, d0: int, s1: int, d1: int, wraps: int = 0, period: float | None = None) -> bool:
         _, _, ok = _steps(np.array([s0]), np.array([d0]), np.array([s1]), np.array([d1]),
-                          period or self.period_us, wraps)
+                          period or self.period_us, wraps, self.rate_tolerance)
         return bool(ok[0])
 
     @staticmethod
@@ -261,11 +287,11 @@ class Unwrapper:
         p_seq = np.r_[self._raw[0], k_seq[:-1]]
         p_dev = np.r_[self._raw[1], k_dev[:-1]]
         wraps = np.array([d.clock_wraps.get(int(i), 0) for i in kept], dtype=np.int64) if d.clock_wraps else 0
-        dseq, ddev, _ = _steps(p_seq, p_dev, k_seq, k_dev, self.period_us, wraps)
+        dseq, ddev, _ = _steps(p_seq, p_dev, k_seq, k_dev, self.period_us, wraps, self.rate_tolerance)
         is_break = np.isin(kept, np.fromiter(d.breaks, dtype=np.int64, count=len(d.breaks)))
         duplicate = (dseq == 0) | ((ddev == 0) & ~is_break)
         if self._check_silences(dseq, ddev, is_break, duplicate, arrival):
-            dseq, ddev, _ = _steps(p_seq, p_dev, k_seq, k_dev, self.period_us, wraps)
+            dseq, ddev, _ = _steps(p_seq, p_dev, k_seq, k_dev, self.period_us, wraps, self.rate_tolerance)
         break_rows = np.flatnonzero(is_break & ~duplicate)
         for j in break_rows:  # across a restart nothing on the device bridges the gap; the host's clock does
             ddev[j] = bridge.step_us(self._last_before(j, p_dev, ddev), int(k_dev[j]), int(k_dev[-1]), arrival,
@@ -309,11 +335,15 @@ class Unwrapper:
         lost_each = np.where(np.isin(np.arange(len(kept)), breaks), 0, dseq - 1)
         gaps = tuple((int(j), int(lost_each[j])) for j in np.flatnonzero(lost_each))
         self._segment = int(segment[-1])
+        single = (dseq == 1) & (lost_each == 0)
         if len(breaks):
             j = int(breaks[-1])
-            self._origin = (int(useq[j]), int(udev[j]))
+            self._origin, self._step_dev_us = (int(useq[j]), int(udev[j])), 0.0
+            single[: j + 1] = False
         elif self._origin is None:
             self._origin = (int(useq[0]), int(udev[0]))
+        if single.any():
+            self._step_dev_us = max(self._step_dev_us, float(np.abs(ddev[single] - self.period_us).max()))
         self._raw = (int(k_seq[-1]), int(k_dev[-1]))
         self._last = (int(useq[-1]), int(udev[-1]))
         if not math.isnan(arrival):
