@@ -11,11 +11,12 @@ from logger.wire import DecoderCounters, DeviceHeader
 
 
 def link_counts(decoder: DecoderCounters, timebase: TimeBase | None, reconnects: int, header: DeviceHeader | None,
-                since: dict[str, int] | None = None) -> dict[str, Any]:
+                since: dict[str, int] | None = None, past_end: int = 0) -> dict[str, Any]:
     """The link's counters (less those in ``since``) and the device clock's drift, for ``_run.json``: rows + lost
-    is the sequence span; every line is a frame, a header, an answer, or rejected."""
+    is the sequence span; every line is a frame, a header, an answer, or rejected. ``past_end`` frames came
+    after the end of ``--duration`` and are not the run's."""
     t = timebase.counters if timebase is not None else None
-    now = {"frames": decoder.frames, "lost": t.lost if t else 0, "inconsistent": t.inconsistent if t else 0,
+    now = {"frames": decoder.frames - past_end, "lost": t.lost if t else 0, "inconsistent": t.inconsistent if t else 0,
            "rejected": decoder.rejected, "bad_crc": decoder.bad_crc, "resets": t.resets if t else 0,
            "reconnects": reconnects}
     since = since or {}
@@ -45,14 +46,14 @@ def clock_account(timebase: TimeBase | None, start_from: str) -> dict[str, Any]:
 
 
 def link_health(source: str, connected: bool, down_since: float | None, decoder: DecoderCounters,
-                timebase: TimeBase | None, rate_hz: float, reconnects: int) -> LinkHealth:
-    """The link panel's figures."""
+                timebase: TimeBase | None, rate_hz: float, reconnects: int, past_end: int = 0) -> LinkHealth:
+    """The link panel's figures (frames after the end of ``--duration`` left out)."""
     t = timebase.counters if timebase is not None else None
     return LinkHealth(
         source=source,
         connected=connected,
         down_since=down_since,
-        frames=decoder.frames,
+        frames=decoder.frames - past_end,
         rate_hz=rate_hz,
         lost=t.lost if t else 0,
         rejected=decoder.rejected,

@@ -422,7 +422,7 @@ class Pipeline:
         """What a run says at its end, worked out here on the ingest thread."""
         extra: dict[str, Any] = {
             "link": link_counts(self.decoder.counters, self.timebase, self.reconnects, self.header,
-                                recorder.link_base),
+                                recorder.link_base, self.stream.past_end),
             "clock": clock_account(self.timebase, self.settings.start_from),
         }
         if self.calibration_changes:
@@ -500,7 +500,7 @@ class Pipeline:
             maximum=None if core is None or core.maximum is None else core.maximum.copy(),
             link=link_health(self.source.name, self.state in ("running", "waiting", "garbled", "silent"),
                              self.down_since, self.decoder.counters, self.timebase, self._rate.per_second(),
-                             self.reconnects),
+                             self.reconnects, self.stream.past_end),
             recording=None,
             last_run=self.final.get("folder") if self.final else None,
             events=self.events.recent(500),

@@ -66,6 +66,8 @@ class SampleStream:
         """Frames dropped because no header came to say how to read them."""
         self.wrong_width = 0
         """Frames dropped because they held another number of counts than the header names channels."""
+        self.past_end = 0
+        """Frames decoded after the end of ``--duration`` (read in the same chunk): not part of the run."""
         self.first_us: int | None = None
         self.last_us: int | None = None
         self.last_utc_us: int | None = None
@@ -117,6 +119,7 @@ class SampleStream:
     def emit(self, batch: FrameBatch, arrival: float, offset: float) -> Processed | None:
         """Put one batch on the run's time axis and through the core; None when nothing of it is kept."""
         if self.duration_reached():
+            self.past_end += len(batch)
             return None
         if batch.channels != len(self.header.channels):
             self.wrong_width += len(batch)
@@ -137,6 +140,7 @@ class SampleStream:
 
     def _process(self, s: Stamped) -> Processed | None:
         within = self._within_duration(s.device_us)
+        self.past_end += len(s.device_us) - (len(s.device_us) if within.stop is None else within.stop)
         if within.stop == 0:  # all past the end of --duration
             return None
         block = Block(s.device_us[within], s.utc_us[within], s.seq[within], s.segment[within],
