@@ -36,6 +36,8 @@ def report(pipeline: Pipeline) -> int:
     drift = f"{link.drift_ppm:+.1f} ppm" if link.drift_ppm is not None else "not measured (needs 30 s of arrivals)"
     print(f"frames {link.frames}, lost {link.lost}, rejected lines {link.rejected} (bad CRC {link.bad_crc}), "
           f"device resets {link.resets}, reconnects {link.reconnects}, device clock drift {drift}")
+    for note in pipeline.notes.values():
+        print(f"railtap: note: {note}", file=sys.stderr)
     if pipeline.error:
         if pipeline.crash and not pipeline.sealed:  # no run folder to keep the traceback in
             print(pipeline.crash, file=sys.stderr, end="")

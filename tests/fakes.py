@@ -1,8 +1,10 @@
-"""Stand-ins shared by tests: sources that misbehave in one particular way."""
+"""Stand-ins shared by tests (sources that misbehave in one particular way) and waits on conditions."""
 
 from __future__ import annotations
 
 import time
+from collections.abc import Callable
+from pathlib import Path
 
 import numpy as np
 
@@ -29,3 +31,20 @@ class WrongBaud:
 
     def close(self) -> None:
         pass
+
+
+def wait_until(ready: Callable[[], object], what: str, deadline_s: float = 60.0) -> None:
+    """Poll ``ready`` until it is true: a generous deadline for a busy machine, never a fixed sleep."""
+    deadline = time.monotonic() + deadline_s
+    while not ready():
+        assert time.monotonic() < deadline, f"timed out waiting for {what}"
+        time.sleep(0.02)
+
+
+def journal_rows(root: Path) -> int:
+    """Rows readable now from the newest journal under ``root`` (a run folder or a folder of runs)."""
+    from logger.store.journal import read_journal_table
+
+    journals = sorted(root.glob("_journal-*.arrows")) + sorted(root.glob("*/_journal-*.arrows"))
+    table = read_journal_table(journals[-1]) if journals else None
+    return 0 if table is None else table.num_rows

@@ -256,7 +256,10 @@ def test_calibration_panel_on_the_live_screen(tmp_path: Path, monkeypatch) -> No
         app = RailtapApp(pipeline)
         async with app.run_test(size=(100, 30)) as pilot:
             app.simulate_key("k")
-            await pilot.pause(0.1)
+            for _ in range(600):  # generous: a loaded machine is slow to open the panel
+                await pilot.pause(0.05)
+                if app.query_one(CalPanel).has_class("-open"):
+                    break
             panel = app.query_one(CalPanel)
             field = panel.query_one(Input)
             assert panel.has_class("-open") and field.has_focus
@@ -277,7 +280,10 @@ def test_calibration_panel_on_the_live_screen(tmp_path: Path, monkeypatch) -> No
                     break
             assert 0 in pipeline.processor.calibrator.curves
             app.simulate_key("escape")
-            await pilot.pause(0.1)
+            for _ in range(600):
+                await pilot.pause(0.05)
+                if not panel.has_class("-open"):
+                    break
             assert not panel.has_class("-open")
             pipeline.request_stop()
 
@@ -380,3 +386,29 @@ def test_a_killed_recal_leaves_the_old_calibration_or_the_new_never_a_mix(tmp_pa
     assert np.array_equal(values["out_v"].to_numpy(), expected)
     assert meta == read_run_json(run) and "recalibrating" not in meta
     assert meta["calibration"]["out_v"]["by"] == "railtap recal" and not list(run.glob("_recal-*"))
+
+
+@pytest.mark.parametrize("damage", ["truncated", "flipped page"])
+def test_recal_of_a_run_with_a_damaged_part_names_it_and_changes_nothing(tmp_path: Path, damage: str) -> None:
+    """A part whose footer is gone is found before anything is written; one whose page fails its checksum is
+    found while rewriting: either way one StoreError naming the part, no temporary file left, the run as it was."""
+    import pyarrow.parquet as pq
+
+    from logger.store import StoreError, read_run_json
+    from logger.store.recal import recalibrate
+
+    run = _recorded_run(tmp_path)
+    part = sorted(run.glob("part-*.parquet"))[0]
+    if damage == "truncated":
+        part.write_bytes(part.read_bytes()[:3000])
+    else:
+        column = pq.read_metadata(part).row_group(0).column(4)
+        data = bytearray(part.read_bytes())
+        start = column.dictionary_page_offset or column.data_page_offset
+        for i in range(start + 40, min(start + column.total_compressed_size, len(data)) - 8, 7):
+            data[i] ^= 0x5A
+        part.write_bytes(bytes(data))
+    before = read_run_json(run)
+    with pytest.raises(StoreError, match=part.name):
+        recalibrate(run, [_line_profile("out_v", "V", 3.3 / 4096 * 11.0, (0.0, 4095.0))])
+    assert read_run_json(run) == before and not list(run.glob("_recal-*"))

@@ -7,6 +7,7 @@ from pathlib import Path
 
 import pandas as pd
 import pytest
+from fakes import journal_rows, wait_until
 
 from logger.cli import main
 from logger.rig import RigError, load_rig, parse_rig
@@ -115,7 +116,6 @@ def test_signals_stop_cleanly_with_parts_sealed(tmp_path: Path, signame: str, re
     import signal
     import subprocess
     import sys
-    import time
 
     out = tmp_path / "runs"
     # As if started at a terminal: a shell that starts a job in the background (a CI runner may) makes it
@@ -123,10 +123,7 @@ def test_signals_stop_cleanly_with_parts_sealed(tmp_path: Path, signame: str, re
     proc = subprocess.Popen([sys.executable, "-m", "logger", "record", "--sim", "--speed", "5", "--out", str(out),
                              "--quiet"], cwd=Path(__file__).resolve().parents[1], stderr=subprocess.PIPE, text=True,
                             preexec_fn=lambda: signal.signal(signal.SIGINT, signal.SIG_DFL))
-    deadline = time.monotonic() + 20
-    while not list(out.glob("*/_journal-*.arrows")) and time.monotonic() < deadline:
-        time.sleep(0.05)
-    time.sleep(1.0)
+    wait_until(lambda: journal_rows(out) >= 1000, "1000 rows in the journal", 120.0)
     proc.send_signal(getattr(signal, signame))
     try:
         assert proc.wait(60) == 0, proc.stderr.read()  # generous: a loaded machine is slow to start and seal

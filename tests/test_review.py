@@ -282,3 +282,10 @@ def test_review_leaves_out_a_damaged_part_and_says_the_run_is_incomplete(tmp_pat
     assert main(["review", str(tmp_path)]) == 3 and "INCOMPLETE" in capsys.readouterr().out  # a folder of runs
     assert main(["export", str(run), str(tmp_path / "out.csv")]) in (1, 2)  # export refuses, naming the part
     assert middle.name in capsys.readouterr().err
+    # compare: a footer that is gone is refused up front; a page found bad while scanning leaves B incomplete
+    code = main(["compare", str(run), str(run), *(["--full"] if full else [])])
+    out, err = capsys.readouterr()
+    if damage == "truncated":
+        assert code == 2 and middle.name in err
+    else:
+        assert code == 3 and "INCOMPLETE: B leaves out a part" in out and middle.name in out

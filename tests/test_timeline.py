@@ -640,3 +640,22 @@ def test_hostile_headers_and_lines_of_the_wrong_width_are_refused_and_the_run_go
     assert len(run.samples) == 1900 and run.pipeline.stream.wrong_width == 100
     assert run.pipeline.header.rate_hz == 1000.0 and run.pipeline.decoder.counters.malformed == 1
     assert run.meta["link"]["lost"] == 100  # the sequence says they were sent; none of them was recorded
+    notes = run.meta["notes"]  # each refusal is said with its reason, in _run.json and in the final report
+    assert any("rate_hz=1e+308" in n and "0.001 to 100000" in n for n in notes)
+    assert any("100 data lines with 1 count(s)" in n for n in notes)
+
+
+def test_a_stream_whose_only_header_is_refused_fails_naming_the_reason(tmp_path: Path) -> None:
+    """A good CRC but bits=40: the header is refused, so no sample can be read; the run fails in one line that
+    says why (not "never a header line")."""
+    from devicestream import Arrival, RailTap
+
+    tap = RailTap()
+    lines = [b"\n", header_line(tap.channels, 40, tap.vref_mv, 1000.0, "boot")]
+    lines += [data_line(k, 1_000 * k, (1363, 100)) for k in range(500)]
+    source = ScriptedSource([Arrival(5000.1, 1_800_000_000.0 - 5000.0, b"".join(lines))], answer=None)
+    pipeline = Pipeline(source, simple_rig(), Settings(record_root=tmp_path))
+    pipeline.start()
+    assert pipeline.wait(60), "pipeline did not finish"
+    assert pipeline.error is not None and "bits=40: 1 to 16 expected" in pipeline.error
+    assert "never a header" not in pipeline.error and pipeline.notes == {}

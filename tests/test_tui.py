@@ -119,7 +119,7 @@ def test_readouts_show_sign_unit_range_and_power() -> None:
     async def run() -> None:
         app = RailtapApp(pipeline)
         async with app.run_test(size=SIZE) as pilot:
-            await pilot.pause(0.2)
+            await _until(pilot, lambda: app.query(Readout).first().query_one(Digits).value == "+15.02", 30.0)
             cards = {card.channel_name: card for card in app.query(Readout)}
             assert list(cards) == ["pos_v", "pos_a", "neg_v", "neg_a", "pos_w", "neg_w"]
             assert cards["pos_v"].query_one(Digits).value == "+15.02"
@@ -277,7 +277,7 @@ def test_a_reading_at_the_adc_limit_is_flagged() -> None:
     async def run() -> None:
         app = RailtapApp(fake)
         async with app.run_test(size=SIZE) as pilot:
-            await pilot.pause(0.3)
+            await _until(pilot, lambda: app.query(Readout).first().has_class("-at-limit"), 30.0)
             first = app.query(Readout).first()
             assert first.has_class("-at-limit") and "ADC limit" in str(first.border_title)
             assert not list(app.query(Readout))[1].has_class("-at-limit")
@@ -331,7 +331,7 @@ def test_zero_key_tares_the_current_channel(start: Callable[..., Pipeline]) -> N
             assert zeroed.channel == "out_a" and "zeroed out_a" in zeroed.detail
             # The load draws current, so the readings just after the tare are about 0 A (the load steps only
             # every 7 s of simulated time; 20 ms after the tare it has not moved).
-            await pilot.pause(0.3)
+            await _until(pilot, lambda: pipeline.ring.latest(1)[0][-1] > zeroed.start_us + 20_000, 30.0)
             utc, values = pipeline.ring.latest(pipeline.ring.capacity)
             after = values[(utc >= zeroed.start_us) & (utc < zeroed.start_us + 20_000), 1]
             assert len(after) > 5 and abs(float(np.median(after))) < 0.05

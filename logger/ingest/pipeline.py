@@ -84,6 +84,10 @@ class Pipeline:
         self.stop_reason = "stopped by user"
         self.crash: str | None = None
         """The traceback of an unexpected error in the ingest thread, for ``_run.json``."""
+        self.notes: dict[str, str] = {}
+        """The latest note of each kind about the input (a header refused, lines of the wrong width, a profile
+        that did not fit): shown on the screen as they come, kept in ``_run.json`` and repeated in the final
+        report. Written by the ingest thread; read by others only once it has ended."""
         self.answers: tuple[Answer, ...] = ()
         """The device's latest answers to host commands, oldest first (a new tuple each time: safe to read)."""
         self.reconnects = 0
@@ -429,6 +433,8 @@ class Pipeline:
             extra["calibration_changes"] = self.calibration_changes
         if self.crash:
             extra["crash"] = self.crash
+        if self.notes:
+            extra["notes"] = list(self.notes.values())
         return extra
 
     def _watch(self) -> None:
@@ -454,10 +460,16 @@ class Pipeline:
             self.state, self.message = verdict
         if self.runs.failed:
             self.message, self.runs.failed = self.runs.failed, None
+        self._take_notices()
+
+    def _take_notices(self) -> None:
+        """Move what the stream and the decoder noticed about the input into the message and the notes."""
         if self.stream.notice:
-            self.message, self.stream.notice = self.stream.notice, None
+            self.message = self.notes["stream"] = self.stream.notice
+            self.stream.notice = None
         if self.decoder.refused:
-            self.message, self.decoder.refused = f"{self.decoder.refused}; it was not used", None
+            self.message = self.notes["header"] = f"{self.decoder.refused}; it was not used"
+            self.decoder.refused = None
 
     def _send(self, line: bytes) -> None:
         with contextlib.suppress(SourceError):  # a lost link shows up on the next read
@@ -471,10 +483,13 @@ class Pipeline:
     def _finish(self) -> None:
         self._take_commands(finishing=True)  # what was asked before the stop: a mark still goes into the run
         self.source.close()
+        self._take_notices()
         if self.header is None and self.decoder.counters.frames and not self.error:
+            refused = self.notes.pop("header", None)  # said once, in the failure itself
+            why = f"no usable header ({refused})" if refused else "never a header line"
             self._fail(
-                f"{self.decoder.counters.frames} frames arrived but never a header line, so nothing could be "
-                "recorded: check the firmware, or set device.adc_bits and device.vref_mv in the rig file"
+                f"{self.decoder.counters.frames} frames arrived but {why}, so nothing could be recorded: check "
+                "the firmware, or set device.adc_bits and device.vref_mv in the rig file"
             )
         self.stream.finish()
         extra = self._run_account(self.recorder) if self.recorder is not None else {}

@@ -151,12 +151,14 @@ def cmd_report(args: argparse.Namespace) -> int:
 
 
 def cmd_compare(args: argparse.Namespace) -> int:
-    from logger.review.compare import compare_text
+    from logger.review.compare import summaries_text
+    from logger.review.summary import summarize
 
     check_readable(args.a)
     check_readable(args.b)
-    show(compare_text(args.a, args.b, full=args.full))
-    return 0
+    a, b = summarize(args.a, full=args.full), summarize(args.b, full=args.full)
+    show(summaries_text(a, b))
+    return INCOMPLETE if a.skipped or b.skipped else 0
 
 
 def _review_many(root: Path) -> int:

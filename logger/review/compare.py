@@ -25,7 +25,11 @@ FIGURES: tuple[tuple[str, str], ...] = (
 def compare_text(folder_a: Path, folder_b: Path, full: bool = False) -> str:
     """Markdown tables comparing run A (``folder_a``) with run B (``folder_b``), B - A in the last column;
     ``full`` summarises both from every sample instead of their rollups."""
-    a, b = summarize(folder_a, full=full), summarize(folder_b, full=full)
+    return summaries_text(summarize(folder_a, full=full), summarize(folder_b, full=full))
+
+
+def summaries_text(a: Summary, b: Summary) -> str:
+    """The comparison of two summaries (a run that left out a damaged part says so in the notes)."""
     lines = [f"A: {a.folder.name} ({a.status}, from {a.start_utc})",
              f"B: {b.folder.name} ({b.status}, from {b.start_utc})",
              f"figures from the {a.source}; the last column is B - A", ""]
@@ -33,7 +37,8 @@ def compare_text(folder_a: Path, folder_b: Path, full: bool = False) -> str:
     lines += _channel_rows(a, b)
     lines += _rail_rows(a, b)
     lines += _event_rows(a, b)
-    notes = _notes(a, b)
+    notes = [f"INCOMPLETE: {which} leaves out a part that cannot be read: {line}"
+             for which, s in (("A", a), ("B", b)) for line in s.skipped] + _notes(a, b)
     if notes:
         lines += ["", *notes]
     return "\n".join(lines)

@@ -28,8 +28,9 @@ import pyarrow.parquet as pq
 from logger.cal.profile import Profile
 from logger.core import Processor
 from logger.events.model import Event
+from logger.store.check import check_readable
 from logger.store.episodes import link_episodes
-from logger.store.files import RunLock, StoreError, fsync_dir, read_run_json, to_json, write_json_atomic
+from logger.store.files import RunLock, StoreError, fsync_dir, one_line, read_run_json, to_json, write_json_atomic
 from logger.store.layout import EVENTS_PARQUET, parts_in
 from logger.store.meta import start_part
 from logger.store.reprocess import blocks, run_processor, sealed_parts, write_events
@@ -49,6 +50,7 @@ def recalibrate(folder: Path, profiles: list[Profile], progress: Callable[[str],
         StoreError: the folder is not a finished run, is in use, or cannot be written; or a profile names a
             channel the run does not have.
     """
+    check_readable(folder)  # every part and the event table open, before anything is written
     meta = read_run_json(folder)
     if meta.get("status") not in ("complete", "recovered"):
         raise StoreError(f"{folder}: the run is {meta.get('status', 'unfinished')}; seal it first with "
@@ -56,6 +58,7 @@ def recalibrate(folder: Path, profiles: list[Profile], progress: Callable[[str],
     lock = RunLock(folder)
     lock.acquire("recalibrating")
     temps: list[Path] = []
+    where: Path = folder
     try:
         parts, names = sealed_parts(folder)
         for profile in profiles:
@@ -66,16 +69,19 @@ def recalibrate(folder: Path, profiles: list[Profile], progress: Callable[[str],
         detected: list[Event] = []
         for n, part in enumerate(parts, start=1):
             progress(f"part {n} of {len(parts)}: {part.name}")
+            where = part
             temp, events = _rewrite_part(part, names, start_part(new_meta), core)
             temps.append(temp)
             detected += events
+        where = folder
         temps.append(write_events(folder, detected + core.finish()))
         fsync_dir(folder)
-    except OSError as exc:
+    except (OSError, pa.ArrowException) as exc:
         for temp in [*temps, *recal_leftovers(folder)]:
             temp.unlink(missing_ok=True)
         lock.release()
-        raise StoreError(f"{folder}: cannot recalibrate ({exc.strerror or exc}); the run is as it was") from None
+        what = exc.strerror if isinstance(exc, OSError) and exc.strerror else one_line(str(exc))
+        raise StoreError(f"{where}: cannot recalibrate ({what}); the run is as it was") from None
     except BaseException:
         for temp in [*temps, *recal_leftovers(folder)]:
             temp.unlink(missing_ok=True)
