@@ -248,8 +248,13 @@ def _channel(c: _Checker, index: int, table: dict[str, Any], base: Path | None) 
     if nominal is not None and nominal < 0 and not negative and role != "amps":
         raise c.fail(f"{w}nominal", f"a positive value, or `negative = true` for a rail below zero (got {nominal:g})")
     low, high = numbers["low"], numbers["high"]
-    if low is not None and high is not None and low >= high:
-        raise c.fail(f"{w}low", f"less than high ({high})")
+    below_zero = negative or (nominal is not None and nominal < 0)
+    for key, value in (("low", low), ("high", high)):  # limits are magnitudes: a dip is toward zero either way
+        if value is not None and (value == 0 or (value < 0 and not below_zero)):
+            raise c.fail(f"{w}{key}", f"a limit above zero (or `negative = true` for a rail below zero; got "
+                         f"{value:g})")
+    if low is not None and high is not None and abs(low) >= abs(high):
+        raise c.fail(f"{w}low", f"a smaller magnitude than high ({high:g})")
     given = {k: v for k, v in numbers.items() if v is not None}
     unit = c.get(table, "unit", str, UNITS.get(role, ""), w)
     profile_path = c.get(table, "profile", str, None, w)

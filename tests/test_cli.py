@@ -44,6 +44,14 @@ def test_port_without_rig_says_what_to_do(capsys) -> None:
     assert "rig init" in _error_line(capsys)
 
 
+def test_a_negative_rail_takes_its_limits_with_either_sign() -> None:
+    """Limits are magnitudes: a -15 V rail's brownout at -13.5 V and overvoltage at -16.5 V, written either way."""
+    for low, high in ((-13.5, -16.5), (13.5, 16.5)):
+        rig = parse_rig(f"[[channel]]\nname = 'neg_v'\nrole = 'volts'\ninput = 0\nnegative = true\n"
+                        f"nominal = -15\nlow = {low}\nhigh = {high}\n", "bench.toml")
+        assert (rig.channels[0].low, rig.channels[0].high) == (low, high)
+
+
 @pytest.mark.parametrize(
     ("text", "expected"),
     [
@@ -53,7 +61,11 @@ def test_port_without_rig_says_what_to_do(capsys) -> None:
         ("[[channel]]\nname = 'v'\nrole = 'volts'\ninput = 0\ndivider = -2\n", "divider: expected a positive"),
         ("[[channel]]\nname = 'v'\nrole = 'volts'\ninput = 0\n[[channel]]\nname = 'w'\nrole = 'aux'\ninput = 0\n",
          "input 0 already used"),
-        ("[[channel]]\nname = 'v'\nrole = 'volts'\ninput = 0\nlow = 5\nhigh = 4\n", "low: expected less than"),
+        ("[[channel]]\nname = 'v'\nrole = 'volts'\ninput = 0\nlow = 5\nhigh = 4\n",
+         "low: expected a smaller magnitude"),
+        ("[[channel]]\nname = 'a'\nrole = 'amps'\ninput = 0\nshunt_ohm = 0.01\nhigh = -5\n",
+         "high: expected a limit above zero"),
+        ("[[channel]]\nname = 'v'\nrole = 'volts'\ninput = 0\nlow = 0\n", "low: expected a limit above zero"),
         # Names that would clash with the sample table's columns, or are not usable as a column name:
         ("[[channel]]\nname = 'utc'\nrole = 'volts'\ninput = 0\n", "channel[0].name: expected a name other than utc"),
         ("[[channel]]\nname = 'class'\nrole = 'volts'\ninput = 0\n", "not a Python word"),
