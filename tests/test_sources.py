@@ -289,3 +289,35 @@ def test_a_port_is_recorded_by_one_process_at_a_time() -> None:
         second.close()
         os.close(master)
         os.close(slave)
+
+
+def test_a_busy_port_names_the_process_that_holds_it() -> None:
+    """Another process records the port (an exclusive open, as railtap's own): the refusal names its pid and
+    command line, read from /proc (Linux), so the user knows which one to close."""
+    import os
+    import subprocess
+    import sys
+    import tty
+
+    from logger.sources.base import SourceError
+    from logger.sources.serial_port import SerialSource
+
+    if not os.path.isdir("/proc/self/fd"):
+        pytest.skip("needs /proc")
+    master, slave = os.openpty()
+    tty.setraw(slave)
+    path = os.ttyname(slave)
+    holder = subprocess.Popen([sys.executable, "-c", "import serial, sys, time; port = serial.Serial(sys.argv[1], "
+                               "exclusive=True); print('open', flush=True); time.sleep(120)", path],
+                              stdout=subprocess.PIPE, text=True)
+    try:
+        assert holder.stdout.readline().strip() == "open"
+        with pytest.raises(SourceError) as info:
+            SerialSource(path).open()
+        assert f"port is busy; it is open in pid {holder.pid} (" in str(info.value)
+        assert "-c import serial, sys, time" in str(info.value)
+    finally:
+        holder.kill()
+        holder.wait(10)
+        os.close(master)
+        os.close(slave)

@@ -13,6 +13,7 @@ import contextlib
 import errno
 import os
 import time
+from pathlib import Path
 
 import serial
 import serial.tools.list_ports
@@ -110,8 +111,10 @@ def open_failure(url: str, exc: BaseException) -> str:
         return f"{url}: no such port; check the cable, or run `railtap ports` to see the ports there are"
     # Windows reports a port held by another program as "access is denied".
     if code in _BUSY or "exclusively lock" in text or "access is denied" in text:
-        return (f"{url}: port is busy; another program has it open (another railtap recording it, a serial "
-                "monitor, a logger): close that one first")
+        holders = port_holders(url)
+        who = (f"it is open in {'; '.join(holders)}" if holders else
+               "another program has it open (another railtap recording it, a serial monitor, a logger)")
+        return f"{url}: port is busy; {who}: close it first"
     if code == errno.EACCES or "permission" in text:
         return (
             f"{url}: permission denied; add yourself to the group that owns the device "
@@ -120,6 +123,27 @@ def open_failure(url: str, exc: BaseException) -> str:
     if url.startswith(("socket://", "rfc2217://")):
         return f"{url}: cannot connect ({_detail(exc)}); check the host, the port and that the server runs"
     return f"{url}: cannot open port ({_detail(exc)})"
+
+
+def port_holders(path: str) -> list[str]:
+    """The processes that hold ``path`` open, as ``pid N (command line)``: found through ``/proc`` on Linux,
+    where a port is a device file; none elsewhere, or for a URL."""
+    proc = Path("/proc")
+    try:
+        target = os.path.realpath(path)
+        pids = [p for p in proc.iterdir() if p.name.isdigit() and int(p.name) != os.getpid()]
+    except OSError:
+        return []
+    found = []
+    for pid in pids:
+        try:
+            if not any(os.path.realpath(fd) == target for fd in (pid / "fd").iterdir()):
+                continue
+            command = (pid / "cmdline").read_bytes().replace(b"\0", b" ").decode(errors="replace").strip()
+        except OSError:  # gone, or not ours to look at
+            continue
+        found.append(f"pid {pid.name} ({command if len(command) <= 100 else command[:99] + '…'})")
+    return found
 
 
 def _detail(exc: BaseException) -> str:
