@@ -221,6 +221,20 @@ def test_bad_headers_are_refused(body: str) -> None:
         DeviceHeader.parse(body)
 
 
+@pytest.mark.parametrize("split", [False, True])
+def test_an_overlong_header_is_refused_with_its_reason(split: bool) -> None:
+    """A header naming 100 channels is longer than a line may be (the protocol's MAX_LINE): dropped and counted
+    as any overlong line (its CRC is never looked at), and the refusal says why, whether it came whole or in
+    pieces (held as a tail)."""
+    names = ",".join(f"c{i}" for i in range(100))
+    line = f"H fw=a ver=1 bits=12 vref_mv=3300 rate_hz=1000 ch={names} why=boot*0000\n".encode()
+    d = Decoder()
+    d.feed(b"\n")
+    items = d.feed(line[:200]) + d.feed(line[200:]) if split else d.feed(line)
+    assert items == [] and d.counters.overlong == 1 and _balanced(d)
+    assert d.refused is not None and f"longer than {MAX_LINE - 1} characters" in d.refused
+
+
 def test_fragment_after_joining_midstream_is_not_an_error() -> None:
     seq, dev, counts = _frames(3)
     stream = encode_frames(seq, dev, counts)

@@ -37,6 +37,10 @@ Item = FrameBatch | DeviceHeader | Answer
 _BAD_CRC, _MALFORMED, _OVERLONG, _PARTIAL = 0, 1, 2, 3
 
 
+OVERLONG_HEADER = (f"a header line was refused: longer than {MAX_LINE - 1} characters (at most {MAX_CHANNELS} "
+                   "channels with short names fit)")
+
+
 @dataclass
 class DecoderCounters:
     """Running totals. ``lines == frames + headers + answers + rejected + partial`` always holds."""
@@ -126,6 +130,8 @@ class Decoder:
             self._count_rejects(overlong=1)
             self.counters.lines += 1
             self._skipping = True
+            if tail[:1] == b"H":
+                self.refused = OVERLONG_HEADER
             tail = b""
         self._tail = tail
 
@@ -143,6 +149,8 @@ class Decoder:
         self.counters.lines += n
         kind = np.zeros(n, dtype=np.int8)  # 0 rejected, 1..8 data with that many channels, -1 text item
         why = np.where(overlong, _OVERLONG, _MALFORMED).astype(np.int8)  # reason, for rejected rows
+        if (overlong & (arr[starts] == _H)).any():
+            self.refused = OVERLONG_HEADER
         first = np.where(overlong, 0, arr[starts])
         data_rows = np.flatnonzero(first == _D)
         for length in np.unique(lengths[data_rows]):
