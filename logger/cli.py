@@ -26,6 +26,7 @@ from logger.rig import Rig, RigError, demo_rig_text, load_rig
 from logger.sim.spec import ScenarioError
 from logger.sources.base import Source, SourceError
 from logger.store import StoreError
+from logger.store.check import check_readable
 from logger.store.files import check_writable
 
 if TYPE_CHECKING:
@@ -295,6 +296,7 @@ def cmd_recal(args: argparse.Namespace) -> int:
         profiles = [load_profile(path) for path in args.profile]
     except ProfileError as exc:
         raise UsageError(str(exc)) from None
+    check_readable(args.folder)  # before its events are counted: a damaged file is named, nothing is touched
     events = args.folder / EVENTS
 
     def kinds() -> Counter[str]:
@@ -345,6 +347,11 @@ def cmd_recover(args: argparse.Namespace) -> int:
             continue
         print(f"{run}: {meta.get('status')}, {meta.get('rows', 0)} rows in {len(meta.get('parts', []))} part(s), "
               f"{meta.get('events', 0)} events")
+        try:
+            check_readable(run)
+        except StoreError as exc:  # sealed, but a file in it is damaged: recovery cannot mend that, say so
+            print(f"railtap: warning: {exc}", file=sys.stderr)
+            failed += 1
     return 2 if failed else 0
 
 
