@@ -18,6 +18,7 @@ from logger.cal.assess import MODELS
 from logger.cal.capture import DEFAULT_MAX_SD, DEFAULT_SAMPLES
 from logger.cal.session import CalError
 from logger.console import print_status, report
+from logger.durations import duration_arg
 from logger.ingest import Pipeline, Settings
 from logger.ingest.recorder import use_lean_allocator
 from logger.plan import PlanError, add_plan_command
@@ -98,7 +99,7 @@ def _parser() -> argparse.ArgumentParser:
     sim.add_argument("--list", action="store_true", help="list the shipped scenarios")
     sim.add_argument("--scenario", metavar="NAME|FILE", help=f"a simulated scenario (default: {DEFAULT_SCENARIO})")
     sim.add_argument("--speed", type=float, default=1.0, help="simulated seconds per real second")
-    sim.add_argument("--seed", type=int, default=1)
+    sim.add_argument("--seed", type=int, default=1, help="random seed of the simulated rig")
     sim.add_argument("--write-rig", type=Path, metavar="FILE", help="also write the scenario's rig file here")
     sim.add_argument("--link", type=Path, metavar="PATH",
                      help="also name the pseudo-terminal PATH (a symlink), so a restarted simulator keeps its port")
@@ -157,7 +158,8 @@ def _source_options(p: argparse.ArgumentParser) -> None:
     where.add_argument("--sim", action="store_true", help="the built-in simulated rig")
     where.add_argument("--replay", type=Path, metavar="FILE", help="a raw capture (_raw.arrows or plain bytes)")
     p.add_argument("--rig", type=Path, help="rig file (default with --sim: the scenario's own)")
-    p.add_argument("--baud", type=int, help="baud rate (default: the rig file's, else 921600)")
+    p.add_argument("--baud", type=int,
+                   help="baud rate (default: the rig file's, else 1000000, the reference firmware's)")
     p.add_argument("--speed", type=float, default=None,
                    help="for --sim and --replay: simulated seconds per real second (0 = as fast as possible)")
     p.add_argument("--seed", type=int, default=1, help="random seed of the simulated rig")
@@ -171,7 +173,8 @@ def _source_options(p: argparse.ArgumentParser) -> None:
 def _record_options(p: argparse.ArgumentParser) -> None:
     p.add_argument("--out", type=Path, default=Path("runs"), help="folder that holds run folders (default: runs)")
     p.add_argument("--label", default="", help="words for the run folder's name (default: the rig's name)")
-    p.add_argument("--duration", type=float, metavar="SECONDS", help="stop after this much device time")
+    p.add_argument("--duration", type=duration_arg, metavar="TIME",
+                   help="stop after this much device time: seconds, or 90s, 10m, 1h30m, 12h")
     p.add_argument("--part-minutes", type=float, default=60.0, help="start a new Parquet part this often")
     p.add_argument("--keep-raw", action="store_true", help="also keep the raw bytes, for replay")
     p.add_argument("--quiet", action="store_true", help="no status lines, only the final summary")

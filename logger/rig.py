@@ -63,7 +63,7 @@ class Channel:
 @dataclass(frozen=True)
 class Device:
     port: str | None = None
-    baud: int = 921600
+    baud: int = 1_000_000
     adc_bits: int | None = None
     vref_mv: int | None = None
 
@@ -207,7 +207,7 @@ class _Checker:
 def _device(c: _Checker, table: dict[str, Any]) -> Device:
     w = "device."
     c.known(table, DEVICE_KEYS, w)
-    baud = c.get(table, "baud", int, 921600, w)
+    baud = c.get(table, "baud", int, 1_000_000, w)
     bits = c.get(table, "adc_bits", int, None, w)
     if baud <= 0:
         raise c.fail("device.baud", "a positive integer")

@@ -153,7 +153,7 @@ def test_a_misspelt_rig_key_is_named_not_ignored() -> None:
     with pytest.raises(RigError, match=r"channel 'out_v': diviser: unknown key; did you mean 'divider'\?"):
         parse_rig(demo_rig_text().replace("divider = 11.0", "diviser = 11.0", 1), "t.toml")
     with pytest.raises(RigError, match=r"device\.bauds: unknown key; did you mean 'baud'"):
-        parse_rig(demo_rig_text().replace("baud = 921600", "bauds = 921600", 1), "t.toml")
+        parse_rig(demo_rig_text().replace("baud = 1000000", "bauds = 1000000", 1), "t.toml")
 
 
 def test_a_plain_byte_dump_is_labelled_from_start_or_its_file_time(tmp_path: Path, capsys) -> None:
@@ -229,3 +229,27 @@ def test_recover_goes_on_past_a_run_it_cannot_seal(tmp_path: Path, capsys, monke
     code = main(["record", "--sim", "--speed", "0", "--duration", "1", "--out", str(tmp_path), "--quiet"])
     err = capsys.readouterr().err
     assert code == 0 and "warning: cannot recover" in err and "recording goes on" in err
+
+
+@pytest.mark.parametrize(("text", "seconds"), [
+    ("3600", 3600.0), ("0.5", 0.5), ("90s", 90.0), ("10m", 600.0), ("10min", 600.0), ("1h30m", 5400.0),
+    ("12h", 43200.0), ("1d", 86400.0), ("250ms", 0.25), ("+2h5m", 7500.0), ("1.5h", 5400.0),
+])  # 1 h = 3600 s, 1 d = 86 400 s (SI units accepted for use with the SI, common fact)
+def test_one_duration_syntax(text: str, seconds: float) -> None:
+    from logger.durations import parse_duration
+
+    assert parse_duration(text) == pytest.approx(seconds)
+
+
+def test_every_duration_option_reads_the_one_syntax(tmp_path: Path, capsys) -> None:
+    """`record --duration 2s` records two seconds; a value in no syntax is a usage error naming it."""
+    from logger.durations import parse_duration
+
+    assert parse_duration("12 hours") is None and parse_duration("h") is None and parse_duration("1h-5m") is None
+    out = tmp_path / "runs"
+    assert main(["record", "--sim", "--speed", "0", "--duration", "2s", "--out", str(out), "--quiet"]) == 0
+    (run,) = out.iterdir()
+    assert len(pd.read_parquet(run)) == 2000
+    with pytest.raises(SystemExit):
+        main(["record", "--sim", "--duration", "twelve hours", "--out", str(out)])
+    assert "'twelve hours': expected seconds, or a duration such as 90s" in capsys.readouterr().err

@@ -321,3 +321,19 @@ def test_a_busy_port_names_the_process_that_holds_it() -> None:
         holder.wait(10)
         os.close(master)
         os.close(slave)
+
+
+def test_ports_table_says_what_each_column_is_and_which_port_looks_like_a_tap(monkeypatch) -> None:
+    from serial.tools.list_ports_common import ListPortInfo
+
+    import logger.sources.serial_port as sp
+
+    usb = ListPortInfo("/dev/ttyACM0")
+    usb.vid, usb.pid, usb.description, usb.hwid = 0x2341, 0x0043, "Uno R3", "USB VID:PID=2341:0043"
+    uart = ListPortInfo("/dev/ttyS0")
+    monkeypatch.setattr(sp.serial.tools.list_ports, "comports", lambda: [uart, usb])
+    header, first, second = sp.list_ports()
+    assert header.split() == ["PORT", "KIND", "DESCRIPTION", "HARDWARE", "ID"]
+    assert first.startswith("/dev/ttyACM0") and "USB 2341:0043, likely a tap" in first and "Uno R3" in first
+    assert second.startswith("/dev/ttyS0") and "unlikely a tap" in second
+    assert first.index("USB") == header.index("KIND") == second.index("built-in")  # aligned columns

@@ -11,6 +11,7 @@ import argparse
 import sys
 from pathlib import Path
 
+from logger.durations import duration_arg
 from logger.review.progress import Bar
 from logger.review.show import show
 from logger.store.check import check_readable
@@ -27,8 +28,9 @@ def add_review_commands(sub: argparse._SubParsersAction) -> None:
     review.add_argument("--full", action="store_true",
                         help="scan every sample instead of the per-second rollups (exact, slower)")
     review.add_argument("--event", type=int, metavar="N", help="show the samples around event number N")
-    review.add_argument("--before", type=float, default=1.0, metavar="S", help="seconds before the event (1)")
-    review.add_argument("--after", type=float, default=1.0, metavar="S", help="seconds after the event (1)")
+    review.add_argument("--before", type=duration_arg, default=1.0, metavar="TIME",
+                        help="time before the event: seconds, or 250ms, 2s, 1m (default 1)")
+    review.add_argument("--after", type=duration_arg, default=1.0, metavar="TIME", help="time after the event (1)")
     review.add_argument("--channels", metavar="A,B", help="channels to show (default: the event's, or all)")
     review.add_argument("--events", action="store_true", help="list every event")
     review.add_argument("--plot", type=Path, metavar="DIR",

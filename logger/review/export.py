@@ -8,7 +8,6 @@ from __future__ import annotations
 
 import json
 import os
-import re
 from collections.abc import Callable
 from datetime import UTC, datetime, timedelta
 from pathlib import Path
@@ -18,27 +17,22 @@ import pyarrow.compute as pc
 import pyarrow.csv as pacsv
 import pyarrow.dataset as ds
 
+from logger.durations import SYNTAX, parse_duration
 from logger.review.window import pick_channels
 from logger.store.check import naming_damage, parts_dataset
 from logger.store.files import StoreError, read_run_json
 
 FORMATS = ("csv", "jsonl")
-_OFFSET = re.compile(r"^\+?((?:\d+(?:\.\d+)?(?:ms|s|min|m|h))+)$")
-_PIECE = re.compile(r"(\d+(?:\.\d+)?)(ms|s|min|m|h)")
-_UNIT_S = {"ms": 1e-3, "s": 1.0, "min": 60.0, "m": 60.0, "h": 3600.0}
-
-
 def parse_when(text: str, run_start: datetime) -> datetime:
-    """A time on the command line: an offset from the run's first sample (``90s``, ``+10m``, ``1.5h``,
-    ``2h5m``) or an ISO date-time (local time when it has no zone)."""
-    match = _OFFSET.match(text.strip())
-    if match:
-        seconds = sum(float(n) * _UNIT_S[unit] for n, unit in _PIECE.findall(match.group(1)))
+    """A time on the command line: an offset from the run's first sample in the one duration syntax (``90s``,
+    ``+10m``, ``1.5h``, ``2h5m``) or an ISO date-time (local time when it has no zone)."""
+    seconds = parse_duration(text)
+    if seconds is not None:
         return run_start + timedelta(seconds=seconds)
     try:
         when = datetime.fromisoformat(text)
     except ValueError:
-        raise StoreError(f"{text!r}: expected an offset from the run's start (90s, 10m, 1h30m) or a date-time "
+        raise StoreError(f"{text!r}: expected an offset from the run's start ({SYNTAX}) or a date-time "
                          "(2026-12-01T22:15:00, local time; add Z for UTC)") from None
     return when.astimezone(UTC) if when.tzinfo is None else when
 

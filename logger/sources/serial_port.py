@@ -153,9 +153,24 @@ def _detail(exc: BaseException) -> str:
 
 
 def list_ports() -> list[str]:
-    """One line per serial port the system knows: device, description and hardware id."""
+    """The serial ports the system knows, as a table under a header line: the port, what kind it is (a USB
+    serial device is what a tap usually is; a built-in UART with nothing on it is not), its description and its
+    hardware id. Empty when there are none."""
     ports = sorted(serial.tools.list_ports.comports(), key=lambda p: p.device)
-    return [f"{p.device}  {p.description}  [{p.hwid}]" for p in ports]
+    if not ports:
+        return []
+    rows = [("PORT", "KIND", "DESCRIPTION", "HARDWARE ID")]
+    for port in ports:
+        kind = (f"USB {port.vid:04x}:{port.pid:04x}, likely a tap" if port.vid is not None else
+                "built-in or virtual, unlikely a tap")
+        rows.append((port.device, kind, _known(port.description), _known(port.hwid)))
+    widths = [max(len(row[k]) for row in rows) for k in range(3)]
+    return ["  ".join(cell.ljust(width) for cell, width in zip(row[:3], widths, strict=True)) + "  " + row[3]
+            for row in rows]
+
+
+def _known(text: str | None) -> str:
+    return "-" if not text or text == "n/a" else text
 
 
 def no_ports_hint(ports: list[str] | None = None) -> str | None:
