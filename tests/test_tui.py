@@ -34,6 +34,14 @@ SCENARIO = load_scenario("demo-bench")
 SIZE = (100, 30)
 
 
+@pytest.fixture(autouse=True)
+def patient_second_press(monkeypatch: pytest.MonkeyPatch) -> None:
+    """Keys that ask for a second press wait long enough for it on a loaded machine."""
+    import logger.tui.app
+
+    monkeypatch.setattr(logger.tui.app, "AGAIN_S", 120.0)
+
+
 @pytest.fixture
 def start(tmp_path: Path) -> Iterator[Callable[..., Pipeline]]:
     """Starts a pipeline on the simulated demo bench; any still running at the end are stopped and sealed."""
@@ -63,6 +71,7 @@ class FakePipeline:
         self.stop_reason = "stopped by user"
         self.final = {"status": "complete"}
         self.marks: list[str] = []
+        self.recording = False
         self._stopped = False
         self._snap = Snapshot(
             state="running", message="receiving", channels=tuple(c.name for c in rig.channels),
@@ -107,6 +116,8 @@ async def _key(app: RailtapApp, pilot, key: str) -> None:
 
 
 async def _quit(app: RailtapApp, pilot, pipeline: Pipeline) -> None:
+    """q twice: while a run is recorded, one q only asks."""
+    await _key(app, pilot, "q")
     await _key(app, pilot, "q")
     await _until(pilot, lambda: pipeline.wait(0), 20.0)
 
@@ -232,12 +243,18 @@ def test_w_stops_recording_and_starts_a_new_run(start: Callable[..., Pipeline]) 
         async with app.run_test(size=SIZE) as pilot:
             await _until(pilot, lambda: pipeline.recorder is not None)
             status = app.query_one(StatusPanel)
+            await _key(app, pilot, "w")  # one press only asks: one key must not end a test by accident
+            assert pipeline.recording and "press w again" in str(list(app._notifications)[-1].message)
             await _key(app, pilot, "w")
             await _until(pilot, lambda: len(pipeline.sealed) == 1, 30.0)
             await _until(pilot, lambda: "NOT RECORDING" in str(status.content), 30.0)
+            banner = app.query_one(Banner)
+            await _until(pilot, lambda: "NOT RECORDING: nothing is being kept" in str(banner.content), 30.0)
             await _until(pilot, lambda: "last: " in str(status.content), 30.0)
             await _key(app, pilot, "w")
             await _until(pilot, lambda: pipeline.recorder is not None, 30.0)
+            await _key(app, pilot, "q")  # one q while recording only asks too
+            assert not pipeline.wait(0) and not app.sealing
             await _quit(app, pilot, pipeline)
         assert len(pipeline.sealed) == 2
 
@@ -329,12 +346,18 @@ def test_zero_key_tares_the_current_channel(start: Callable[..., Pipeline]) -> N
             await _until(pilot, lambda: "mark" in _kinds(app), 30.0)
             (zeroed,) = [e for e in pipeline.events.recent() if e.kind == "mark"]
             assert zeroed.channel == "out_a" and "zeroed out_a" in zeroed.detail
-            # The load draws current, so the readings just after the tare are about 0 A (the load steps only
-            # every 7 s of simulated time; 20 ms after the tare it has not moved).
+            # From the tare on, each reading is its raw counts less the counts taken as zero, times one LSB
+            # through the shunt and amplifier (LSB = Vref / 2^bits, common practice, no source). Checked on the
+            # samples themselves, so a load step near the tare cannot mislead the test.
             await _until(pilot, lambda: pipeline.ring.latest(1)[0][-1] > zeroed.start_us + 20_000, 30.0)
             utc, values = pipeline.ring.latest(pipeline.ring.capacity)
-            after = values[(utc >= zeroed.start_us) & (utc < zeroed.start_us + 20_000), 1]
-            assert len(after) > 5 and abs(float(np.median(after))) < 0.05
+            c_utc, counts = pipeline.counts_ring.latest(pipeline.counts_ring.capacity)
+            after = (utc >= zeroed.start_us) & (utc < zeroed.start_us + 20_000)
+            same = np.isin(c_utc, utc[after])
+            lsb_a = pipeline.header.vref_mv / 1000 / 2 ** pipeline.header.adc_bits / (0.01 * 50.0)  # the rig's shunt
+            assert after.sum() > 5 and same.sum() == after.sum()
+            # The rig file's scaling only (the simulated ADC's own gain error is not corrected: no profile).
+            assert np.allclose(values[after, 1], (counts[same, 1] - zeroed.value) * lsb_a, atol=lsb_a / 2)
             await _quit(app, pilot, pipeline)
 
     asyncio.run(run())
@@ -437,3 +460,29 @@ def test_a_failed_run_keeps_the_screen_up_with_its_reason(start: Callable[..., P
 
     asyncio.run(run())
     assert pipeline.final is not None and pipeline.final["stop_reason"].startswith("failed: internal error")
+
+
+def test_the_banner_tells_the_worst_fault_first_and_says_now_once() -> None:
+    """A dropout on out_v and a brownout on meter_v at the same moment: the dropout leads, going on or just
+    ended, and a later lesser fault does not hide it while it is held (common practice, no source: a rail that
+    is gone is worse than one that sags)."""
+    from dataclasses import replace
+
+    from logger.events.model import Event
+    from logger.sim.simple import simple_rig
+
+    snap = FakePipeline(simple_rig(), [12.0, 1.0], [11.9, 0.9], [12.1, 1.1]).snapshot()
+    t0 = 1_800_000_000_000_000
+    brown = Event("brownout", t0, channel="meter_v", detail="down to 3.3 V (45 % of nominal)")
+    drop = Event("dropout", t0 + 10, channel="out_v", detail="down to 0 V (0 % of nominal)")
+    banner = Banner("bench")
+    banner.show(replace(snap, active=(brown, drop)), [])
+    line = str(banner.content)
+    assert line.startswith("NOW: DROPOUT on out_v: down to 0 V") and line.index("DROPOUT") < line.index("BROWNOUT")
+    assert " now" not in line.lower().replace("now:", "")  # no "NOW: ... now"
+    ended = [replace(brown, end_us=t0 + 200_000, device_start_us=0, device_end_us=200_000),
+             replace(drop, end_us=t0 + 150_000, device_start_us=10, device_end_us=150_010)]
+    banner.show(snap, ended)
+    assert str(banner.content).startswith("JUST NOW: DROPOUT on out_v for 150 ms")
+    banner.show(snap, [replace(brown, start_us=t0 + 1_000_000, end_us=t0 + 1_100_000)])  # a lesser one, later
+    assert str(banner.content).startswith("JUST NOW: DROPOUT on out_v")

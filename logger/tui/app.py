@@ -37,6 +37,10 @@ from logger.tui.trend import Trend
 POLL_S = 0.1
 
 
+AGAIN_S = 3.0
+"""How long a key that asks for a second press waits for it."""
+
+
 class RailtapApp(App[str]):
     """The live screen over a started :class:`~logger.ingest.Pipeline`; returns a one-line summary."""
 
@@ -62,8 +66,8 @@ class RailtapApp(App[str]):
         Binding("w", "record", "record"),
         Binding("k", "calibrate", "cal"),
         Binding("q", "quit", "quit"),
-        Binding("ctrl+q", "quit", "quit", show=False, priority=True),
-        Binding("ctrl+c", "quit", "quit", show=False),
+        Binding("ctrl+q", "quit_now", "quit", show=False, priority=True),
+        Binding("ctrl+c", "quit_now", "quit", show=False),
     ]
 
     def __init__(self, pipeline: Pipeline) -> None:
@@ -73,7 +77,8 @@ class RailtapApp(App[str]):
         self.paused = False
         self.sealing = False
         self._seen_id = 0
-        self._zero_armed: tuple[str, float] | None = None
+        self._armed: tuple[str, float] | None = None
+        """The key that asked "press again" and when: a second press within ``AGAIN_S`` does the thing."""
 
     def compose(self) -> ComposeResult:
         yield Banner(self.pipeline.rig.name, id="banner")
@@ -175,22 +180,30 @@ class RailtapApp(App[str]):
         trend = self.query_one(Trend)
         shown = trend.history.shown.names[trend.channel]
         name = shown if shown in amps else amps[0]
-        now = time.monotonic()
-        if self._zero_armed is not None and self._zero_armed[0] == name and now - self._zero_armed[1] < 3.0:
-            self._zero_armed = None
-            self.pipeline.zero(name)
-            self.notify(f"{name} zeroed at its present reading; noted in the event list and in the run", timeout=3)
-            return
-        self._zero_armed = (name, now)
         latest = self.pipeline.snapshot().latest
         reading = "" if latest is None else \
             f" (it reads {latest[self.pipeline.rig.channels.index(self.pipeline.rig.channel(name))]:+.4g} A now)"
-        self.notify(f"press z again within 3 s to take {name}'s present reading as 0 A{reading}: only with no "
-                    "current flowing", severity="warning", timeout=3)
+        if self._again(f"zero {name}", f"press z again within {AGAIN_S:g} s to take {name}'s present reading as "
+                       f"0 A{reading}: only with no current flowing"):
+            self.pipeline.zero(name)
+            self.notify(f"{name} zeroed at its present reading; noted in the event list and in the run", timeout=3)
+
+    def _again(self, what: str, ask: str) -> bool:
+        """True on the second press of the same thing within ``AGAIN_S``; the first one shows ``ask``."""
+        now = time.monotonic()
+        if self._armed is not None and self._armed[0] == what and now - self._armed[1] < AGAIN_S:
+            self._armed = None
+            return True
+        self._armed = (what, now)
+        self.notify(ask, severity="warning", timeout=AGAIN_S)
+        return False
 
     def action_record(self) -> None:
         """Stop recording (the run is sealed while the screen goes on) or start a new run folder."""
         on = not self.pipeline.recording
+        if not on and not self._again("stop recording", f"press w again within {AGAIN_S:g} s to stop recording "
+                                      "(the run is sealed; the screen goes on, recording nothing)"):
+            return
         try:
             self.pipeline.set_recording(on)
         except ValueError as exc:
@@ -211,6 +224,14 @@ class RailtapApp(App[str]):
         self.poll()
 
     async def action_quit(self) -> None:
+        """Stop and seal; while a run is being recorded, only on a second press (one key must not end a test)."""
+        if self.pipeline.recording and not self.pipeline.wait(0) and not self.sealing and not self._again(
+                "quit", f"press q again within {AGAIN_S:g} s to stop the test and seal the run"):
+            return
+        self._seal("stopped by user")
+
+    async def action_quit_now(self) -> None:
+        """Ctrl+C and Ctrl+Q: a deliberate stop, at once."""
         self._seal("stopped by user")
 
     # -- stopping ---------------------------------------------------------------------------------

@@ -2,7 +2,8 @@
 
 It shows, in order of importance: the run being sealed; a brownout, dropout, overvoltage or overcurrent going
 on; a link that is down or carries no valid data; a fault that ended less than ``hold_s`` ago; a pipeline
-still waiting for its device or stopped; a paused display; otherwise a quiet line with the rig's name.
+still waiting for its device or stopped; a paused display; that nothing is being recorded; otherwise a quiet
+line with the rig's name.
 """
 
 from __future__ import annotations
@@ -15,7 +16,9 @@ from logger.events.model import Event
 from logger.ingest.state import Snapshot
 from logger.tui.fmt import event_title
 
-FAULT_KINDS = ("brownout", "dropout", "overvoltage", "overcurrent", "flicker")
+FAULT_KINDS = ("dropout", "overvoltage", "overcurrent", "brownout", "flicker")
+"""The faults the banner tells, worst first: a rail that is gone outranks one out of limits, which outranks a
+sag, which outranks the flicker those sags add up to (common practice, no source)."""
 NO_DATA = {"reconnecting": "DISCONNECTED", "garbled": "NO VALID DATA", "silent": "NO DATA", "failed": "FAILED"}
 
 
@@ -52,10 +55,11 @@ class Banner(Static):
     def show(self, snap: Snapshot, fresh: list[Event]) -> bool:
         """Update from a snapshot and the events new since the last one; True if the bell should ring."""
         ring = False
-        for event in fresh:
-            if event.kind in FAULT_KINDS:
-                self._recent, self._recent_at = event, time.monotonic()
-                ring = ring or (event.kind != "flicker" and self._key(event) not in self._active_seen)
+        held = self._recent is not None and time.monotonic() - self._recent_at < self.hold_s
+        for event in sorted((e for e in fresh if e.kind in FAULT_KINDS), key=_rank):
+            if not held or _rank(event) <= _rank(self._recent):  # a lesser fault does not hide a worse one
+                self._recent, self._recent_at, held = event, time.monotonic(), True
+            ring = ring or (event.kind != "flicker" and self._key(event) not in self._active_seen)
         active = {self._key(e) for e in snap.active}
         ring = ring or bool(active - self._active_seen)
         self._active_seen = active | {self._key(e) for e in fresh}
@@ -72,7 +76,7 @@ class Banner(Static):
         if self.sealing:
             kind, line = "-warn", self.sealing
         elif snap.active:
-            kind, line = "-alert", "NOW: " + "; ".join(event_title(e) for e in snap.active)
+            kind, line = "-alert", "NOW: " + "; ".join(event_title(e) for e in sorted(snap.active, key=_rank))
         elif snap.state in NO_DATA:
             kind, line = "-alert", f"{NO_DATA[snap.state]}{_for(snap.link.down_since)}: {snap.message}"
         elif held:
@@ -81,6 +85,8 @@ class Banner(Static):
             kind, line = "-warn", f"{snap.state.upper()}: {snap.message}"
         elif self.paused:
             kind, line = "-muted", "display paused (recording goes on); press p to go on"
+        elif snap.recording is None:
+            kind, line = "-warn", f"NOT RECORDING: nothing is being kept (w starts a run) | {self.rig_name}"
         if self.paused and kind != "-muted":
             line = f"[paused] {line}"
         if self.bell_on and not self.sealing:
@@ -90,6 +96,10 @@ class Banner(Static):
         if line != self._line:
             self._line = line
             self.update(line)
+
+
+def _rank(event: Event) -> int:
+    return FAULT_KINDS.index(event.kind) if event.kind in FAULT_KINDS else len(FAULT_KINDS)
 
 
 def _for(since: float | None) -> str:

@@ -42,8 +42,8 @@ def size_text(size_bytes: int) -> str:
 
 
 def event_title(event: Event) -> str:
-    """One short line for an event, for the banner: kind, channel, how long, how deep."""
-    lasted = f" for {duration_text(event.duration_s)}" if event.duration_s is not None else " now"
+    """One short line for an event, for the banner: kind, channel, how long (once it has ended), how deep."""
+    lasted = f" for {duration_text(event.duration_s)}" if event.duration_s is not None else ""
     detail = f": {event.detail}" if event.detail and event.detail != "going on" else ""
     return f"{event.kind.upper()} on {event.channel or 'link'}{lasted}{detail}"
 
