@@ -305,3 +305,31 @@ def test_review_leaves_out_a_damaged_part_and_says_the_run_is_incomplete(tmp_pat
         assert code == 2 and middle.name in err
     else:
         assert code == 3 and "INCOMPLETE: B leaves out a part" in out and middle.name in out
+
+
+def test_sealed_events_are_numbered_in_time_order_with_dips_pointing_at_their_episode(tmp_path: Path,
+                                                                                       capsys) -> None:
+    """Events are written as they end: a long brownout and a flicker episode come after shorter events that
+    started later. The sealed table numbers them by start (an episode before its first dip at the same start),
+    and `review --events` lists #1, #2, #3... in that order."""
+    from logger.events.model import Event
+
+    s = 1_000_000
+    def event(kind: str, start_s: int, end_s: int, channel: str, detail: str, n: int) -> Event:
+        return Event(kind, T0 + start_s * s, end_us=T0 + end_s * s, channel=channel, detail=detail, id=n)
+
+    written = [event("brownout", 10, 11, "out_v", "dip 1", 1), event("brownout", 12, 13, "out_v", "dip 2", 2),
+               event("dropout", 2, 25, "out_a", "long one", 3), event("flicker", 10, 14, "out_v", "2 dips", 4)]
+    # ... in the order they ended
+    t = np.arange(0, 30.0, 1 / 100)
+    run = _write_run(tmp_path, t, np.full(len(t), 12.0), np.ones(len(t)), rate_hz=100.0,
+                     events=[e.row() for e in written])
+    table = pd.read_parquet(run / "_events.parquet")
+    assert table["detail"].tolist() == ["long one", "2 dips", "dip 1", "dip 2"]
+    assert table["id"].tolist() == [1, 2, 3, 4]
+    assert table["episode"].tolist()[2:] == [2, 2] and pd.isna(table["episode"].iloc[0])
+    capsys.readouterr()
+    assert main(["review", str(run), "--events"]) == 0
+    listed = [line.split("|")[1].strip() for line in capsys.readouterr().out.splitlines()
+              if line.startswith("| ") and line.split("|")[1].strip().isdigit()]
+    assert listed == ["1", "2", "3", "4"]

@@ -99,8 +99,8 @@ def _t(value: datetime) -> str:
 
 
 def events_text(folder: Path) -> str:
-    """Every event of a run in the order they started, as a table (numbered in the order they ended, as they
-    were written; ``review --event N`` shows the samples around one)."""
+    """Every event of a run in the order they started, as a table, by the numbers the sealed table gives them
+    (time order; ``review --event N`` shows the samples around one)."""
     path = folder / EVENTS_PARQUET
     rows = sorted(pq.read_table(path).to_pylist(), key=lambda e: (e["start"], e["id"])) if path.exists() else []
     lines = ["| # | kind | channel | start (UTC) | lasted | value | depth | detail |", "|---" * 8 + "|"]

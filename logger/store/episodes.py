@@ -1,8 +1,10 @@
-"""Point the brownouts and dropouts of a flicker episode at it, in the sealed event table.
+"""The sealed event table's final form: numbered in time order, dips pointing at their flicker episode.
 
-Dips are written the moment they end, before anyone knows a flicker episode will follow; the episode row
-comes later. So once a run's events are sealed, each dip on the episode's channel that started within the
-episode's span gets the episode's id in its ``episode`` column. Event tables are small: plain lists do.
+Events are written the moment they end, so a long brownout or a flicker episode is written after events that
+started later; once a run's events are sealed, the table is put in order of start time and numbered 1..N in
+that order (what `railtap review --events` lists and `--event N` takes). Dips are written before anyone knows
+a flicker episode will follow; each dip on the episode's channel that started within the episode's span gets
+the episode's number in its ``episode`` column. Event tables are small: plain lists do.
 """
 
 from __future__ import annotations
@@ -19,16 +21,24 @@ DIPS = ("brownout", "dropout")
 
 
 def link_episodes(path: Path) -> int:
-    """Rewrite the event table at ``path`` with dips pointing at their episode; returns how many were linked."""
+    """Rewrite the event table at ``path`` in time order, numbered afresh, with dips pointing at their episode;
+    returns how many dips were linked."""
     table = pq.read_table(path)
+    if table.num_rows:
+        order = sorted(range(table.num_rows), key=_time_order(table))
+        table = table.take(pa.array(order, pa.int64()))
+        column = table.schema.get_field_index("id")
+        table = table.set_column(column, table.schema.field(column),
+                                 from_values(list(range(1, table.num_rows + 1)), pa.int64()))
     kinds = table["kind"].to_pylist()
     if "flicker" not in kinds:
+        _write(table, path)
         return 0
     channels = table["channel"].to_pylist()
     starts = table["start"].cast(pa.int64()).to_pylist()
     ends = table["end"].cast(pa.int64()).to_pylist()
     ids = table["id"].to_pylist()
-    episode = table["episode"].to_pylist()
+    episode: list[int | None] = [None] * table.num_rows  # numbers given while live are replaced by the final ones
     linked = 0
     for k, kind in enumerate(kinds):
         if kind != "flicker":
@@ -40,10 +50,23 @@ def link_episodes(path: Path) -> int:
                 linked += 1
     column = table.schema.get_field_index("episode")
     table = table.set_column(column, table.schema.field(column), from_values(episode, pa.int64()))
+    _write(table, path)
+    return linked
+
+
+def _time_order(table: pa.Table):
+    """Sort key of a row: its start, then (at the same start) the longer first, so an episode precedes its
+    first dip, then by kind and channel for a stable order."""
+    starts = table["start"].cast(pa.int64()).to_pylist()
+    ends = table["end"].cast(pa.int64()).to_pylist()
+    kinds, channels = table["kind"].to_pylist(), table["channel"].to_pylist()
+    return lambda k: (starts[k], -(ends[k] if ends[k] is not None else starts[k]), kinds[k], channels[k] or "")
+
+
+def _write(table: pa.Table, path: Path) -> None:
     key_value = pq.read_metadata(path).metadata or {}
     tmp = path.with_name("_" + path.name + ".tmp")
     with pq.ParquetWriter(tmp, table.schema, compression="zstd", write_page_checksum=True) as writer:
         writer.write_table(table)
         writer.add_key_value_metadata({k.decode(): v.decode() for k, v in key_value.items()})
     os.replace(tmp, path)
-    return linked

@@ -47,7 +47,7 @@ class EventTable(DataTable):
         self.add_column("start", key="start")
         self.add_column("lasted", key="lasted")
         self.add_column("residual / detail", key="detail")
-        self.add_column("#", key="id")
+        self.add_column("seen", key="id")  # the order events ended in, not the run's numbers (by start)
 
     def add_events(self, newest_first: tuple[Event, ...]) -> list[Event]:
         """Add the events not shown yet; returns them, oldest first."""

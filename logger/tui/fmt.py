@@ -51,11 +51,12 @@ def event_title(event: Event) -> str:
 def event_details(event: Event) -> str:
     """Every field an event has, in words, for the line under the event list."""
     where = event.channel or ("" if event.kind == "mark" else "link")
-    text = f"#{event.id} {event.kind}{' ' + where if where else ''} at {local_time(event.start_us)}"
+    # No number: the screen counts events as they end, the sealed run numbers them by start time.
+    text = f"{event.kind}{' ' + where if where else ''} at {local_time(event.start_us)}"
     if event.end_us is not None:
         text += f", {duration_text(event.duration_s)}"
     elif event.kind not in ("mark", "device_reset"):
         text += " (going on)"
     if event.episode is not None:
-        text += f", in flicker #{event.episode}"
+        text += ", part of a flicker episode"
     return f"{text}: {event.detail}" if event.detail else text
