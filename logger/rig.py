@@ -53,6 +53,9 @@ class Channel:
     profile: Profile | None = None
     """The channel's calibration profile, when the rig names one; it replaces the scaling above."""
     profile_path: str | None = None
+    zero_limit_pct: float = 5.0
+    """The largest reading, as a share of the ADC's range, that may be taken as zero (amps): a tare taken
+    with current flowing would offset every reading after it."""
 
     def units_per_pin_volt(self) -> float:
         """Calibrated units per volt at the ADC pin, sign included."""
@@ -172,7 +175,7 @@ def rig_from_dict(doc: dict[str, Any], source: str = "<rig>", text: str = "", *,
 TOP_KEYS = ("name", "device", "channel")
 DEVICE_KEYS = ("port", "baud", "adc_bits", "vref_mv")
 CHANNEL_KEYS = ("name", "role", "input", "divider", "shunt_ohm", "gain", "negative", "offset_counts", "nominal",
-                "low", "high", "unit", "events", "profile")
+                "low", "high", "unit", "events", "profile", "zero_limit_pct")
 
 
 class _Checker:
@@ -256,6 +259,9 @@ def _channel(c: _Checker, index: int, table: dict[str, Any], base: Path | None) 
     if low is not None and high is not None and abs(low) >= abs(high):
         raise c.fail(f"{w}low", f"a smaller magnitude than high ({high:g})")
     given = {k: v for k, v in numbers.items() if v is not None}
+    zero_limit = c.get(table, "zero_limit_pct", float, 5.0, w)
+    if not 0 < zero_limit <= 100:
+        raise c.fail(f"{w}zero_limit_pct", "a share of the ADC's range above 0 and up to 100 (%)")
     unit = c.get(table, "unit", str, UNITS.get(role, ""), w)
     profile_path = c.get(table, "profile", str, None, w)
     return Channel(
@@ -267,6 +273,7 @@ def _channel(c: _Checker, index: int, table: dict[str, Any], base: Path | None) 
         events=events,
         profile=_profile(c, base, profile_path, name, unit, w),
         profile_path=profile_path,
+        zero_limit_pct=zero_limit,
         **given,
     )
 

@@ -412,3 +412,20 @@ def test_recal_of_a_run_with_a_damaged_part_names_it_and_changes_nothing(tmp_pat
     with pytest.raises(StoreError, match=part.name):
         recalibrate(run, [_line_profile("out_v", "V", 3.3 / 4096 * 11.0, (0.0, 4095.0))])
     assert read_run_json(run) == before and not list(run.glob("_recal-*"))
+
+
+def test_a_zero_far_up_the_range_is_refused_and_the_limit_is_the_rigs() -> None:
+    """A 12-bit converter spans 4096 counts (2^N, common practice, no source): 204 counts is 4.98 % and may be
+    a zero under the default 5 %; 205 is 5.005 % and is refused, with the share and the rig key named; 3.48 A
+    on a 6.6 A range (2160 counts) is refused outright; a rig can allow more."""
+    from dataclasses import replace
+
+    from logger.cal.zero import zero_refusal
+    from logger.sim.simple import simple_rig
+
+    out_a = simple_rig().channel("out_a")
+    assert zero_refusal(out_a, 204.0, 12) is None
+    refusal = zero_refusal(out_a, 205.0, 12)
+    assert refusal is not None and "5 % of the ADC's range" in refusal and "zero_limit_pct" in refusal
+    assert "53 %" in zero_refusal(out_a, 2160.0, 12)
+    assert zero_refusal(replace(out_a, zero_limit_pct=60.0), 2160.0, 12) is None

@@ -66,6 +66,8 @@ def test_a_negative_rail_takes_its_limits_with_either_sign() -> None:
         ("[[channel]]\nname = 'a'\nrole = 'amps'\ninput = 0\nshunt_ohm = 0.01\nhigh = -5\n",
          "high: expected a limit above zero"),
         ("[[channel]]\nname = 'v'\nrole = 'volts'\ninput = 0\nlow = 0\n", "low: expected a limit above zero"),
+        ("[[channel]]\nname = 'a'\nrole = 'amps'\ninput = 0\nshunt_ohm = 0.01\nzero_limit_pct = 0\n",
+         "zero_limit_pct: expected a share of the ADC's range"),
         # Names that would clash with the sample table's columns, or are not usable as a column name:
         ("[[channel]]\nname = 'utc'\nrole = 'volts'\ninput = 0\n", "channel[0].name: expected a name other than utc"),
         ("[[channel]]\nname = 'class'\nrole = 'volts'\ninput = 0\n", "not a Python word"),

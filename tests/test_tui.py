@@ -47,11 +47,12 @@ def start(tmp_path: Path) -> Iterator[Callable[..., Pipeline]]:
     """Starts a pipeline on the simulated demo bench; any still running at the end are stopped and sealed."""
     started: list[Pipeline] = []
 
-    def make(speed: float = 100.0, unplug: tuple[float, float] | None = None, **settings) -> Pipeline:
+    def make(speed: float = 100.0, unplug: tuple[float, float] | None = None, rig: Rig | None = None,
+             **settings) -> Pipeline:
         source = SimSource(SCENARIO.make_device(1), speed=speed, duration_s=SCENARIO.duration_s)
         if unplug is not None:
             source.unplug(*unplug)
-        pipeline = Pipeline(source, SCENARIO.rig, Settings(record_root=tmp_path, **settings))
+        pipeline = Pipeline(source, rig or SCENARIO.rig, Settings(record_root=tmp_path, **settings))
         pipeline.start()
         started.append(pipeline)
         return pipeline
@@ -244,7 +245,8 @@ def test_w_stops_recording_and_starts_a_new_run(start: Callable[..., Pipeline]) 
             await _until(pilot, lambda: pipeline.recorder is not None)
             status = app.query_one(StatusPanel)
             await _key(app, pilot, "w")  # one press only asks: one key must not end a test by accident
-            assert pipeline.recording and "press w again" in str(list(app._notifications)[-1].message)
+            await _until(pilot, lambda: any("press w again" in str(n.message) for n in app._notifications), 30.0)
+            assert pipeline.recording
             await _key(app, pilot, "w")
             await _until(pilot, lambda: len(pipeline.sealed) == 1, 30.0)
             await _until(pilot, lambda: "NOT RECORDING" in str(status.content), 30.0)
@@ -332,8 +334,36 @@ def test_screen_and_headless_record_the_same_run(tmp_path: Path) -> None:
     pd.testing.assert_frame_equal(ea[columns], eb[columns], atol=0.002)
 
 
-def test_zero_key_tares_the_current_channel(start: Callable[..., Pipeline]) -> None:
+def _any_zero(rig: Rig) -> Rig:
+    """The demo rig with out_a's zero allowed anywhere in range: the simulated load never stops drawing."""
+    from dataclasses import replace
+
+    return replace(rig, channels=tuple(replace(ch, zero_limit_pct=100.0) if ch.name == "out_a" else ch
+                                       for ch in rig.channels))
+
+
+def test_zero_key_refuses_a_reading_far_up_the_range(start: Callable[..., Pipeline]) -> None:
+    """out_a draws 0.5 to 3.5 A of a 6.6 A range (3.3 V / (0.01 ohm x 50)): far more than the 5 % a zero may
+    be, so z says why and zeroes nothing, not even on a second press."""
     pipeline = start(speed=5.0)
+
+    async def run() -> None:
+        app = RailtapApp(pipeline)
+        async with app.run_test(size=SIZE) as pilot:
+            await _until(pilot, lambda: pipeline.counts_ring is not None and pipeline.counts_ring.written > 100)
+            await _key(app, pilot, "z")
+            await _key(app, pilot, "z")
+            told = [str(n.message) for n in app._notifications]
+            assert any("not taken as zero" in t and "% of the ADC's range" in t for t in told), told
+            assert not any("press z again" in t for t in told)
+            await _quit(app, pilot, pipeline)
+
+    asyncio.run(run())
+    assert not pipeline.final.get("calibration_changes")
+
+
+def test_zero_key_tares_the_current_channel(start: Callable[..., Pipeline]) -> None:
+    pipeline = start(speed=5.0, rig=_any_zero(SCENARIO.rig))
 
     async def run() -> None:
         app = RailtapApp(pipeline)

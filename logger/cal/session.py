@@ -21,6 +21,7 @@ from logger.cal.assess import MODELS, Assessment, CalPoint, Candidate, assess, g
 from logger.cal.capture import DEFAULT_MAX_SD, DEFAULT_SAMPLES, Reading, Recent, take_point
 from logger.cal.profile import Profile, save_profile
 from logger.cal.report import assessment_text
+from logger.cal.zero import zero_refusal
 from logger.rig import Channel, Rig
 from logger.wire import DeviceHeader
 
@@ -237,6 +238,10 @@ def zero(pipeline: Tap, rig: Rig, ch: Channel, k: int, opts: CalOptions, ask: As
     reading = capture(pipeline, k, opts, say)
     if not reading.settled:
         raise CalError(f"{ch.name}: not zeroed: {reading.why}")
+    header = pipeline.header
+    refusal = zero_refusal(ch, reading.mean, header.adc_bits) if header is not None else None
+    if refusal is not None:
+        raise CalError(refusal)
     if ch.profile is None:
         say(f"{ch.name} reads {reading.mean:.2f} counts with no current (sd {reading.sd:.2f}); put this line in "
             f"channel {ch.name!r} of {rig.source or 'the rig file'}:\n  offset_counts = {reading.mean:.2f}\n")

@@ -22,7 +22,9 @@ from textual.css.query import NoMatches
 from textual.widgets import DataTable, Footer
 from textual.worker import get_current_worker
 
+from logger.cal.zero import zero_refusal
 from logger.ingest import Pipeline
+from logger.ingest.stream import ZERO_MOMENT_S
 from logger.tui.banner import Banner
 from logger.tui.calpanel import CalPanel
 from logger.tui.channels import shown_channels
@@ -180,13 +182,26 @@ class RailtapApp(App[str]):
         trend = self.query_one(Trend)
         shown = trend.history.shown.names[trend.channel]
         name = shown if shown in amps else amps[0]
+        k = [ch.name for ch in self.pipeline.rig.channels].index(name)
+        refusal = self._implausible_zero(k)
+        if refusal is not None:
+            self.notify(refusal, severity="error", timeout=6)
+            return
         latest = self.pipeline.snapshot().latest
-        reading = "" if latest is None else \
-            f" (it reads {latest[self.pipeline.rig.channels.index(self.pipeline.rig.channel(name))]:+.4g} A now)"
+        reading = "" if latest is None else f" (it reads {latest[k]:+.4g} A now)"
         if self._again(f"zero {name}", f"press z again within {AGAIN_S:g} s to take {name}'s present reading as "
                        f"0 A{reading}: only with no current flowing"):
             self.pipeline.zero(name)
             self.notify(f"{name} zeroed at its present reading; noted in the event list and in the run", timeout=3)
+
+    def _implausible_zero(self, k: int) -> str | None:
+        """Why the present reading of channel ``k`` cannot be its zero (the last 50 ms of raw counts), if so."""
+        ring, header = self.pipeline.counts_ring, self.pipeline.header
+        if ring is None or header is None or not ring.written:
+            return None
+        period_s = 1.0 / header.rate_hz
+        _, counts = ring.latest(max(1, min(ring.capacity, round(ZERO_MOMENT_S / period_s))))
+        return zero_refusal(self.pipeline.rig.channels[k], float(counts[:, k].mean()), header.adc_bits)
 
     def _again(self, what: str, ask: str) -> bool:
         """True on the second press of the same thing within ``AGAIN_S``; the first one shows ``ask``."""
