@@ -328,8 +328,14 @@ def test_sealed_events_are_numbered_in_time_order_with_dips_pointing_at_their_ep
     assert table["detail"].tolist() == ["long one", "2 dips", "dip 1", "dip 2"]
     assert table["id"].tolist() == [1, 2, 3, 4]
     assert table["episode"].tolist()[2:] == [2, 2] and pd.isna(table["episode"].iloc[0])
-    capsys.readouterr()
-    assert main(["review", str(run), "--events"]) == 0
-    listed = [line.split("|")[1].strip() for line in capsys.readouterr().out.splitlines()
-              if line.startswith("| ") and line.split("|")[1].strip().isdigit()]
-    assert listed == ["1", "2", "3", "4"]
+
+    def listed(*options: str) -> list[str]:
+        capsys.readouterr()
+        assert main(["review", str(run), "--events", *options]) == 0
+        return [line.split("|")[1].strip() for line in capsys.readouterr().out.splitlines()
+                if line.startswith("| ") and line.split("|")[1].strip().isdigit()]
+
+    assert listed() == ["1", "2"]  # one row per flicker episode: its dips are counted in it
+    assert listed("--dips") == ["1", "2", "3", "4"]
+    assert listed("--kind", "dropout") == ["1"] and listed("--channel", "out_v") == ["2"]
+    assert listed("--dips", "--kind", "brownout") == ["3", "4"]

@@ -32,7 +32,11 @@ def add_review_commands(sub: argparse._SubParsersAction) -> None:
                         help="time before the event: seconds, or 250ms, 2s, 1m (default 1)")
     review.add_argument("--after", type=duration_arg, default=1.0, metavar="TIME", help="time after the event (1)")
     review.add_argument("--channels", metavar="A,B", help="channels to show (default: the event's, or all)")
-    review.add_argument("--events", action="store_true", help="list every event")
+    review.add_argument("--events", action="store_true",
+                        help="list every event (a flicker episode is one row; --dips lists its dips too)")
+    review.add_argument("--kind", metavar="K,K", help="with --events: only these kinds (brownout,dropout...)")
+    review.add_argument("--channel", metavar="C,C", help="with --events: only these channels")
+    review.add_argument("--dips", action="store_true", help="with --events: also each dip inside a flicker episode")
     review.add_argument("--plot", type=Path, metavar="DIR",
                         help="also draw PNGs into DIR: the overview and a histogram per channel, or the event's zoom")
     review.add_argument("--term", action="store_true", help="also draw the channels (or the event) in the terminal")
@@ -86,7 +90,7 @@ def cmd_review(args: argparse.Namespace) -> int:
     show(summary_text(summary))
     if args.events:
         print()
-        show(events_text(folder))
+        show(events_text(folder, _channels(args.kind), _channels(args.channel), unfold=args.dips))
     _run_pictures(folder, [c.name for c in summary.channels if not channels or c.name in channels], args)
     for line in summary.skipped:
         print(f"railtap: incomplete: {line}", file=sys.stderr)

@@ -98,15 +98,24 @@ def _t(value: datetime) -> str:
     return value.strftime("%Y-%m-%d %H:%M:%S.%f")[:-3]
 
 
-def events_text(folder: Path) -> str:
+def events_text(folder: Path, kinds: list[str] | None = None, channels: list[str] | None = None,
+                unfold: bool = False) -> str:
     """Every event of a run in the order they started, as a table, by the numbers the sealed table gives them
-    (time order; ``review --event N`` shows the samples around one)."""
+    (time order; ``review --event N`` shows the samples around one). A flicker episode is one row that counts
+    its dips; the dips themselves are listed only with ``unfold``. ``kinds`` and ``channels`` keep only those."""
     path = folder / EVENTS_PARQUET
     rows = sorted(pq.read_table(path).to_pylist(), key=lambda e: (e["start"], e["id"])) if path.exists() else []
+    shown = [e for e in rows if (unfold or e.get("episode") is None)
+             and (not kinds or e["kind"] in kinds) and (not channels or (e["channel"] or "-") in channels)]
     lines = ["| # | kind | channel | start (UTC) | lasted | value | depth | detail |", "|---" * 8 + "|"]
-    for e in rows:
+    for e in shown:
         lasted = "-" if e["duration_s"] is None else f"{e['duration_s']:.3f} s"
         depth = "-" if e["depth_pct"] is None else f"{e['depth_pct']:.1f} %"
+        inside = f" (in episode #{e['episode']})" if e.get("episode") is not None else ""
         lines.append(f"| {e['id']} | {e['kind']} | {e['channel'] or '-'} | {_t(e['start'])} | {lasted} | "
-                     f"{_g(e['value'])} | {depth} | {e['detail']} |")
-    return "\n".join(lines)
+                     f"{_g(e['value'])} | {depth} | {e['detail']}{inside} |")
+    folded = sum(1 for e in rows if e.get("episode") is not None) if not unfold else 0
+    hidden = len(rows) - len(shown) - folded
+    notes = ([f"{folded:,} dips inside flicker episodes are counted in their episode's row (--dips lists them)"]
+             if folded else []) + ([f"{hidden:,} events of other kinds or channels not shown"] if hidden > 0 else [])
+    return "\n".join(lines + (["", *notes] if notes else []))
