@@ -337,3 +337,18 @@ def test_duration_ends_cleanly_when_a_drain_runs_past_it(tmp_path: Path) -> None
     p = _run(SimSource(SimDevice(seed=8), speed=0.0), tmp_path, duration_s=20.0)
     assert p.error is None and p.stop_reason == "duration of 20 s reached"
     assert p.final is not None and 19_990 <= p.final["rows"] <= 20_000
+
+
+def test_the_frame_rate_is_the_devices_even_when_reads_run_ahead(tmp_path: Path) -> None:
+    """A 1 kHz device read 20 times faster than real time (as a backlog is read after start-up): the link
+    panel's rate is measured on the device clock, so it says 1000 frames/s, not 20,000."""
+    pipeline = Pipeline(SimSource(SimDevice(seed=4), speed=20.0, duration_s=120.0), RIG,
+                        Settings(record_root=tmp_path))
+    pipeline.start()
+    rates: list[float] = []
+    while not pipeline.wait(0.05):
+        rate = pipeline.snapshot().link.rate_hz
+        if rate:
+            rates.append(rate)
+    assert len(rates) > 5
+    assert all(900.0 < r < 1100.0 for r in rates), (min(rates), max(rates))  # 1 kHz less the link's few losses

@@ -332,7 +332,7 @@ class Pipeline:
                 self._on_header(item)
             else:
                 self.answers = (*self.answers[-19:], item)
-        self._rate.mark(self.decoder.counters.frames)
+        self._rate.mark(self.timebase.counters.rows if self.timebase is not None else 0, self.stream.last_us)
         self._flow.frames_so_far(self.decoder.counters.frames)
         if self.stream.last_utc_us is not None:
             self._note(self._link.rejects(self.decoder.counters.rejected, self.stream.last_utc_us))

@@ -50,21 +50,25 @@ class Ring:
 
 
 class RateMeter:
-    """Frames per second over the last few seconds, falling to zero when nothing arrives."""
+    """Sample sets per second on the device's clock over the last few seconds of arrivals, falling to zero when
+    nothing arrives. On the device clock, not on arrivals: a backlog read at start-up or after a stall arrives
+    faster than the device sends it, and must not read as a faster device."""
 
     def __init__(self, window_s: float = 5.0) -> None:
         self.window_s = window_s
-        self._marks: deque[tuple[float, int]] = deque(maxlen=256)
+        self._marks: deque[tuple[float, int, int]] = deque(maxlen=256)
 
-    def mark(self, total: int) -> None:
-        self._marks.append((time.monotonic(), total))
+    def mark(self, rows: int, device_us: int | None) -> None:
+        """The rows taken so far and the device clock of the newest (None before the first)."""
+        if device_us is not None:
+            self._marks.append((time.monotonic(), rows, device_us))
 
     def per_second(self) -> float:
         now = time.monotonic()
         marks = [m for m in self._marks if m[0] >= now - self.window_s]
-        if len(marks) < 2:
+        if len(marks) < 2 or marks[-1][2] <= marks[0][2]:
             return 0.0
-        return (marks[-1][1] - marks[0][1]) / (now - marks[0][0])
+        return (marks[-1][1] - marks[0][1]) / ((marks[-1][2] - marks[0][2]) / 1e6)
 
 
 @dataclass(frozen=True)
