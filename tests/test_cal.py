@@ -429,3 +429,42 @@ def test_a_zero_far_up_the_range_is_refused_and_the_limit_is_the_rigs() -> None:
     assert refusal is not None and "5 % of the ADC's range" in refusal and "zero_limit_pct" in refusal
     assert "53 %" in zero_refusal(out_a, 2160.0, 12)
     assert zero_refusal(replace(out_a, zero_limit_pct=60.0), 2160.0, 12) is None
+
+
+def test_scatter_beyond_the_stated_uncertainty_is_caught_and_scales_u_as_numpy_does() -> None:
+    """A reference claimed to 1 mV with 20 mV of scatter about a straight converter: chi-squared far above its
+    95 % limit on 6 degrees of freedom (ISO/TS 28037's consistency test; the limit checked against scipy's
+    chi-squared quantile), a warning, and u scaled by the Birge ratio. With equal weights that is exactly the
+    covariance numpy.polyfit reports when it scales by chi2/dof (numpy's documented default), so u(value) at
+    each point is checked against numpy."""
+    from scipy.stats import chi2
+
+    rng = np.random.default_rng(5)
+    counts = np.linspace(200, 3800, 8)
+    refs = 0.0089 * counts + rng.normal(0, 0.020, len(counts))
+    points = [CalPoint(float(r), float(c), 0.0, 1, u_reference=0.001) for r, c in zip(refs, counts, strict=True)]
+    a = assess(points, unit="V")
+    line = a.candidates["line"]
+    assert line.fit.dof == 6 and line.chi2_limit == pytest.approx(chi2.ppf(0.95, 6))
+    assert line.fit.chi2 > 10 * line.chi2_limit and not line.consistent and line.birge > 3
+    assert any("line: the points scatter more than their uncertainties allow" in w for w in a.warnings)
+    from logger.cal.assess import point_uncertainty
+
+    u_points = point_uncertainty(counts, refs, tuple(points))  # the reference's 1 mV and one LSB's 1/sqrt(12)
+    assert u_points == pytest.approx(np.sqrt(0.001**2 + (0.0089 / np.sqrt(12)) ** 2), rel=0.05)
+    _, cov = np.polyfit(counts, refs, 1, w=1 / u_points, cov=True)
+    jac = np.column_stack([counts, np.ones(len(counts))])
+    u_numpy = np.sqrt(np.einsum("ij,jk,ik->i", jac, cov, jac))
+    assert line.curve.uncertainty(counts) == pytest.approx(u_numpy, rel=1e-3)
+
+
+def test_points_with_no_spread_still_carry_the_converters_step() -> None:
+    """CSV points with neither a spread nor a reference uncertainty: each still carries one LSB of quantisation
+    (8.9 mV steps: u = 8.9 / sqrt(12) = 2.57 mV per point, JCGM 100 4.3.7), so a line through six exact points
+    claims no better than 2.57 / sqrt(6) mV at its centre, and the report says the reference's u is missing."""
+    counts = np.array([100.0, 800.0, 1500.0, 2200.0, 2900.0, 3600.0])
+    a = assess([CalPoint(0.0089 * c, c) for c in counts], unit="V")
+    line = a.candidates["line"]
+    assert line.curve.uncertainty(float(counts.mean()))[0] == pytest.approx(0.0089 / np.sqrt(12) / np.sqrt(6),
+                                                                            rel=1e-6)
+    assert any("the reference's uncertainty was not given" in w for w in a.warnings)

@@ -3,13 +3,21 @@
 The recommendation rests on how well each model predicts a point it was not fitted to (leave-one-out, on the
 inner points, so no model is judged on extrapolation): a straight line that predicts left-out points as well
 as a quadratic is the better choice, because it has fewer coefficients to go wrong between the points.
+
+Each point carries a standard uncertainty in the channel's unit: the reference's own (when given), the
+standard error of its mean counts, and the converter's quantisation (one LSB, a rectangular distribution:
+1/sqrt(12) of a count, JCGM 100 4.3.7), the last two through the curve's local slope. The polynomial fits are
+weighted by them, and their chi-squared is checked as ISO/TS 28037 does: when the points scatter more than
+those uncertainties allow, the fit's covariance is scaled by the Birge ratio sqrt(chi2 / dof), so the reported
+uncertainty is the one the scatter supports, and the report says so.
 """
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 import numpy as np
+from scipy.stats import chi2 as chi2_distribution
 
 from logger.cal.fit import Fit, Piecewise, Polynomial, fit_polynomial, piecewise
 
@@ -17,6 +25,10 @@ MODELS = ("line", "quadratic", "piecewise")
 DEGREES = {"line": 1, "quadratic": 2}
 SIMPLER_WINS = 1.25
 """A simpler model is kept unless a more complex one predicts left-out points this many times better."""
+QUANTISATION_COUNTS = 1.0 / np.sqrt(12.0)
+"""Standard uncertainty of a reading from the converter's step: one LSB, rectangular (JCGM 100 4.3.7)."""
+CONSISTENCY = 0.95
+"""The chi-squared test's level: the points agree with the model when chi2 is below this quantile."""
 
 
 @dataclass(frozen=True)
@@ -46,6 +58,18 @@ class Candidate:
     fit: Fit | None = None
     loo_rms: float | None = None
     """Root-mean-square error predicting each inner point from the others (None with too few points)."""
+    birge: float | None = None
+    """sqrt(chi2 / dof) of a polynomial fit weighted by the points' uncertainties (None with dof 0); above 1
+    the points scatter more than their uncertainties, and the curve's covariance has been scaled by its
+    square."""
+    chi2_limit: float | None = None
+    """The chi-squared below which the points agree with the model (its 95 % quantile on dof)."""
+
+    @property
+    def consistent(self) -> bool:
+        """The chi-squared test: do the points agree with the model within their uncertainties?"""
+        fit, limit = self.fit, self.chi2_limit
+        return fit is None or fit.chi2 is None or limit is None or fit.chi2 <= limit
 
     @property
     def max_error(self) -> float:
@@ -76,43 +100,48 @@ def assess(points: list[CalPoint], in_use: tuple[float, float] | None = None, un
         raise ValueError("a curve needs at least 2 points (for one point, use a gain-only adjustment)")
     x = np.array([p.counts for p in pts])
     y = np.array([p.reference for p in pts])
-    u_y = _u_reference(pts)
+    u_y = point_uncertainty(x, y, pts)
     candidates: dict[str, Candidate] = {}
     for model in MODELS:
         if model == "quadratic" and len(pts) < 3:
             continue
-        curve, fit = _fit(model, x, y, u_y, pts)
+        curve, fit = _fit(model, x, y, u_y)
         residuals = y - curve.value(x)
-        candidates[model] = Candidate(model, curve, residuals, fit, _leave_one_out(model, x, y, u_y, pts))
+        candidates[model] = _checked(Candidate(model, curve, residuals, fit, _leave_one_out(model, x, y, u_y)))
     recommended, why = _recommend(candidates, unit)
-    return Assessment(pts, candidates, recommended, why, _warnings(pts, y, in_use, unit))
+    return Assessment(pts, candidates, recommended, why, _warnings(pts, y, in_use, unit, candidates))
 
 
-def _u_reference(pts: tuple[CalPoint, ...]) -> np.ndarray | None:
-    """Reference uncertainties when every point has one, else None (the scatter is then estimated)."""
-    if any(p.u_reference is None for p in pts):
-        return None
-    return np.array([p.u_reference for p in pts], dtype=np.float64)
+def point_uncertainty(x: np.ndarray, y: np.ndarray, pts: tuple[CalPoint, ...]) -> np.ndarray:
+    """Each point's standard uncertainty in the channel's unit: the reference's own (0 when not given), and,
+    through the local slope, the standard error of its mean counts and the converter's quantisation."""
+    slope = np.abs(np.gradient(y, x)) if len(x) > 1 else np.ones(1)
+    counts = np.array([p.counts_sd / np.sqrt(max(p.samples, 1)) for p in pts])
+    reference = np.array([p.u_reference or 0.0 for p in pts])
+    return np.sqrt(reference**2 + (slope * counts) ** 2 + (slope * QUANTISATION_COUNTS) ** 2)
 
 
-def _fit(model: str, x: np.ndarray, y: np.ndarray, u_y: np.ndarray | None,
-         pts: tuple[CalPoint, ...]) -> tuple[Curve, Fit | None]:
+def _fit(model: str, x: np.ndarray, y: np.ndarray, u_y: np.ndarray) -> tuple[Curve, Fit | None]:
     if model in DEGREES:
         fit = fit_polynomial(x, y, DEGREES[model], u_y)
         return fit.curve, fit
-    return piecewise(x, y, _point_noise(x, y, pts, u_y)), None
+    return piecewise(x, y, u_y), None
 
 
-def _point_noise(x: np.ndarray, y: np.ndarray, pts: tuple[CalPoint, ...], u_y: np.ndarray | None) -> np.ndarray:
-    """Each point's own standard uncertainty in the channel's unit: the standard error of its mean counts
-    through the local slope, combined with the reference's uncertainty when known."""
-    slope = np.gradient(y, x) if len(x) > 1 else np.ones(1)
-    se = np.array([p.counts_sd / np.sqrt(max(p.samples, 1)) for p in pts]) * np.abs(slope)
-    return np.sqrt(se**2 + (0.0 if u_y is None else u_y**2))
+def _checked(c: Candidate) -> Candidate:
+    """A polynomial fit with its chi-squared judged and, when the points scatter more than their uncertainties,
+    its covariance scaled by the Birge ratio squared (ISO/TS 28037; the ratio, a common practice)."""
+    if c.fit is None or c.fit.chi2 is None or c.fit.dof == 0:
+        return c
+    birge = float(np.sqrt(c.fit.chi2 / c.fit.dof))
+    limit = float(chi2_distribution.ppf(CONSISTENCY, c.fit.dof))
+    curve = c.curve
+    if birge > 1.0:
+        curve = replace(curve, covariance=tuple(tuple(v * birge**2 for v in row) for row in curve.covariance))
+    return replace(c, curve=curve, birge=birge, chi2_limit=limit)
 
 
-def _leave_one_out(model: str, x: np.ndarray, y: np.ndarray, u_y: np.ndarray | None,
-                   pts: tuple[CalPoint, ...]) -> float | None:
+def _leave_one_out(model: str, x: np.ndarray, y: np.ndarray, u_y: np.ndarray) -> float | None:
     need = {"line": 2, "quadratic": 3, "piecewise": 2}[model]
     inner = range(1, len(x) - 1)
     if len(x) - 1 < need or len(inner) == 0 or (model == "quadratic" and len(x) < 4):
@@ -120,8 +149,7 @@ def _leave_one_out(model: str, x: np.ndarray, y: np.ndarray, u_y: np.ndarray | N
     errors = []
     for k in inner:
         keep = np.arange(len(x)) != k
-        curve, _ = _fit(model, x[keep], y[keep], None if u_y is None else u_y[keep],
-                        tuple(p for i, p in enumerate(pts) if keep[i]))
+        curve, _ = _fit(model, x[keep], y[keep], u_y[keep])
         errors.append(y[k] - float(curve.value(x[k])))
     return float(np.sqrt(np.mean(np.square(errors))))
 
@@ -138,14 +166,25 @@ def _recommend(candidates: dict[str, Candidate], unit: str) -> tuple[str, str]:
     raise AssertionError("unreachable")
 
 
-def _warnings(pts: tuple[CalPoint, ...], y: np.ndarray, in_use: tuple[float, float] | None, unit: str) -> list[str]:
+def _warnings(pts: tuple[CalPoint, ...], y: np.ndarray, in_use: tuple[float, float] | None, unit: str,
+              candidates: dict[str, Candidate]) -> list[str]:
     out = []
     if len(pts) == 2:
-        out.append("2 points: a line goes through both exactly, so nothing checks it; add a third point")
+        out.append("2 points: a line goes through both exactly, so the fit cannot show its own scatter and its "
+                   "uncertainty is only the points' stated ones; add a third point")
     elif len(pts) == 3:
         out.append("3 points: a quadratic goes through all three exactly; add points to check it")
     elif len(pts) < 5:
         out.append(f"{len(pts)} points: a piecewise curve is only as good as its points; 5 or more are better")
+    for c in candidates.values():
+        if not c.consistent:
+            out.append(f"{c.model}: the points scatter more than their uncertainties allow (chi2 {c.fit.chi2:.3g} "
+                       f"on {c.fit.dof} degrees of freedom, 95 % limit {c.chi2_limit:.3g}; ISO/TS 28037): its "
+                       f"uncertainty is scaled by the Birge ratio {c.birge:.3g}; check the reference's stated "
+                       "uncertainty and the points")
+    if all(p.u_reference is None for p in pts):
+        out.append("the reference's uncertainty was not given (--u-ref or a u_reference column): the points' "
+                   "uncertainties count only the converter's noise and step")
     if in_use is not None:
         lo, hi = min(in_use), max(in_use)
         width = hi - lo

@@ -20,9 +20,11 @@ def assessment_text(a: Assessment, unit: str) -> str:
         cells = "".join(f"{_residual(c.residuals[k], p.reference, unit, places):>24}" for c in models)
         lines.append(f"{k + 1:>3} {p.reference:>+11.5g} {unit:<2} {p.counts:>10.2f} {p.counts_sd:>7.2f}  {cells}")
     lines.append("")
-    lines.append(f"  {'model':<11}{'largest error':>22}{'u(value) over span':>22}{'left-out RMS':>16}")
+    lines.append(f"  {'model':<11}{'largest error':>22}{'u(value) over span':>22}{'left-out RMS':>16}"
+                 f"{'chi2 / dof (95 % limit)':>28}")
     for c in a.candidates.values():
-        lines.append(f"  {c.model:<11}{_largest(c, a, unit):>22}{_u(c, lo, hi, unit):>22}{_loo(c, unit):>16}")
+        lines.append(f"  {c.model:<11}{_largest(c, a, unit):>22}{_u(c, lo, hi, unit):>22}{_loo(c, unit):>16}"
+                     f"{_chi2(c):>28}")
     lines.append("")
     lines.append(f"recommended: {a.recommended}: {a.why}")
     lines += [f"warning: {w}" for w in a.warnings]
@@ -50,3 +52,13 @@ def _u(c: Candidate, lo: float, hi: float, unit: str) -> str:
 
 def _loo(c: Candidate, unit: str) -> str:
     return "-" if c.loo_rms is None else f"{c.loo_rms:.3g} {unit}"
+
+
+def _chi2(c: Candidate) -> str:
+    """The fit's chi-squared against its limit, and the Birge ratio when it scaled the uncertainty."""
+    if c.fit is None or c.fit.chi2 is None:
+        return "-"
+    if c.chi2_limit is None:
+        return "no scatter to judge"
+    scaled = f", x{c.birge:.3g}" if c.birge is not None and c.birge > 1 else ""
+    return f"{c.fit.chi2:.3g} / {c.fit.dof} ({c.chi2_limit:.3g}){scaled}"
