@@ -339,3 +339,18 @@ def test_sealed_events_are_numbered_in_time_order_with_dips_pointing_at_their_ep
     assert listed("--dips") == ["1", "2", "3", "4"]
     assert listed("--kind", "dropout") == ["1"] and listed("--channel", "out_v") == ["2"]
     assert listed("--dips", "--kind", "brownout") == ["3", "4"]
+
+
+@pytest.mark.parametrize(("value", "step", "signed", "text"), [
+    (11.3367141, 0.0088623, False, "11.337"),   # 8.86 mV steps: three places
+    (1.776e-15, 0.0088623, False, "0"),         # float noise is zero
+    (-0.0004, 0.0088623, True, "0"),            # below half the last place: zero, no sign
+    (0.0123, 0.0016113, True, "+0.012"),
+    (2.99393e-05, None, True, "+2.994e-05"),    # no step known: four significant digits
+    (0.0, None, False, "0"),
+    (float("nan"), 0.01, False, "-"),
+])  # a figure to the place of one converter step, LSB = Vref / 2^N (common practice, no source)
+def test_figures_are_printed_to_their_resolution(value: float, step: float | None, signed: bool, text: str) -> None:
+    from logger.figures import to_resolution
+
+    assert to_resolution(value, step, signed=signed) == text

@@ -218,8 +218,11 @@ def test_report_html_is_one_self_contained_file_with_the_summary_numbers(runs: d
     assert "http" not in rest and "url(" not in rest and "<link" not in rest and "<script" not in rest
     summary = summarize(run)
     assert f"{summary.samples:,} samples" in page
-    for c in summary.channels:
-        assert f"<td>{c.name}</td><td>{c.unit}</td><td>{c.minimum:.4g}</td><td>{c.mean:.6g}</td>" in page
+    from logger.figures import to_resolution
+
+    for c in summary.channels:  # each figure to its channel's converter step
+        assert (f"<td>{c.name}</td><td>{c.unit}</td><td>{to_resolution(c.minimum, c.resolution)}</td>"
+                f"<td>{to_resolution(c.mean, c.resolution)}</td>") in page
     for r in summary.rails:
         assert f"<td>{r.rail}</td><td>{r.charge_ah:.6g} Ah</td><td>{r.energy_wh:.6g} Wh</td>" in page
 
@@ -254,8 +257,10 @@ def test_compare_shows_each_runs_own_summary_figures_and_b_minus_a(runs: dict[st
                             ("max", mine.maximum, theirs.maximum), ("std", mine.std, theirs.std),
                             ("ripple p-p, typical", mine.ripple_pp[0], theirs.ripple_pp[0])):
             got = [float(v) for v in rows[(name, label + unit)]]
-            assert got[:2] == pytest.approx([x, y], rel=1e-5)
-            assert got[2] == pytest.approx(y - x, rel=1e-5, abs=1e-5 * max(abs(x), abs(y)))
+            step = mine.resolution  # each figure to its converter step: within half a step of the exact one
+            assert mine.resolution == theirs.resolution and step is not None and step > 0
+            assert got[:2] == pytest.approx([x, y], abs=step / 2 + 1e-9)
+            assert got[2] == pytest.approx(y - x, abs=step / 2 + 1e-9)
     (ra,), (rb,) = a.rails, b.rails
     assert [float(v) for v in rows[("out", "energy (Wh)")][:2]] == pytest.approx([ra.energy_wh, rb.energy_wh],
                                                                                  rel=1e-5)

@@ -11,6 +11,7 @@ from __future__ import annotations
 import math
 from pathlib import Path
 
+from logger.figures import to_resolution
 from logger.review.summary import ChannelStats, Summary, summarize
 
 FIGURES: tuple[tuple[str, str], ...] = (
@@ -44,16 +45,19 @@ def summaries_text(a: Summary, b: Summary) -> str:
     return "\n".join(lines)
 
 
-def number(value: float | None) -> str:
-    """A figure as the comparison prints it: six significant digits, ``-`` when there is none."""
-    return "-" if value is None or math.isnan(value) else f"{value:.6g}"
+def number(value: float | None, step: float | None = None) -> str:
+    """A figure as the comparison prints it: to ``step`` (a channel's converter step) when given, else six
+    significant digits; ``-`` when there is none, ``0`` for zero."""
+    return to_resolution(value, step, fallback=6)
 
 
-def difference(a: float | None, b: float | None) -> str:
-    """B - A with its sign, six significant digits; ``-`` when either is missing."""
+def difference(a: float | None, b: float | None, step: float | None = None) -> str:
+    """B - A with its sign, to ``step`` like :func:`number`; ``-`` when either is missing, ``0`` when equal."""
     if a is None or b is None or math.isnan(a) or math.isnan(b):
         return "-"
-    return f"{b - a:+.6g}"
+    if abs(b - a) <= 1e-9 * max(abs(a), abs(b)):  # the same figure but for float rounding
+        return "0"
+    return to_resolution(b - a, step, signed=True, fallback=6)
 
 
 def _count(a: int, b: int) -> list[str]:
@@ -78,7 +82,9 @@ def _channel_rows(a: Summary, b: Summary) -> list[str]:
         for label, field in FIGURES:
             x, y = _figure(mine, field), _figure(other, field)
             unit = f" ({mine.unit})" if mine.unit and "(s)" not in label else ""
-            rows.append([mine.name, label + unit, number(x), number(y), difference(x, y)])
+            step = None if "(s)" in label or "integral" in label else min(
+                r for r in (mine.resolution, other.resolution, float("inf")) if r is not None)
+            rows.append([mine.name, label + unit, number(x, step), number(y, step), difference(x, y, step)])
     return ["", *_table(["channel", "figure", "A", "B", "B - A"], rows)] if rows else []
 
 

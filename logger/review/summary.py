@@ -11,7 +11,7 @@ detectors timed them), gaps, and the events by kind with counts, worst depth and
 from __future__ import annotations
 
 from collections.abc import Callable
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from datetime import datetime
 from pathlib import Path
 from typing import Any
@@ -20,10 +20,12 @@ import numpy as np
 import pyarrow as pa
 import pyarrow.parquet as pq
 
+from logger.figures import channel_resolution
 from logger.rig import RigError, parse_rig
 from logger.store.files import StoreError, read_run_json
 from logger.store.layout import EVENTS_PARQUET, parts_in
 from logger.store.rollup import Pair, gap_us, last_sample, pairs_of, read_rollups
+from logger.wire import DeviceHeader
 
 GAP_KINDS = ("frame_gap", "link_lost")
 
@@ -47,6 +49,8 @@ class ChannelStats:
     """Time in brownouts and dropouts."""
     above_s: float = 0.0
     """Time in overvoltage or overcurrent."""
+    resolution: float | None = None
+    """One converter step in the channel's unit (the rig's scaling): what its figures are printed to."""
 
 
 @dataclass(frozen=True)
@@ -99,6 +103,7 @@ def summarize(folder: Path, *, full: bool = False, progress: Callable[[int, int]
     table = rollups.table
     events = pq.read_table(folder / EVENTS_PARQUET) if (folder / EVENTS_PARQUET).exists() else None
     units = {c["name"]: c.get("unit", "") for c in meta.get("channels_info", [])}
+    steps = resolutions(meta)
     channels = [n for n in units if f"{n}_int" in table.column_names] or _channels_in(table)
     utc = table["utc"]
     kinds = _kinds(events)
@@ -110,7 +115,7 @@ def summarize(folder: Path, *, full: bool = False, progress: Callable[[int, int]
         start_utc=first, end_utc=last, duration_s=_device_span_s(folder, first, last),
         samples=int(table["count"].to_numpy().sum()) if len(utc) else 0,
         gaps=sum(k.count for k in gaps), gap_s=sum(_total_s(events, k.kind) for k in gaps),
-        channels=[_channel(table, c, units.get(c, ""), events) for c in channels],
+        channels=[replace(_channel(table, c, units.get(c, ""), events), resolution=steps.get(c)) for c in channels],
         rails=[_rail(table, p) for p in pairs],
         events=kinds,
         calibration={c: _calibration_text(meta.get("calibration", {}).get(c))
@@ -131,6 +136,17 @@ def run_pairs(meta: dict[str, Any]) -> list[Pair]:
     except RigError:
         return []
     return [Pair(p.rail, rig.channels[p.volts].name, rig.channels[p.amps].name, p.sign) for p in rig.power_pairs()]
+
+
+def resolutions(meta: dict[str, Any]) -> dict[str, float]:
+    """Each channel's converter step in its unit, from the rig and device header kept in ``_run.json`` (none
+    for a run that kept neither)."""
+    try:
+        rig = parse_rig(meta.get("rig") or "", "the rig kept in _run.json", profiles=False)
+        header = DeviceHeader.parse(str(meta.get("device_header", "")))
+    except (RigError, ValueError):
+        return {}
+    return {ch.name: channel_resolution(ch, header.adc_bits, header.vref_mv) for ch in rig.channels}
 
 
 def _device_span_s(folder: Path, first: str | None, last: str | None) -> float:

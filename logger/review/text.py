@@ -9,13 +9,19 @@ from pathlib import Path
 import pyarrow as pa
 import pyarrow.parquet as pq
 
-from logger.review.summary import Summary
+from logger.figures import to_resolution
+from logger.review.summary import ChannelStats, Summary
 from logger.review.window import Window
 from logger.store.layout import EVENTS_PARQUET
 
 
 def _g(value: float | None, digits: int = 4) -> str:
     return "-" if value is None or value != value else f"{value:.{digits}g}"
+
+
+def _v(value: float, c: ChannelStats) -> str:
+    """A channel's figure to its converter step (one more place for a spread, which averaging can resolve)."""
+    return to_resolution(value, c.resolution)
 
 
 def _n(count: int, noun: str) -> str:
@@ -55,9 +61,9 @@ def summary_text(s: Summary) -> str:
     ]
     for c in s.channels:
         lines.append(
-            f"| {c.name} | {c.unit} | {_g(c.minimum)} | {_g(c.mean, 6)} | {_g(c.maximum)} | {_g(c.std, 3)} "
-            f"| {_g(c.ripple_pp[0], 3)} / {_g(c.ripple_pp[1], 3)} | {_g(c.ripple_rms[0], 3)} / "
-            f"{_g(c.ripple_rms[1], 3)} | {c.below_s:.3f} s | {c.above_s:.3f} s |")
+            f"| {c.name} | {c.unit} | {_v(c.minimum, c)} | {_v(c.mean, c)} | {_v(c.maximum, c)} | {_v(c.std, c)} "
+            f"| {_v(c.ripple_pp[0], c)} / {_v(c.ripple_pp[1], c)} | {_v(c.ripple_rms[0], c)} / "
+            f"{_v(c.ripple_rms[1], c)} | {c.below_s:.3f} s | {c.above_s:.3f} s |")
     if s.rails:
         lines += ["", "| rail | charge | energy |", "|---|---|---|"]
         lines += [f"| {r.rail} | {r.charge_ah:.6g} Ah | {r.energy_wh:.6g} Wh |" for r in s.rails]
