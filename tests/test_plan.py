@@ -225,6 +225,19 @@ def test_zener_feed_limits_of_the_chosen_resistor() -> None:
     assert any("55 % of its 500 mW rating" in line for line in zener.warnings(feed))
 
 
+def test_zener_choice_comes_closest_to_the_derating_when_none_meets_it() -> None:
+    """28 V to 35 V, 12 V 0.5 W: no resistor both regulates at 28 V (1.07 kohm at most) and keeps the Zener
+    within 50 % (1.1 kohm at least). The planner takes the largest preferred value that regulates, 1 kohm at 55 %,
+    not the log-middle 820 ohm at 67 %, and says no value meets the derating (shunt-regulator design
+    equations, as in the worked example above)."""
+    spec = zener.ZenerSpec(vin_min_v=28.0, vin_max_v=35.0, vz_v=12.0, meter_a=0.010)
+    _, high, derated = zener.window(spec)
+    assert not derated and high == pytest.approx(1066.7, abs=0.1)
+    feed = zener.plan(spec)
+    assert feed.r_ohm == 1000.0 and feed.regulates_to_v <= 28.0
+    assert any("55 % of its 500 mW rating" in line for line in zener.warnings(feed))
+
+
 def test_zener_choice_is_a_preferred_value_inside_the_window() -> None:
     spec = zener.ZenerSpec(vin_min_v=35.0, vin_max_v=35.0, vz_v=12.0, meter_a=0.010)
     low, high, derated = zener.window(spec)

@@ -127,9 +127,9 @@ def choose(spec: ZenerSpec) -> float:
     Raises:
         PlanError: not even the absolute window holds a value of the series.
     """
-    low, high, _ = window(spec)
+    low, high, derated = window(spec)
     options = series.within(low, high, spec.series)
-    if options.size:
+    if derated and options.size:
         return float(options[np.argmin(np.abs(np.log(options / nominal_ohm(spec))))])
     options = series.within(smallest_ohm(spec), high, spec.series)
     if options.size:
