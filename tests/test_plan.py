@@ -142,16 +142,29 @@ def test_chosen_divider_meets_the_limits(max_v: float, draw_ua: int, vref_v: flo
     values = series.series_values(name)
     assert pair.r_top in values and pair.r_bottom in values
     assert pair.pin_v(max_v) <= vref_v * (1 - spec.headroom) * (1 + 1e-9)
-    assert pair.pin_v(spec.overvoltage_v) <= spec.pin_rating_v * (1 + 1e-9)
+    assert pair.pin_v(spec.overvoltage_v) <= (spec.pin_rating_v - spec.pin_margin_v) * (1 + 1e-9)
     assert pair.draw_a(max_v) <= spec.draw_a * (1 + 1e-9)
     assert not divider.warnings(pair)
+
+
+def test_the_overvoltage_lands_a_stated_margin_below_the_pins_rating() -> None:
+    """30 V rail, +20 % overvoltage 36 V, pin rated 3.6 V (3.3 V + 0.3 V, a common MCU rating): the pin stays at
+    or below 3.4 V at 36 V, not exactly at 3.6 V; the report names the margin, the protection parts and the
+    rail-voltage end of R_top (V = V_rail x R_bottom / (R_top + R_bottom), common practice, no source)."""
+    spec = divider.DividerSpec(max_v=30.0)
+    pair = divider.choose_pair(spec)
+    assert pair.pin_v(36.0) <= 3.4 * (1 + 1e-9) and spec.pin_aim == pytest.approx(36.0 / 3.4)
+    text = divider.report(pair).render()
+    assert "less a 200 mV margin (--pin-margin-v)" in text
+    assert "caution: protect the pin: a 1 kohm resistor in series" in text and "Schottky" in text
+    assert "caution: R_top's upper end is at rail voltage, up to 36 V" in text
 
 
 def test_divider_that_cannot_be_made_says_which_option() -> None:
     with pytest.raises(PlanError, match=r"^--draw-a: .*100 Mohm"):
         divider.choose_pair(divider.DividerSpec(max_v=100.0, draw_a=1e-6))
     with pytest.raises(PlanError, match=r"^--max-v: .*without a divider"):
-        divider.choose_pair(divider.DividerSpec(max_v=3.0))
+        divider.choose_pair(divider.DividerSpec(max_v=2.5))  # 3.0 V at +20 %: under the pin's 3.6 V less 0.2 V
     with pytest.raises(PlanError, match=r"^--resistor-w: "):
         divider.choose_pair(divider.DividerSpec(max_v=100.0, draw_a=1e-3, resistor_w=1e-3))
 
@@ -321,3 +334,15 @@ def test_command_errors_are_one_line(argv: list[str], start: str) -> None:
     with pytest.raises(PlanError) as info:
         _run(argv)
     assert str(info.value).startswith(start) and "\n" not in str(info.value)
+
+
+def test_each_plan_says_the_cautions_of_its_own_circuit() -> None:
+    """A shunt plan names the low-side placement and the ground loop; a divider plan does not, and the other way
+    round (each cautions about what it planned; the SELV line closes both)."""
+    from logger.plan import shunt
+
+    shunt_text = shunt.report(shunt.Shunt(shunt.ShuntSpec(shunt_ohm=0.01, gain=50.0))).render()
+    divider_text = divider.report(divider.choose_pair(divider.DividerSpec(max_v=30.0))).render()
+    assert "caution: this plan is for a low-side shunt" in shunt_text and "ground loop through USB" in shunt_text
+    assert "R_top" not in shunt_text and "low-side shunt" not in divider_text
+    assert shunt_text.count("SELV") == divider_text.count("SELV") == 1

@@ -43,6 +43,8 @@ def _divider_parser(actions: argparse._SubParsersAction) -> None:
                    help="keep --max-v this far below the ADC's full scale, for part tolerances (default 5)")
     p.add_argument("--over-v", metavar="V", help="overvoltage to check the pin at, volts (default 20 %% above --max-v)")
     p.add_argument("--pin-max-v", metavar="V", help="the ADC pin's absolute maximum, volts (default --vref-v + 0.3)")
+    p.add_argument("--pin-margin-v", metavar="V", default="0.2",
+                   help="keep the overvoltage this far below the pin's absolute maximum, volts (default 0.2)")
     p.add_argument("--resistor-w", default="0.25", metavar="W", help="power rating of each resistor, watts "
                                                                      "(default 0.25)")
     p.add_argument("--resistor-v", default="150", metavar="V",
@@ -184,7 +186,8 @@ def run_divider(args: argparse.Namespace) -> int:
         max_v=_value(args, "max_v", "V", "the highest rail voltage"), vref_v=vref_v, bits=bits,
         draw_a=_value(args, "draw_a", "A", "a current"), series=series.series_name(args.series),
         headroom=_fraction(args, "headroom_pct", 0, 50), over_v=_value(args, "over_v", "V"),
-        pin_max_v=_value(args, "pin_max_v", "V"), resistor_w=_value(args, "resistor_w", "W", "a power rating"),
+        pin_max_v=_value(args, "pin_max_v", "V"), pin_margin_v=_value(args, "pin_margin_v", "V", "a margin"),
+        resistor_w=_value(args, "resistor_w", "W", "a power rating"),
         resistor_v=_value(args, "resistor_v", "V", "a working voltage"), derate=_fraction(args, "derate_pct", 1, 100),
         source_max_ohm=_value(args, "source_max_ohm", "ohm", "a resistance"))
     if spec.over_v is not None and spec.over_v < spec.max_v:

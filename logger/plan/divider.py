@@ -52,6 +52,9 @@ class DividerSpec:
     """The overvoltage to check the pin at; ``None`` means 20 % above ``max_v``."""
     pin_max_v: float | None = None
     """The pin's absolute maximum; ``None`` means ``vref_v + 0.3`` (a common MCU rating)."""
+    pin_margin_v: float = 0.2
+    """How far below the pin's absolute maximum the overvoltage is put: room for resistor tolerance and the
+    reference's own error, so the worst case is not exactly at the rating."""
     resistor_w: float = 0.25
     resistor_v: float = 150.0
     derate: float = 0.5
@@ -64,8 +67,8 @@ class DividerSpec:
 
     @property
     def pin_aim(self) -> float:
-        """The smallest ratio that keeps the pin within its rating at the overvoltage."""
-        return self.overvoltage_v / self.pin_rating_v
+        """The smallest ratio that keeps the pin within its rating, less the margin, at the overvoltage."""
+        return self.overvoltage_v / (self.pin_rating_v - self.pin_margin_v)
 
     @property
     def aim(self) -> float:
@@ -236,7 +239,9 @@ def report(d: Divider, name: str = "rail_v", input_index: int = 0, nominal_v: fl
     rep.row("R_bottom", f"{format_value(d.r_bottom, 'ohm')} ({where})")
     rep.row("ratio", f"{d.ratio:.5g} = {pair_text(d)}")
     rep.row("ratio error", f"{percent(d.ratio_error)} against the aim of {s.aim:.5g}")
-    rep.row("aim set by", f"{format_value(over, 'V')} at the pin's {format_value(s.pin_rating_v, 'V')} rating"
+    rep.row("aim set by", f"{format_value(over, 'V')} at {format_value(s.pin_rating_v - s.pin_margin_v, 'V')}, "
+                          f"the pin's {format_value(s.pin_rating_v, 'V')} rating less a "
+                          f"{format_value(s.pin_margin_v, 'V')} margin (--pin-margin-v)"
                           if s.pin_aim > s.range_aim else
                           f"{format_value(s.max_v, 'V')} at {100 * (1 - s.headroom):.0f} % of full scale")
     rep.row("full scale at the rail", f"{format_value(s.vref_v * d.ratio, 'V')}")
@@ -254,6 +259,12 @@ def report(d: Divider, name: str = "rail_v", input_index: int = 0, nominal_v: fl
             f"{format_value(d.pin_v(over), 'V')} (--over-v; pin rated {format_value(s.pin_rating_v, 'V')})")
     rep.warnings += warnings(d)
     rep.notes += notes(d)
+    rep.cautions += [
+        "protect the pin: a 1 kohm resistor in series between the divider and the pin, two Schottky diodes from "
+        "the pin to the ADC's supply and from ground to the pin, and 22 nF from the pin to ground "
+        "(firmware_notes/front-end.md, \"Protection: series resistor and clamp\")",
+        f"R_top's upper end is at rail voltage, up to {format_value(over, 'V')}: keep it and its leads away from "
+        "the logic side, and use parts rated for that voltage (--resistor-v)"]
     channel_header(rep, name, "volts", input_index)
     rep.rig_line("divider", toml_float(d.ratio), f"{pair_text(d)}: rail volts per volt at the ADC pin")
     if nominal_v is not None:

@@ -28,6 +28,7 @@ class Report:
         rows: (label, value) pairs, printed as an aligned table.
         warnings: things that will break or burn as planned; each printed as ``warning: ...``.
         notes: things worth knowing that are not faults.
+        cautions: what this circuit in particular asks of the person wiring it.
         rig: rig-file lines (TOML) matching the plan, comments included.
     """
 
@@ -35,6 +36,8 @@ class Report:
     rows: list[tuple[str, str]] = field(default_factory=list)
     warnings: list[str] = field(default_factory=list)
     notes: list[str] = field(default_factory=list)
+    cautions: list[str] = field(default_factory=list)
+    """What this circuit in particular asks of the person wiring it; printed before the SELV reminder."""
     rig: list[str] = field(default_factory=list)
 
     def row(self, label: str, value: str) -> None:
@@ -61,7 +64,7 @@ class Report:
             out.append("")
         out += [f"warning: {text}" for text in self.warnings]
         out += [f"note: {text}" for text in self.notes]
-        out += ["", SELV_LINE]
+        out += ["", *(f"caution: {text}" for text in self.cautions), SELV_LINE]
         if self.rig:
             out += ["", "Rig file lines (add them to your rig file; `railtap rig check FILE` reads it back):", ""]
             out += self.rig

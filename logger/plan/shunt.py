@@ -131,6 +131,12 @@ def report(sh: Shunt, name: str = "rail_a", input_index: int = 1, nominal_a: flo
                                        f"{100 * (1 - s.headroom):.0f} % of full scale)")
     rep.warnings += warnings(sh)
     rep.notes += notes(sh)
+    rep.cautions += [
+        "this plan is for a low-side shunt, in the return between the load and the supply's negative, so both of "
+        "its ends sit near the tap's ground; a high-side shunt sits at rail voltage and needs an amplifier made "
+        "for that common-mode voltage (firmware_notes/front-end.md), never the ADC pin directly",
+        "the shunt's ground end and the tap's ground must be the same point: a ground loop through USB adds "
+        "its own drop to the reading (firmware_notes/grounds.md)"]
     channel_header(rep, name, "amps", input_index)
     rep.rig_line("shunt_ohm", toml_float(s.shunt_ohm), "shunt resistance, ohms")
     comment = "amplifier gain between shunt and ADC pin"
