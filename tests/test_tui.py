@@ -516,3 +516,32 @@ def test_the_banner_tells_the_worst_fault_first_and_says_now_once() -> None:
     assert str(banner.content).startswith("JUST NOW: DROPOUT on out_v for 150 ms")
     banner.show(snap, [replace(brown, start_us=t0 + 1_000_000, end_us=t0 + 1_100_000)])  # a lesser one, later
     assert str(banner.content).startswith("JUST NOW: DROPOUT on out_v")
+
+
+def test_home_and_end_go_to_the_newest_and_the_oldest_event() -> None:
+    from dataclasses import replace
+
+    from logger.events.model import Event
+
+    fake = FakePipeline(SCENARIO.rig, [12.0, 2.0, 7.3], [11.9, 0.5, 7.2], [12.1, 3.5, 7.4])
+    t0 = 1_800_000_000_000_000
+    events = tuple(Event("brownout", t0 + k * 1_000_000, end_us=t0 + k * 1_000_000 + 100_000, channel="out_v",
+                         detail=f"dip {k}", id=k + 1) for k in range(30))[::-1]  # newest first, as published
+    fake._snap = replace(fake._snap, events=events)
+
+    async def run() -> None:
+        app = RailtapApp(fake)
+        async with app.run_test(size=(80, 24)) as pilot:
+            table = app.query_one(EventTable)
+            await _until(pilot, lambda: table.row_count == 30, 30.0)
+            table.focus()
+            await pilot.press("end")
+            await _until(pilot, lambda: table.cursor_row == 29, 30.0)
+            assert table.selected().detail == "dip 0"
+            await pilot.press("home")
+            await _until(pilot, lambda: table.cursor_row == 0, 30.0)
+            assert table.selected().detail == "dip 29"
+            await _key(app, pilot, "q")
+            await _until(pilot, lambda: app.return_value is not None, 30.0)
+
+    asyncio.run(run())

@@ -50,11 +50,13 @@ class RailtapApp(App[str]):
     ENABLE_COMMAND_PALETTE = False
     AUTO_FOCUS = "EventTable"
     HORIZONTAL_BREAKPOINTS: ClassVar[list[tuple[int, str]]] = [(0, "-narrow"), (120, "-wide")]
+    VERTICAL_BREAKPOINTS: ClassVar[list[tuple[int, str]]] = [(0, "-short"), (32, "-tall")]
     CSS = """
     #lower { height: 1fr; min-height: 8; }
     #events-col { width: 1fr; }
     EventTable { scrollbar-size-horizontal: 0; }
     Screen.-narrow EventDetail { max-height: 2; }
+    Screen.-short #lower { height: 2fr; }
     Screen.-wide StatusPanel { width: 46; }
     """
     BINDINGS: ClassVar[list[BindingType]] = [

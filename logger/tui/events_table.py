@@ -4,8 +4,10 @@ and the line under it that spells out the event the cursor is on."""
 from __future__ import annotations
 
 from collections import deque
+from typing import ClassVar
 
 from rich.text import Text
+from textual.binding import Binding, BindingType
 from textual.widgets import DataTable, Static
 
 from logger.events.model import Event
@@ -23,6 +25,10 @@ class EventTable(DataTable):
     run's ``_events.parquet`` has every one.
     """
 
+    BINDINGS: ClassVar[list[BindingType]] = [
+        Binding("home", "scroll_top", "newest", show=False),  # the list is newest first
+        Binding("end", "scroll_bottom", "oldest", show=False),
+    ]
     DEFAULT_CSS = """
     EventTable {
         height: 1fr;
