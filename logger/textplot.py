@@ -41,9 +41,10 @@ def value_range(lo: np.ndarray, hi: np.ndarray, threshold: float | None) -> tupl
 
 
 def draw_columns(lo: np.ndarray, hi: np.ndarray, threshold: float | None, bottom: float, top: float,
-                 height: int, styles: dict[str, Style]) -> Text:
+                 height: int, styles: dict[str, Style], over: bool = False) -> Text:
     """Rows of half-cell blocks from each column's lowest to highest value, labelled at top and bottom, with the
-    threshold dashed across; columns that went below it use the ``low`` style."""
+    threshold dashed across; columns that went past it (below a brownout threshold, above an ``over`` limit)
+    use the ``low`` style."""
     levels = 2 * height
     scale = (levels - 1) / (top - bottom)
     have = ~np.isnan(lo)
@@ -54,7 +55,7 @@ def draw_columns(lo: np.ndarray, hi: np.ndarray, threshold: float | None, bottom
     if threshold is None:
         below = np.zeros(len(lo), dtype=bool)
     else:
-        below = have & ((lo < threshold) if threshold >= 0 else (hi > threshold))
+        below = have & ((lo < threshold) if (threshold >= 0) != over else (hi > threshold))
     text = Text(no_wrap=True, overflow="crop")
     for row in range(height - 1, -1, -1):
         label = value_text(top if row == height - 1 else bottom if row == 0 else None, False)

@@ -545,3 +545,31 @@ def test_home_and_end_go_to_the_newest_and_the_oldest_event() -> None:
             await _until(pilot, lambda: app.return_value is not None, 30.0)
 
     asyncio.run(run())
+
+
+def test_an_amps_trend_draws_its_overcurrent_limit_and_marks_columns_above_it() -> None:
+    """The demo rig's out_a has `high = 5.0`: its trend draws that line, named, as out_v's draws its brownout
+    threshold; a column that went above it is drawn in the alarm style, one that stayed below is not."""
+    from logger.textplot import DEFAULT_STYLES, draw_columns
+
+    shown = shown_channels(SCENARIO.rig)
+    k = shown.names.index("out_a")
+    assert shown.thresholds[k] == 5.0 and shown.over[k] and not shown.over[shown.names.index("out_v")]
+    def alarmed(lo: float, hi: float) -> bool:
+        text = draw_columns(np.array([lo]), np.array([hi]), 5.0, 0.0, 7.0, 6, DEFAULT_STYLES, over=True)
+        return any(span.style == DEFAULT_STYLES["low"] for span in text.spans)
+
+    assert alarmed(2.0, 6.0) and not alarmed(1.0, 2.0)  # above the limit is the alarm, below it is not
+
+    fake = FakePipeline(SCENARIO.rig, [12.0, 2.0, 7.3], [11.9, 0.5, 7.2], [12.1, 3.5, 7.4])
+
+    async def run() -> None:
+        app = RailtapApp(fake)
+        async with app.run_test(size=SIZE) as pilot:
+            trend = app.query_one(Trend)
+            await _key(app, pilot, "c")
+            await _until(pilot, lambda: "overcurrent above 5" in str(trend.border_subtitle), 30.0)
+            await _key(app, pilot, "q")
+            await _until(pilot, lambda: app.return_value is not None, 30.0)
+
+    asyncio.run(run())

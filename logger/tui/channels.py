@@ -22,7 +22,10 @@ class Shown:
     units: tuple[str, ...]
     pairs: tuple[PowerPair, ...]
     thresholds: tuple[float | None, ...]
-    """The brownout threshold of each shown channel, signed like its values (None where there is none)."""
+    """The line drawn across each shown channel's trend, signed like its values (None where there is none): a
+    volts channel's brownout threshold, an amps channel's overcurrent limit."""
+    over: tuple[bool, ...] = ()
+    """Whether that line is an upper limit (overcurrent: beyond it is above) rather than a brownout."""
 
     @property
     def measured(self) -> int:
@@ -42,12 +45,16 @@ def shown_channels(rig: Rig) -> Shown:
     names = [ch.name for ch in rig.channels]
     units = [ch.unit or ("V" if ch.role != "amps" else "A") for ch in rig.channels]
     thresholds: list[float | None] = []
+    over: list[bool] = []
     for ch in rig.channels:
-        dip = rules_for(ch).dip_below
-        thresholds.append(None if dip is None else (-dip if ch.negative else dip))
+        rules = rules_for(ch)
+        line = rules.dip_below if rules.dip_below is not None else rules.current_above
+        thresholds.append(None if line is None else (-line if ch.negative else line))
+        over.append(rules.dip_below is None and rules.current_above is not None)
     pairs = rig.power_pairs()
     for pair in pairs:
         names.append(pair.name)
         units.append("W")
         thresholds.append(None)
-    return Shown(tuple(names), tuple(units), tuple(pairs), tuple(thresholds))
+        over.append(False)
+    return Shown(tuple(names), tuple(units), tuple(pairs), tuple(thresholds), tuple(over))

@@ -69,7 +69,8 @@ class Trend(Widget):
         name, unit = shown.names[self.channel], shown.units[self.channel]
         self.border_title = f"trend: {name} ({unit}), last {span_label(self.span_s)}"
         threshold = shown.thresholds[self.channel]
-        self.border_subtitle = f"- - brownout below {value_text(threshold, False)} {unit}" if threshold else ""
+        words = "overcurrent above" if shown.over[self.channel] else "brownout below"
+        self.border_subtitle = f"- - {words} {value_text(threshold, False)} {unit}" if threshold else ""
 
     def _styles(self) -> dict[str, Style]:
         try:
@@ -86,4 +87,5 @@ class Trend(Widget):
             return Text("waiting for samples...", style="dim")
         threshold = self.history.shown.thresholds[self.channel]
         bottom, top = value_range(lo, hi, threshold)
-        return draw_columns(lo, hi, threshold, bottom, top, height, self._styles())
+        return draw_columns(lo, hi, threshold, bottom, top, height, self._styles(),
+                            over=self.history.shown.over[self.channel])
