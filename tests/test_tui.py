@@ -153,10 +153,15 @@ def test_keys_change_span_channel_bell_and_pause_without_stopping_the_run() -> N
         app = RailtapApp(pipeline)
         async with app.run_test(size=SIZE) as pilot:
             trend = app.query_one(Trend)
-            assert trend.border_title == "trend: out_v (V), last 10 s"
+            assert str(trend.border_title).startswith("trend: out_v (V), last 10 s")
             for key in "ssc":
                 await _key(app, pilot, key)
-            assert trend.border_title == "trend: out_a (A), last 10 min"
+            assert str(trend.border_title).startswith("trend: out_a (A), last 10 min")
+            for key in "ss":  # 1 h, then the whole run so far
+                await _key(app, pilot, key)
+            assert str(trend.border_title).startswith("trend: out_a (A), whole run")
+            await _key(app, pilot, "s")  # and round again
+            assert str(trend.border_title).startswith("trend: out_a (A), last 10 s")
             await _key(app, pilot, "b")
             await _key(app, pilot, "p")
             banner = str(app.query_one(Banner).content)
@@ -573,3 +578,31 @@ def test_an_amps_trend_draws_its_overcurrent_limit_and_marks_columns_above_it() 
             await _until(pilot, lambda: app.return_value is not None, 30.0)
 
     asyncio.run(run())
+
+
+def test_the_whole_run_span_covers_every_sample_with_its_ends_labelled() -> None:
+    """Three hours at 1 kHz folded into the history, a 20 % dip of one sample at 40 min: the whole-run span
+    shows it (min/max buckets keep a single sample at any span), the 1 h span does not reach back to it, and
+    the title gives both ends in local time."""
+    from datetime import datetime
+
+    history = TrendHistory(shown_channels(SCENARIO.rig))
+    t0 = 1_800_000_000_000_000
+    for hour in range(3):
+        utc = t0 + hour * 3_600_000_000 + np.arange(0, 3_600_000_000, 1000, dtype=np.int64)
+        values = np.tile(np.array([[12.0, 2.0, 7.3]], dtype=np.float32), (len(utc), 1))
+        if hour == 0:
+            values[2_400_000, 0] = 9.6
+        history.add(utc, values)
+    assert history.run_s == pytest.approx(3 * 3600 - 0.001)
+    lo, _ = history.columns(0, history.run_s, 90)
+    assert np.nanmin(lo) == pytest.approx(9.6) and np.isnan(lo).sum() == 0
+    lo_hour, _ = history.columns(0, 3600.0, 90)
+    assert np.nanmin(lo_hour) == pytest.approx(12.0)
+
+    trend = Trend(history)
+    trend.span_s = float("inf")
+    trend.new_data()
+    start, end = (datetime.fromtimestamp(us / 1e6).astimezone().strftime("%H:%M:%S")
+                  for us in (t0, t0 + 3 * 3_600_000_000 - 1000))
+    assert str(trend.border_title) == f"trend: out_v (V), whole run, {start} to {end}"

@@ -130,7 +130,7 @@ class RailtapApp(App[str]):
             # Nothing new (link down, device silent): the trend stays as drawn. Otherwise it is redrawn five
             # times a second, half the poll rate: drawing it is most of what the screen costs.
             if fresh_samples and self._polls % 2 == 0:
-                self.query_one(Trend).refresh()
+                self.query_one(Trend).new_data()
         if not self.sealing and self.pipeline.wait(0):
             if self.pipeline.error:  # stays up with the red FAILED banner until someone has read it
                 if not self._failure_told:

@@ -3,8 +3,9 @@
 The live ring holds only the last minute of raw samples; the trend wants up to an hour. Each poll the screen
 copies the samples that are new since the last one and folds them into two tiers of buckets (lowest and
 highest value of each channel per bucket): 10 ms buckets for the last ten minutes, 1 s buckets for the last
-hour and more. A brownout of one sample therefore still shows as a spike at any span. Memory is fixed
-(about 64,000 buckets) whatever the sample rate.
+hour and more, 1 min buckets for the whole run (up to two weeks). A brownout of one sample therefore still
+shows as a spike at any span. Memory is fixed (about 84,000 buckets) whatever the sample rate and however
+long the run.
 """
 
 from __future__ import annotations
@@ -70,10 +71,13 @@ class TrendHistory:
     """Bucketed min/max of every shown channel, plus the min/max since reset of the power columns."""
 
     def __init__(self, shown: Shown, fine_s: float = 0.01, fine_span_s: float = 600.0,
-                 coarse_s: float = 1.0, coarse_span_s: float = 4200.0) -> None:
+                 coarse_s: float = 1.0, coarse_span_s: float = 4200.0, run_s: float = 60.0,
+                 run_span_s: float = 14 * 86400.0) -> None:
         self.shown = shown
         self.width = len(shown.names)
-        self.tiers = (Buckets(self.width, fine_s, fine_span_s), Buckets(self.width, coarse_s, coarse_span_s))
+        self.tiers = (Buckets(self.width, fine_s, fine_span_s), Buckets(self.width, coarse_s, coarse_span_s),
+                      Buckets(self.width, run_s, run_span_s))
+        self.first_utc_us: int | None = None
         self.last_utc_us: int | None = None
         self.power_min: np.ndarray | None = None
         self.power_max: np.ndarray | None = None
@@ -103,7 +107,16 @@ class TrendHistory:
         self._track_power(full)
         for tier in self.tiers:
             tier.add(utc_us, full)
+        if self.first_utc_us is None:
+            self.first_utc_us = int(utc_us[0])
         self.last_utc_us = int(utc_us[-1])
+
+    @property
+    def run_s(self) -> float:
+        """From the first sample the screen saw to the newest, in seconds (0 before any)."""
+        if self.first_utc_us is None or self.last_utc_us is None:
+            return 0.0
+        return (self.last_utc_us - self.first_utc_us) / 1e6
 
     def _track_power(self, full: np.ndarray) -> None:
         if not self.shown.pairs:

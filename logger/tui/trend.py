@@ -7,6 +7,7 @@ dashed line; columns that went below it are drawn in the alert colour.
 
 from __future__ import annotations
 
+import math
 from typing import ClassVar
 
 import numpy as np
@@ -15,10 +16,11 @@ from rich.text import Text
 from textual.widget import Widget
 
 from logger.textplot import DEFAULT_STYLES, GUTTER, draw_columns, value_range
-from logger.tui.fmt import value_text
+from logger.tui.fmt import local_time, value_text
 from logger.tui.history import TrendHistory
 
-SPANS_S = (10.0, 60.0, 600.0, 3600.0)
+SPANS_S = (10.0, 60.0, 600.0, 3600.0, math.inf)
+"""The spans ``s`` steps through; ``inf`` is the whole run so far."""
 
 
 def span_label(span_s: float) -> str:
@@ -54,6 +56,11 @@ class Trend(Widget):
         self.span_s = SPANS_S[0]
         self._update_titles()
 
+    def new_data(self) -> None:
+        """New samples came: the span's ends in the title move, and the chart is drawn again."""
+        self._update_titles()
+        self.refresh()
+
     def next_span(self) -> None:
         self.span_s = SPANS_S[(SPANS_S.index(self.span_s) + 1) % len(SPANS_S)]
         self._update_titles()
@@ -67,10 +74,23 @@ class Trend(Widget):
     def _update_titles(self) -> None:
         shown = self.history.shown
         name, unit = shown.names[self.channel], shown.units[self.channel]
-        self.border_title = f"trend: {name} ({unit}), last {span_label(self.span_s)}"
+        self.border_title = f"trend: {name} ({unit}), {self._span_words()}"
         threshold = shown.thresholds[self.channel]
         words = "overcurrent above" if shown.over[self.channel] else "brownout below"
         self.border_subtitle = f"- - {words} {value_text(threshold, False)} {unit}" if threshold else ""
+
+    def shown_span_s(self) -> float:
+        """The span drawn: the chosen one, or the whole run so far (at least the shortest span)."""
+        return self.span_s if not math.isinf(self.span_s) else max(SPANS_S[0], self.history.run_s)
+
+    def _span_words(self) -> str:
+        """What the chart covers, with its ends in local time: ``last 1 h, 13:02:10 to 14:02:10``."""
+        what = "whole run" if math.isinf(self.span_s) else f"last {span_label(self.span_s)}"
+        end = self.history.last_utc_us
+        if end is None:
+            return what
+        start = end - round(self.shown_span_s() * 1e6)
+        return f"{what}, {local_time(start, 0)} to {local_time(end, 0)}"
 
     def _styles(self) -> dict[str, Style]:
         try:
@@ -82,7 +102,7 @@ class Trend(Widget):
         height, width = self.content_size.height, self.content_size.width - GUTTER
         if height <= 0 or width <= 4:
             return Text("")
-        lo, hi = self.history.columns(self.channel, self.span_s, width)
+        lo, hi = self.history.columns(self.channel, self.shown_span_s(), width)
         if np.all(np.isnan(lo)):
             return Text("waiting for samples...", style="dim")
         threshold = self.history.shown.thresholds[self.channel]
