@@ -270,3 +270,26 @@ def test_compare_shows_each_runs_own_summary_figures_and_b_minus_a(runs: dict[st
     assert "note: channels only run B has (not compared): meter_v" in text
     backwards = _rows(compare_text(runs["bench"], runs["rail"]))
     assert float(backwards[("out_v", "mean (V)")][2]) == -float(rows[("out_v", "mean (V)")][2])
+
+
+def test_an_event_zoom_is_scaled_to_its_data_with_a_far_limit_named_at_the_edge() -> None:
+    """A flicker between 3.3 V and 4.5 V on a 7.3 V node with its overvoltage limit at 13.2 V: the zoom's axis
+    spans the data and the 3.8 V threshold near it, and the far limit is named at the top edge instead of
+    squeezing the flicker into the bottom of the picture (common practice, no source)."""
+    import matplotlib
+
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+
+    from logger.review.chart import Limits
+    from logger.review.plots import _limit_lines
+
+    fig, ax = plt.subplots()
+    y = np.where(np.arange(1000) % 100 < 50, 3.3, 4.5)
+    ax.plot(np.arange(1000), y)
+    _limit_lines(ax, Limits("V", low=3.8, high=13.2, high_kind="overvoltage"), data=y)
+    bottom, top = ax.get_ylim()
+    assert 3.0 < bottom < 3.3 and 4.5 < top < 4.8
+    texts = [t.get_text() for t in ax.texts]
+    assert any("overvoltage limit 13.2 V" in t and "↑" in t for t in texts) and "3.8 V" in texts
+    plt.close(fig)

@@ -126,7 +126,7 @@ def event_png(window: Window, path: Path, limits: dict[str, Limits] | None = Non
         y = window.samples[name].to_numpy().astype(np.float64)
         _trace(ax, t, y)
         lim = limits.get(name, Limits(""))
-        _limit_lines(ax, lim)
+        _limit_lines(ax, lim, data=y)
         ax.set_title(f"{name} ({lim.unit})" if lim.unit else name, loc="left", fontsize=10)
         ax.set_ylabel(lim.unit)
         if event is not None and event["channel"] in (name, None):
@@ -244,20 +244,36 @@ def _save(fig: Any, path: Path) -> Path:
     return path
 
 
-def _limit_lines(ax: Any, lim: Limits, vertical: bool = False) -> None:
+def _limit_lines(ax: Any, lim: Limits, vertical: bool = False, data: np.ndarray | None = None) -> None:
     """The brownout threshold dashed and the overvoltage or overcurrent limit dotted, each with its value
-    written at the end of the line."""
+    written at the end of the line. Given ``data``, the axis is scaled to the data (and the limits near it),
+    and a limit far outside is named at the edge it lies beyond instead of squeezing the data into a corner."""
     lines = [(lim.low, "brownout", "brownout threshold", "--"),
              (lim.high, lim.high_kind, f"{lim.high_kind} limit", ":")]
+    span = None
+    if data is not None and np.isfinite(data).any():
+        lo, hi = float(np.nanmin(data)), float(np.nanmax(data))
+        pad = max(hi - lo, 1e-9) * 0.15
+        span = (lo - pad, hi + pad)
     for value, kind, label, style in lines:
         if value is None:
             continue
         colour = kind_colour(kind)
+        if span is not None and not span[0] - (span[1] - span[0]) * 0.5 <= value <= span[1] + (span[1] - span[0]) * 0.5:
+            above = value > span[1]
+            ax.annotate(f"{'↑' if above else '↓'} {label} {value:g} {lim.unit}", xy=(1.0, 1.0 if above else 0.0),
+                        xycoords="axes fraction", xytext=(-4, -4 if above else 4), textcoords="offset points",
+                        ha="right", va="top" if above else "bottom", fontsize=8, color=colour)
+            continue
+        if span is not None:
+            span = (min(span[0], value), max(span[1], value))
         (ax.axvline if vertical else ax.axhline)(value, color=colour, ls=style, lw=1.2, label=label)
         where = ((value, 1.0), ax.get_xaxis_transform(), (0, 2), "center", "bottom") if vertical else \
             ((1.0, value), ax.get_yaxis_transform(), (3, 0), "left", "center")
         ax.annotate(f"{value:g} {lim.unit}", xy=where[0], xycoords=where[1], xytext=where[2],
                     textcoords="offset points", ha=where[3], va=where[4], fontsize=8, color=colour)
+    if span is not None:
+        ax.set_ylim(*span)
 
 
 def _event_marks(ax: Any, events: list[dict[str, Any]], x_of: Callable[[Any], np.ndarray]) -> None:
