@@ -212,3 +212,21 @@ def test_sealed_event_table_points_dips_at_their_episode(tmp_path) -> None:
     assert len(dips) == 4 and (dips["episode"] == episode_id).all()
     assert table.loc[table["kind"] == "mark", "detail"].item() == "checked the fuse"
     assert b"railtap.run" in pq.read_metadata(tmp_path / "run" / "_events.parquet").metadata
+
+
+def test_a_flicker_episode_under_way_is_reported_as_going_on() -> None:
+    """Two dips are not yet an episode; the third makes one (three or more within the window), reported as
+    going on with its count so far, before the window closes it (the grouping rule of logger.events.flicker)."""
+    g = FlickerGrouper("meter_v", 5.0, "V")
+    dips = [Event("brownout", k * 500_000, end_us=k * 500_000 + 100_000, channel="meter_v", value=3.3,
+                  depth_pct=55.0) for k in range(4)]
+    for dip in dips[:2]:
+        g.add(dip)
+    assert g.ongoing() is None
+    g.add(dips[2])
+    episode = g.ongoing()
+    assert episode is not None and episode.kind == "flicker" and episode.end_us is None
+    assert episode.detail == "going on: 3 dips so far at 2.00 Hz" and episode.start_us == 0
+    g.add(dips[3])
+    assert g.ongoing().detail.startswith("going on: 4 dips so far")
+    assert g.tick(10_000_000)[0].count == 4 and g.ongoing() is None

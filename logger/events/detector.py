@@ -63,7 +63,8 @@ class ChannelWatch:
                 now.append(Event(kind=kind, start_us=span.start_label, channel=self.channel.name,
                                  value=self.sign * span.extreme, detail="going on",
                                  device_start_us=span.start_us))
-        return now
+        episode = self.flicker.ongoing()
+        return now if episode is None else [*now, episode]
 
     def finish(self, last_us: int, last_label: int) -> list[Event]:
         """At the end of a run: close what is still open at the last sample, and the last flicker group."""

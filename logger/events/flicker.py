@@ -8,6 +8,8 @@ shows up on the aux channel that taps the meter's supply node as restarts.
 
 from __future__ import annotations
 
+from dataclasses import replace
+
 from logger.events.model import Event
 from logger.events.rules import FLICKER_MIN_COUNT
 
@@ -42,6 +44,14 @@ class FlickerGrouper:
     @property
     def pending(self) -> list[Event]:
         return list(self._members)
+
+    def ongoing(self) -> Event | None:
+        """The episode under way, once it has enough dips to be one (its end not known yet), else None."""
+        if len(self._members) < FLICKER_MIN_COUNT:
+            return None
+        episode = self._episode(self._members)
+        return replace(episode, end_us=None, device_end_us=None,
+                       detail=f"going on: {len(self._members)} dips so far at {episode.rate_hz:.2f} Hz")
 
     def _episode(self, members: list[Event]) -> Event:
         first, last = members[0], members[-1]
