@@ -354,3 +354,30 @@ def test_figures_are_printed_to_their_resolution(value: float, step: float | Non
     from logger.figures import to_resolution
 
     assert to_resolution(value, step, signed=signed) == text
+
+
+def test_one_time_zone_on_every_review_output_named_and_utc_on_request(capsys, monkeypatch) -> None:
+    """On a computer one hour east of UTC (the POSIX zone string "CET-1": UTC+01:00, no tz database needed) the
+    overnight sample that starts at 22:00 UTC reads 23:00 local time in the summary and the event list, each
+    naming its zone; with --utc both read 22:00 and say UTC."""
+    import time
+
+    from logger.review.chart import show_utc
+
+    if not hasattr(time, "tzset"):
+        pytest.skip("needs time.tzset")
+    monkeypatch.setenv("TZ", "CET-1")
+    time.tzset()
+    run = str(Path(__file__).parents[1] / "sample_logs" / "overnight-soak")
+    try:
+        assert main(["review", run, "--events"]) == 0
+        local = capsys.readouterr().out
+        assert main(["review", run, "--events", "--utc"]) == 0
+        utc = capsys.readouterr().out
+    finally:
+        show_utc(False)
+        monkeypatch.delenv("TZ")
+        time.tzset()
+    assert "from 2026-03-13 23:00:00.002 to 2026-03-13 23:20:00.000 (local time, UTC+01:00)" in local
+    assert "| start (local time, UTC+01:00) |" in local and "| 2026-03-13 23:02:30.003 |" in local
+    assert "from 2026-03-13 22:00:00.002 to 2026-03-13 22:20:00.000 (UTC)" in utc and "| start (UTC) |" in utc

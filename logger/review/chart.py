@@ -101,9 +101,20 @@ def is_link(event: dict[str, Any]) -> bool:
     return event["kind"] in LINK_KINDS
 
 
+_SHOW_UTC = [False]
+"""Whether review outputs show UTC instead of this computer's local time (set once by ``--utc``)."""
+
+
+def show_utc(on: bool) -> None:
+    """Show every time of the review outputs (text, pictures, reports) in UTC instead of local time."""
+    _SHOW_UTC[0] = on
+
+
 def local_zone(at: datetime | None = None) -> tzinfo:
-    """This computer's time zone as the fixed offset in force at ``at`` (a run's own date, so summer time is
-    right for data from another season), or now."""
+    """The zone times are shown in: UTC with ``--utc``, else this computer's time zone as the fixed offset in
+    force at ``at`` (a run's own date, so summer time is right for data from another season), or now."""
+    if _SHOW_UTC[0]:
+        return UTC
     zone = (at or datetime.now(UTC)).astimezone().tzinfo
     return zone if zone is not None else UTC
 
@@ -113,10 +124,15 @@ def zone_text(zone: tzinfo) -> str:
     return f"UTC{offset[:3]}:{offset[3:]}"
 
 
+def zone_name(at: datetime | None = None) -> str:
+    """What every output says its times are in: ``UTC``, or ``local time, UTC+01:00``."""
+    return "UTC" if _SHOW_UTC[0] else f"local time, {zone_text(local_zone(at))}"
+
+
 def local_text(moment: datetime, digits: int = 3) -> str:
-    """A UTC moment as local wall-clock time with ``digits`` decimals of a second."""
+    """A UTC moment in the shown zone (local time unless ``--utc``) with ``digits`` decimals of a second."""
     aware = moment if moment.tzinfo is not None else moment.replace(tzinfo=UTC)
-    text = aware.astimezone().strftime("%Y-%m-%d %H:%M:%S.%f")
+    text = aware.astimezone(local_zone(aware)).strftime("%Y-%m-%d %H:%M:%S.%f")
     return text[: len(text) - 6 + digits] if digits else text[:-7]
 
 

@@ -40,6 +40,8 @@ def add_review_commands(sub: argparse._SubParsersAction) -> None:
     review.add_argument("--plot", type=Path, metavar="DIR",
                         help="also draw PNGs into DIR: the overview and a histogram per channel, or the event's zoom")
     review.add_argument("--term", action="store_true", help="also draw the channels (or the event) in the terminal")
+    review.add_argument("--utc", action="store_true",
+                        help="show times in UTC (default: this computer's local time, named on every output)")
     review.set_defaults(run=cmd_review)
 
     report = sub.add_parser("report", help="a run's report: Markdown with PNGs, or one self-contained HTML file")
@@ -48,12 +50,16 @@ def add_review_commands(sub: argparse._SubParsersAction) -> None:
     where.add_argument("--html", type=Path, metavar="FILE", help="one HTML file, pictures inside")
     where.add_argument("--md", type=Path, metavar="DIR", help="report.md and its PNGs in DIR")
     report.add_argument("--worst", type=int, default=5, metavar="N", help="zoom on the N worst events (5)")
+    report.add_argument("--utc", action="store_true",
+                        help="show times in UTC (default: this computer's local time, named on every output)")
     report.set_defaults(run=cmd_report)
 
     compare = sub.add_parser("compare", help="two runs side by side, with the difference B - A")
     compare.add_argument("a", type=Path, metavar="RUN_A")
     compare.add_argument("b", type=Path, metavar="RUN_B")
     compare.add_argument("--full", action="store_true", help="from every sample instead of the rollups")
+    compare.add_argument("--utc", action="store_true",
+                        help="show times in UTC (default: this computer's local time, named on every output)")
     compare.set_defaults(run=cmd_compare)
 
     export = sub.add_parser("export", help="write a run's samples as CSV or JSON lines, for other tools")
@@ -69,6 +75,7 @@ def add_review_commands(sub: argparse._SubParsersAction) -> None:
 
 
 def cmd_review(args: argparse.Namespace) -> int:
+    _zone(args)
     from logger.review.text import events_text, summary_text, window_text
 
     folder: Path = args.folder
@@ -143,6 +150,7 @@ def _print_chart(text) -> None:
 
 
 def cmd_report(args: argparse.Namespace) -> int:
+    _zone(args)
     from logger.review.report import report_html, report_markdown
 
     check_readable(args.folder)
@@ -157,6 +165,7 @@ def cmd_report(args: argparse.Namespace) -> int:
 
 
 def cmd_compare(args: argparse.Namespace) -> int:
+    _zone(args)
     from logger.review.compare import summaries_text
     from logger.review.summary import summarize
 
@@ -200,6 +209,12 @@ def cmd_export(args: argparse.Namespace) -> int:
                               counts=args.counts, progress=bar)
     print(f"{args.out}: {rows:,} rows", file=sys.stderr)
     return 0
+
+
+def _zone(args: argparse.Namespace) -> None:
+    from logger.review.chart import show_utc
+
+    show_utc(bool(getattr(args, "utc", False)))
 
 
 def _channels(text: str | None) -> list[str] | None:

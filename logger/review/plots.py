@@ -36,7 +36,7 @@ from logger.review.chart import (
     run_rollups,
     to_us,
     utc_us,
-    zone_text,
+    zone_name,
 )
 from logger.review.window import Window
 from logger.store.check import open_part
@@ -136,8 +136,7 @@ def event_png(window: Window, path: Path, limits: dict[str, Limits] | None = Non
     if not names or window.samples.num_rows == 0:
         axes[0].text(0.5, 0.5, "no samples in this window", transform=axes[0].transAxes, ha="center")
     axes[-1].set_xlim((to_us(window.start) - zero) / 1e6, (to_us(window.end) - zero) / 1e6)
-    axes[-1].set_xlabel(f"seconds from {local_text(from_us(zero))} local time "
-                        f"({zone_text(local_zone(from_us(zero)))})")
+    axes[-1].set_xlabel(f"seconds from {local_text(from_us(zero))} ({zone_name(from_us(zero))})")
     fig.suptitle(event_label(event) if event is not None else f"{local_text(window.start)} to "
                  f"{local_text(window.end)}", fontsize=11, wrap=True)
     _legend(fig, axes)
@@ -337,7 +336,7 @@ def _date_axis(ax: Any, left: float, right: float) -> None:
     ax.xaxis.set_major_locator(locator)
     ax.xaxis.set_major_formatter(mdates.ConciseDateFormatter(locator, tz=zone))
     ax.set_xlim(left, right)
-    ax.set_xlabel(f"local time ({zone_text(zone)})")
+    ax.set_xlabel(zone_name(mdates.num2date(left)))
 
 
 def _legend(fig: Any, axes: list[Any]) -> None:

@@ -29,6 +29,7 @@ from logger.review.chart import (
     run_rollups,
     to_us,
     utc_us,
+    zone_name,
 )
 from logger.review.window import around_event
 from logger.store.check import naming_damage, parts_dataset
@@ -119,7 +120,8 @@ def _compose(name: str, about: str, lo: np.ndarray, hi: np.ndarray, lim: Limits,
 
 
 def _time_line(span: tuple[int, int], columns: int, events: list[dict[str, Any]], digits: int) -> Text:
-    """Local time at the chart's two ends; between them a rule with each event drawn under its columns."""
+    """The time at the chart's two ends, its zone named (local time unless ``--utc``); between them a rule with
+    each event drawn under its columns."""
     start, stop = span
     cells = ["\u2500"] * columns
     colours: list[str | None] = [None] * columns
@@ -131,7 +133,7 @@ def _time_line(span: tuple[int, int], columns: int, events: list[dict[str, Any]]
         b = int((to_us(event["end"] or event["start"]) - start) * scale)
         for k in range(max(a, 0), min(max(b, a) + 1, columns)):
             cells[k], colours[k] = "\u2501", kind_colour(event["kind"])
-    left, right = _clock(start, digits), _clock(stop, digits)
+    left, right = _clock(start, digits), f"{_clock(stop, digits)} {zone_name(from_us(stop))}"
     if len(left) + len(right) + 2 <= columns:
         cells[: len(left)] = list(left)
         cells[columns - len(right):] = list(right)

@@ -10,6 +10,7 @@ import pyarrow as pa
 import pyarrow.parquet as pq
 
 from logger.figures import to_resolution
+from logger.review.chart import local_text, zone_name
 from logger.review.summary import ChannelStats, Summary
 from logger.review.window import Window
 from logger.store.layout import EVENTS_PARQUET
@@ -41,7 +42,8 @@ def summary_text(s: Summary) -> str:
               f"{_n(link.get('resets', 0), 'device reset')}, {_n(link.get('reconnects', 0), 'reconnect')}")
     head = [
         f"run {s.folder.name}: {s.status}, {s.stop_reason}",
-        f"from {s.start_utc} to {s.end_utc}: {_duration(s.duration_s)}, {s.samples:,} samples"
+        f"from {_iso(s.start_utc)} to {_iso(s.end_utc)} ({zone_name(_moment(s.start_utc))}): "
+        f"{_duration(s.duration_s)}, {s.samples:,} samples"
         + (f" at {link['rate_hz']:g} Hz" if link.get("rate_hz") else ""),
         f"gaps: {s.gaps} (frame gaps and link outages), {s.gap_s:.3f} s in all" + (counts if link else ""),
         f"device clock drift: {_g(link.get('drift_ppm'), 3)} ppm" if link.get("drift_ppm") is not None
@@ -87,21 +89,31 @@ def window_text(w: Window, most_rows: int = 40) -> str:
     e = w.event
     if e is not None:
         lasted = f", {e['duration_s']:.3f} s" if e.get("duration_s") is not None else ""
-        lines.append(f"event #{e['id']}: {e['kind']} on {e['channel'] or 'the link'} at {_t(e['start'])} UTC{lasted}: "
-                     f"{e['detail']}")
+        lines.append(f"event #{e['id']}: {e['kind']} on {e['channel'] or 'the link'} at {_t(e['start'])} "
+                     f"({zone_name(e['start'])}){lasted}: {e['detail']}")
     table = w.samples
-    lines.append(f"{table.num_rows:,} samples from {_t(w.start)} to {_t(w.end)} UTC"
+    lines.append(f"{table.num_rows:,} samples from {_t(w.start)} to {_t(w.end)} ({zone_name(w.start)})"
                  + (f" (one in {max(1, table.num_rows // most_rows)} shown)" if table.num_rows > most_rows else ""))
     step = max(1, table.num_rows // most_rows)
     rows = table.take(pa.array(range(0, table.num_rows, step))).to_pylist() if table.num_rows else []
     names = [n for n in table.column_names if n != "utc"]
-    lines += ["", "| utc | " + " | ".join(names) + " |", "|---" * (len(names) + 1) + "|"]
+    lines += ["", "| time | " + " | ".join(names) + " |", "|---" * (len(names) + 1) + "|"]
     lines += ["| " + _t(r["utc"]) + " | " + " | ".join(f"{r[n]:.5g}" for n in names) + " |" for r in rows]
     return "\n".join(lines)
 
 
+def _moment(text: str | None) -> datetime | None:
+    return datetime.fromisoformat(text) if text else None
+
+
+def _iso(text: str | None) -> str:
+    """A UTC label kept in _run.json, in the zone every output shows."""
+    return "-" if not text else local_text(datetime.fromisoformat(text))
+
+
 def _t(value: datetime) -> str:
-    return value.strftime("%Y-%m-%d %H:%M:%S.%f")[:-3]
+    """A moment in the zone every output shows (local time unless ``--utc``), to the millisecond."""
+    return local_text(value)
 
 
 def events_text(folder: Path, kinds: list[str] | None = None, channels: list[str] | None = None,
@@ -113,7 +125,8 @@ def events_text(folder: Path, kinds: list[str] | None = None, channels: list[str
     rows = sorted(pq.read_table(path).to_pylist(), key=lambda e: (e["start"], e["id"])) if path.exists() else []
     shown = [e for e in rows if (unfold or e.get("episode") is None)
              and (not kinds or e["kind"] in kinds) and (not channels or (e["channel"] or "-") in channels)]
-    lines = ["| # | kind | channel | start (UTC) | lasted | value | depth | detail |", "|---" * 8 + "|"]
+    lines = [f"| # | kind | channel | start ({zone_name(rows[0]['start'] if rows else None)}) | lasted | value "
+             "| depth | detail |", "|---" * 8 + "|"]
     for e in shown:
         lasted = "-" if e["duration_s"] is None else f"{e['duration_s']:.3f} s"
         depth = "-" if e["depth_pct"] is None else f"{e['depth_pct']:.1f} %"
