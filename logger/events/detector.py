@@ -87,7 +87,9 @@ class ChannelWatch:
             return None
         dropout = r.dropout_below is not None and span.extreme < r.dropout_below
         level = r.level_pct(span.extreme)
-        what = f"down to {span.extreme:.3g} {self.channel.unit}"
+        # Signed like the value and every picture of it: a negative rail sags towards zero, to -5.95 V.
+        what = (f"down to {span.extreme:.3g} {self.channel.unit}" if self.sign > 0 else
+                f"sagged towards zero, to {-span.extreme:.3g} {self.channel.unit}")
         what += f" ({level:.0f} % of nominal)" if level is not None else ""
         return Event(
             kind="dropout" if dropout else "brownout",
