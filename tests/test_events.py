@@ -108,6 +108,7 @@ def test_negative_rail_dips_towards_zero() -> None:
     (event,) = _run(EventDetector(rig), utc, values)
     assert event.kind == "brownout" and event.value == pytest.approx(-10.0)
     assert event.depth_pct == pytest.approx(100.0 * 5.0 / 15.0)
+    assert event.detail.startswith("sagged towards zero, to -10 V")  # signed like its value and its pictures
 
 
 def test_event_still_open_at_the_end_is_closed_at_the_last_sample() -> None:
