@@ -117,10 +117,11 @@ async def _key(app: RailtapApp, pilot, key: str) -> None:
 
 
 async def _quit(app: RailtapApp, pilot, pipeline: Pipeline) -> None:
-    """q twice: while a run is recorded, one q only asks."""
+    """q twice: while a run is recorded, one q only asks. Then until the run is sealed and the app has left
+    with its result (the app leaves just after the pipeline ends)."""
     await _key(app, pilot, "q")
     await _key(app, pilot, "q")
-    await _until(pilot, lambda: pipeline.wait(0), 20.0)
+    await _until(pilot, lambda: pipeline.wait(0) and app.return_value is not None, 60.0)
 
 
 def test_readouts_show_sign_unit_range_and_power() -> None:
