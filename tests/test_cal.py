@@ -256,12 +256,12 @@ def test_calibration_panel_on_the_live_screen(tmp_path: Path, monkeypatch) -> No
         app = RailtapApp(pipeline)
         async with app.run_test(size=(100, 30)) as pilot:
             app.simulate_key("k")
-            for _ in range(600):  # generous: a loaded machine is slow to open the panel
-                await pilot.pause(0.05)
-                if app.query_one(CalPanel).has_class("-open"):
-                    break
             panel = app.query_one(CalPanel)
             field = panel.query_one(Input)
+            for _ in range(600):  # generous: a loaded machine is slow to open the panel and focus its field
+                await pilot.pause(0.05)
+                if panel.has_class("-open") and field.has_focus:
+                    break
             assert panel.has_class("-open") and field.has_focus
             for n, volts in enumerate((2.0, 7.0, 12.0), start=1):
                 bench.level_v = volts
