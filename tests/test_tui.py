@@ -155,18 +155,21 @@ def test_keys_change_span_channel_bell_and_pause_without_stopping_the_run() -> N
         async with app.run_test(size=SIZE) as pilot:
             trend = app.query_one(Trend)
             assert str(trend.border_title).startswith("trend: out_v (V), last 10 s")
+            def titled(text: str):
+                return lambda: str(trend.border_title).startswith(text)
+
             for key in "ssc":
                 await _key(app, pilot, key)
-            assert str(trend.border_title).startswith("trend: out_a (A), last 10 min")
+            await _until(pilot, titled("trend: out_a (A), last 10 min"), 30.0)
             for key in "ss":  # 1 h, then the whole run so far
                 await _key(app, pilot, key)
-            assert str(trend.border_title).startswith("trend: out_a (A), whole run")
+            await _until(pilot, titled("trend: out_a (A), whole run"), 30.0)
             await _key(app, pilot, "s")  # and round again
-            assert str(trend.border_title).startswith("trend: out_a (A), last 10 s")
+            await _until(pilot, titled("trend: out_a (A), last 10 s"), 30.0)
             await _key(app, pilot, "b")
             await _key(app, pilot, "p")
-            banner = str(app.query_one(Banner).content)
-            assert "paused" in banner and "[bell on]" in banner
+            banner = app.query_one(Banner)
+            await _until(pilot, lambda: "paused" in str(banner.content) and "[bell on]" in str(banner.content), 30.0)
             assert not pipeline.wait(0)  # pausing the display leaves the run alone
             await _key(app, pilot, "q")
             await _until(pilot, lambda: app.return_value is not None, 30.0)
@@ -359,9 +362,13 @@ def test_zero_key_refuses_a_reading_far_up_the_range(start: Callable[..., Pipeli
             await _until(pilot, lambda: pipeline.counts_ring is not None and pipeline.counts_ring.written > 100)
             await _key(app, pilot, "z")
             await _key(app, pilot, "z")
-            told = [str(n.message) for n in app._notifications]
-            assert any("not taken as zero" in t and "% of the ADC's range" in t for t in told), told
-            assert not any("press z again" in t for t in told)
+
+            def told() -> list[str]:
+                return [str(n.message) for n in app._notifications]
+
+            await _until(pilot, lambda: sum("not taken as zero" in t for t in told()) == 2, 30.0)
+            assert all("% of the ADC's range" in t for t in told() if "not taken" in t)
+            assert not any("press z again" in t for t in told())
             await _quit(app, pilot, pipeline)
 
     asyncio.run(run())
