@@ -614,3 +614,37 @@ def test_the_whole_run_span_covers_every_sample_with_its_ends_labelled() -> None
     start, end = (datetime.fromtimestamp(us / 1e6).astimezone().strftime("%H:%M:%S")
                   for us in (t0, t0 + 3 * 3_600_000_000 - 1000))
     assert str(trend.border_title) == f"trend: out_v (V), whole run, {start} to {end}"
+
+
+def test_a_flicker_episode_is_one_row_in_the_live_list() -> None:
+    """Dips on meter_v while its flicker episode is going on get no row; when the episode ends, its row takes
+    the place of the dips it counts, and the list's title says how many were folded into it."""
+    from dataclasses import replace
+
+    from logger.events.model import Event
+
+    fake = FakePipeline(SCENARIO.rig, [12.0, 2.0, 7.3], [11.9, 0.5, 7.2], [12.1, 3.5, 7.4])
+    t0 = 1_800_000_000_000_000
+    dips = [Event("brownout", t0 + k * 400_000, end_us=t0 + k * 400_000 + 100_000, channel="meter_v",
+                  detail=f"dip {k}", id=k + 2) for k in range(6)]
+    other = Event("dropout", t0 - 5_000_000, end_us=t0 - 4_900_000, channel="out_v", detail="other", id=1)
+    going = Event("flicker", t0, channel="meter_v", detail="going on: 3 dips so far at 2.50 Hz")
+    episode = Event("flicker", t0, end_us=dips[-1].end_us, channel="meter_v", detail="6 dips", id=8)
+
+    async def run() -> None:
+        app = RailtapApp(fake)
+        async with app.run_test(size=SIZE) as pilot:
+            table = app.query_one(EventTable)
+            fake._snap = replace(fake._snap, events=(*dips[:3][::-1], other))
+            await _until(pilot, lambda: table.row_count == 4, 30.0)
+            fake._snap = replace(fake._snap, events=(*dips[::-1], other), active=(going,))
+            await _until(pilot, lambda: table.last_id == 7, 30.0)
+            assert table.row_count == 4 and table.folded == 3  # dips 3 to 5: inside the episode going on
+            fake._snap = replace(fake._snap, events=(episode, *dips[::-1], other), active=())
+            await _until(pilot, lambda: table.last_id == 8, 30.0)
+            details = [str(table.get_row_at(k)[4]) for k in range(table.row_count)]
+            assert details == ["6 dips", "other"] and "6 dips inside flicker episodes" in str(table.border_title)
+            await _key(app, pilot, "q")
+            await _until(pilot, lambda: app.return_value is not None, 30.0)
+
+    asyncio.run(run())

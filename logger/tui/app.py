@@ -118,7 +118,7 @@ class RailtapApp(App[str]):
         fresh = [e for e in snap.events if e.id is not None and e.id > self._seen_id][::-1]
         if fresh:
             self._seen_id = fresh[-1].id
-        if not self.paused and table.add_events(snap.events):
+        if not self.paused and table.add_events(snap.events, snap.active):
             self.query_one(EventDetail).show(table.selected())
         if banner.show(snap, fresh):
             self.bell()

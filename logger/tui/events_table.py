@@ -16,6 +16,7 @@ from logger.tui.fmt import duration_text, event_details, local_time
 ALERT_KINDS = ("brownout", "dropout", "overvoltage", "overcurrent", "flicker")
 LINK_KINDS = ("frame_gap", "crc_burst", "link_lost", "device_reset")
 QUALITY_KINDS = ("outside_cal",)
+DIPS = ("brownout", "dropout")
 
 
 class EventTable(DataTable):
@@ -43,6 +44,8 @@ class EventTable(DataTable):
         self.last_id = 0
         self._keys: deque[str] = deque()
         self._events: dict[str, Event] = {}
+        self.folded = 0
+        """Dips counted in a flicker episode's row instead of a row of their own."""
         self.border_title = "events (newest first)"
 
     def on_mount(self) -> None:
@@ -55,19 +58,27 @@ class EventTable(DataTable):
         self.add_column("residual / detail", key="detail")
         self.add_column("seen", key="id")  # the order events ended in, not the run's numbers (by start)
 
-    def add_events(self, newest_first: tuple[Event, ...]) -> list[Event]:
-        """Add the events not shown yet; returns them, oldest first."""
+    def add_events(self, newest_first: tuple[Event, ...], active: tuple[Event, ...] = ()) -> list[Event]:
+        """Add the events not shown yet; returns them, oldest first. A flicker episode is one row: dips on a
+        channel whose episode is going on (in ``active``) get none, and an episode that ends takes the rows of
+        the dips it counts."""
         fresh = [e for e in newest_first if e.id is not None and e.id > self.last_id][::-1]
         if not fresh:
             return fresh
         held = self.selected() if self.cursor_row > 0 else None  # a row picked by the user stays picked
+        going = {e.channel: e.start_us for e in active if e.kind == "flicker"}
         for event in fresh:
+            self.last_id = event.id
+            if event.kind == "flicker":
+                self._fold(event)
+            elif event.kind in DIPS and event.channel in going and event.start_us >= going[event.channel]:
+                self.folded += 1
+                continue
             key = str(event.id)
             self.add_row(_kind(event.kind), event.channel or "-", local_time(event.start_us),
                          duration_text(event.duration_s), event.detail, event.id, key=key)
             self._keys.append(key)
             self._events[key] = event
-            self.last_id = event.id
         while len(self._keys) > self.keep:
             key = self._keys.popleft()
             self.remove_row(key)
@@ -75,8 +86,20 @@ class EventTable(DataTable):
         self.sort("id", reverse=True)
         if held is not None and str(held.id) in self._events:
             self.move_cursor(row=self.get_row_index(str(held.id)), animate=False)
-        self.border_title = f"events (newest first): {self.last_id} so far"
+        folded = f", {self.folded:,} dips inside flicker episodes" if self.folded else ""
+        self.border_title = f"events (newest first): {self.last_id} so far{folded}"
         return fresh
+
+    def _fold(self, episode: Event) -> None:
+        """Take out the rows of the dips an episode counts (on its channel, within its span)."""
+        end = episode.end_us if episode.end_us is not None else episode.start_us
+        inside = [key for key, e in self._events.items() if e.kind in DIPS and e.channel == episode.channel
+                  and episode.start_us <= e.start_us <= end]
+        for key in inside:
+            self.remove_row(key)
+            self._events.pop(key)
+            self._keys.remove(key)
+        self.folded += len(inside)
 
     def selected(self) -> Event | None:
         """The event under the cursor (the newest while the cursor stays on the top row)."""
