@@ -648,3 +648,39 @@ def test_a_flicker_episode_is_one_row_in_the_live_list() -> None:
             await _until(pilot, lambda: app.return_value is not None, 30.0)
 
     asyncio.run(run())
+
+
+def test_f_filters_the_event_list_to_faults_then_to_the_trends_channel() -> None:
+    from dataclasses import replace
+
+    from logger.events.model import Event
+
+    fake = FakePipeline(SCENARIO.rig, [12.0, 2.0, 7.3], [11.9, 0.5, 7.2], [12.1, 3.5, 7.4])
+    t0 = 1_800_000_000_000_000
+    events = (Event("mark", t0 + 3_000_000, detail="a note", id=4),
+              Event("brownout", t0 + 2_000_000, end_us=t0 + 2_100_000, channel="meter_v", detail="m", id=3),
+              Event("link_lost", t0 + 1_000_000, end_us=t0 + 1_500_000, detail="unplugged", id=2),
+              Event("dropout", t0, end_us=t0 + 100_000, channel="out_v", detail="d", id=1))
+    fake._snap = replace(fake._snap, events=events)
+
+    async def run() -> None:
+        app = RailtapApp(fake)
+        async with app.run_test(size=SIZE) as pilot:
+            table = app.query_one(EventTable)
+
+            def kinds() -> list[str]:
+                return [str(table.get_row_at(k)[0]) for k in range(table.row_count)]
+
+            await _until(pilot, lambda: table.row_count == 4, 30.0)
+            await _key(app, pilot, "f")
+            await _until(pilot, lambda: kinds() == ["brownout", "dropout"], 30.0)
+            assert "showing faults (f: more)" in str(table.border_title)
+            await _key(app, pilot, "f")  # the trend shows out_v
+            await _until(pilot, lambda: kinds() == ["dropout"], 30.0)
+            assert "showing faults on out_v" in str(table.border_title)
+            await _key(app, pilot, "f")
+            await _until(pilot, lambda: table.row_count == 4, 30.0)
+            await _key(app, pilot, "q")
+            await _until(pilot, lambda: app.return_value is not None, 30.0)
+
+    asyncio.run(run())

@@ -28,7 +28,7 @@ from logger.ingest.stream import ZERO_MOMENT_S
 from logger.tui.banner import Banner
 from logger.tui.calpanel import CalPanel
 from logger.tui.channels import shown_channels
-from logger.tui.events_table import EventDetail, EventTable
+from logger.tui.events_table import ALERT_KINDS, EventDetail, EventTable
 from logger.tui.history import TrendHistory
 from logger.tui.mark import MarkInput
 from logger.tui.messages import MarkNote, RunSealed
@@ -66,6 +66,7 @@ class RailtapApp(App[str]):
         Binding("s", "span", "span"),
         Binding("c", "channel", "channel"),
         Binding("b", "bell", "bell"),
+        Binding("f", "filter", "filter"),
         Binding("z", "zero", "zero"),
         Binding("w", "record", "record"),
         Binding("k", "calibrate", "cal"),
@@ -173,6 +174,19 @@ class RailtapApp(App[str]):
 
     def action_channel(self) -> None:
         self.query_one(Trend).next_channel()
+
+    def action_filter(self) -> None:
+        """The event list: every event, then faults only, then faults on the channel the trend shows."""
+        table = self.query_one(EventTable)
+        trend = self.query_one(Trend)
+        channel = trend.history.shown.names[trend.channel]
+        if table.kinds is None:
+            table.set_filter(ALERT_KINDS, None)
+        elif table.channel is None and channel in [ch.name for ch in self.pipeline.rig.channels]:
+            table.set_filter(ALERT_KINDS, channel)
+        else:
+            table.set_filter(None, None)
+        self.query_one(EventDetail).show(table.selected())
 
     def action_zero(self) -> None:
         """Zero the current channel the trend shows, or the first one. It must carry no current, so the first

@@ -46,6 +46,10 @@ class EventTable(DataTable):
         self._events: dict[str, Event] = {}
         self.folded = 0
         """Dips counted in a flicker episode's row instead of a row of their own."""
+        self.kinds: tuple[str, ...] | None = None
+        self.channel: str | None = None
+        """The filter: only these kinds, only this channel (None: all)."""
+        self._shown: set[str] = set()
         self.border_title = "events (newest first)"
 
     def on_mount(self) -> None:
@@ -75,20 +79,53 @@ class EventTable(DataTable):
                 self.folded += 1
                 continue
             key = str(event.id)
-            self.add_row(_kind(event.kind), event.channel or "-", local_time(event.start_us),
-                         duration_text(event.duration_s), event.detail, event.id, key=key)
             self._keys.append(key)
             self._events[key] = event
+            self._show(key, event)
         while len(self._keys) > self.keep:
             key = self._keys.popleft()
-            self.remove_row(key)
+            self._hide(key)
             self._events.pop(key, None)
+        self._settle(held)
+        return fresh
+
+    def set_filter(self, kinds: tuple[str, ...] | None, channel: str | None) -> None:
+        """Show only events of ``kinds`` (None: every kind) on ``channel`` (None: every channel), from the
+        events the list keeps; the rest stay kept and come back when the filter is lifted."""
+        held = self.selected() if self.cursor_row > 0 else None
+        self.kinds, self.channel = kinds, channel
+        self.clear()
+        self._shown.clear()
+        for key in self._keys:
+            self._show(key, self._events[key])
+        self._settle(held)
+
+    def _wanted(self, event: Event) -> bool:
+        return (self.kinds is None or event.kind in self.kinds) and (self.channel is None
+                                                                      or event.channel == self.channel)
+
+    def _show(self, key: str, event: Event) -> None:
+        if self._wanted(event):
+            self.add_row(_kind(event.kind), event.channel or "-", local_time(event.start_us),
+                         duration_text(event.duration_s), event.detail, event.id, key=key)
+            self._shown.add(key)
+
+    def _hide(self, key: str) -> None:
+        if key in self._shown:
+            self.remove_row(key)
+            self._shown.discard(key)
+
+    def _settle(self, held: Event | None) -> None:
+        """Newest first, the user's row still picked, and the title saying what is shown."""
         self.sort("id", reverse=True)
-        if held is not None and str(held.id) in self._events:
+        if held is not None and str(held.id) in self._shown:
             self.move_cursor(row=self.get_row_index(str(held.id)), animate=False)
         folded = f", {self.folded:,} dips inside flicker episodes" if self.folded else ""
-        self.border_title = f"events (newest first): {self.last_id} so far{folded}"
-        return fresh
+        only = ""
+        if self.kinds is not None or self.channel is not None:
+            only = f"; showing {'faults' if self.kinds is not None else 'all'}" + (
+                f" on {self.channel}" if self.channel else "") + " (f: more)"
+        self.border_title = f"events (newest first): {self.last_id} so far{folded}{only}"
 
     def _fold(self, episode: Event) -> None:
         """Take out the rows of the dips an episode counts (on its channel, within its span)."""
@@ -96,7 +133,7 @@ class EventTable(DataTable):
         inside = [key for key, e in self._events.items() if e.kind in DIPS and e.channel == episode.channel
                   and episode.start_us <= e.start_us <= end]
         for key in inside:
-            self.remove_row(key)
+            self._hide(key)
             self._events.pop(key)
             self._keys.remove(key)
         self.folded += len(inside)
