@@ -65,6 +65,28 @@ def test_charge_on_uneven_timestamps_matches_scipy(tmp_path: Path) -> None:
         assert s.rails[0].energy_wh == pytest.approx(12.0 * 7.5 / 3600)
 
 
+def test_ripple_leaves_out_the_slow_trend_and_the_events_and_names_the_largest_excursion(tmp_path: Path) -> None:
+    """The same 50 mV sine riding on a rail that creeps up 0.1 V a second, with a 200 ms dip to 9 V at 5 s: the
+    ripple RMS is still A / sqrt(2) (common fact of the trade) because each second's straight-line trend is
+    taken out, and the dip's second is left out of the ripple and reported as the largest excursion instead.
+    Without the trend taken out the creep alone would add 0.1 / sqrt(12) V = 28.9 mV (RMS of a ramp, common
+    fact) in quadrature."""
+    a = 0.05
+    t = np.arange(0, 10.0, 1 / 2000)
+    volts = 12.0 + 0.1 * t + a * np.sin(2 * np.pi * 100 * t)
+    dip = (t >= 5.2) & (t < 5.4)
+    volts[dip] = 9.0
+    event = {"kind": "brownout", "channel": "out_v", "start": T0 + 5_200_000, "end": T0 + 5_400_000,
+             "duration_s": 0.2, "value": 9.0, "depth_pct": 25.0, "detail": "down to 9 V", "id": 1,
+             "device_start_us": 5_200_000, "device_end_us": 5_400_000}
+    s = summarize(_write_run(tmp_path, t, volts, np.ones(len(t)), rate_hz=2000.0, events=[event]))
+    out_v = next(c for c in s.channels if c.name == "out_v")
+    assert out_v.ripple_rms[0] == pytest.approx(a / np.sqrt(2), rel=1e-3)
+    assert out_v.ripple_rms[1] == pytest.approx(a / np.sqrt(2), rel=1e-3)  # the dip's second is not ripple
+    assert out_v.ripple_pp[1] < 2 * a + 0.1 + 1e-3  # a second holds 2 A plus its 0.1 V of creep at most
+    assert out_v.excursion == pytest.approx(12.0 + 0.1 * 6.0 + a - 9.0, abs=0.01)  # its second's top to the dip
+
+
 def test_a_2_ah_cell_at_0_2_it_for_5_hours_gives_2_ah(tmp_path: Path) -> None:
     # IEC 61960-3 rated capacity: discharge at 0.2 It, here 0.4 A for a 2.0 Ah cell, for 5 h (value from
     # memory); one sample a second, in five one-hour parts, so the interval between parts counts too.

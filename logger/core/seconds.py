@@ -1,9 +1,12 @@
 """Per-second figures of a stream of samples: what the live counters, the rollups and a full review all read.
 
-One row per second of the device clock: ``count``, ``covered_s`` (time integrated in it), per channel
+One row per second of the device clock: ``count``, ``covered_s`` (time integrated in it), ``t_mean`` and
+``t_m2`` (mean and sum of squared deviations of the samples' times within the second, in seconds), per channel
 ``min``, ``max``, ``mean``, ``m2`` (sum of squared deviations from that second's mean, so variances combine
-exactly) and ``int`` (the time integral of the value, unit x seconds), and per rail the integral of volts x
-amps (joules). ``utc`` labels the row with its first sample's UTC label.
+exactly), ``mtx`` (the co-moment of time and value, so the second's straight-line trend can be taken out of
+its spread: ``m2 - mtx**2 / t_m2`` is what is left about the line) and ``int`` (the time integral of the
+value, unit x seconds), and per rail the integral of volts x amps (joules). ``utc`` labels the row with its
+first sample's UTC label.
 
 Integrals use the trapezoid rule on the device clock. Each interval between two samples belongs to the second
 of its first sample; intervals across a gap (:mod:`logger.core.gaps`) are left out. Streaming and
@@ -20,7 +23,7 @@ import numpy as np
 from logger.core.gaps import integrated
 
 SECOND_US = 1_000_000
-STATS = ("min", "max", "mean", "m2", "int")
+STATS = ("min", "max", "mean", "m2", "mtx", "int")
 
 
 @dataclass(frozen=True)
@@ -89,10 +92,15 @@ class Seconds:
         if self.keep_rows:
             mean = np.add.reduceat(cols, starts, axis=1) / counts
             dev = cols - np.repeat(mean, counts, axis=1)
+            t_in = (device_us - keys * SECOND_US) * 1e-6  # seconds into its own second: small, exact enough
+            t_mean = np.add.reduceat(t_in, starts) / counts
+            t_dev = t_in - np.repeat(t_mean, counts)
             self.rows.append({
                 "key": keys[starts], "utc": utc[starts], "count": counts,
                 "min": np.minimum.reduceat(cols, starts, axis=1).T, "max": np.maximum.reduceat(cols, starts, axis=1).T,
-                "mean": mean.T, "m2": np.add.reduceat(dev * dev, starts, axis=1).T, "int": integ.T, "covered": cover,
+                "mean": mean.T, "m2": np.add.reduceat(dev * dev, starts, axis=1).T,
+                "mtx": np.add.reduceat(dev * t_dev, starts, axis=1).T, "int": integ.T, "covered": cover,
+                "t_mean": t_mean, "t_m2": np.add.reduceat(t_dev * t_dev, starts),
             })
         self.carry = Carry(int(device_us[-1]), int(seq[-1]), int(segment[-1]), int(utc[-1]), cols[:, -1].copy())
 
@@ -144,7 +152,8 @@ class Seconds:
         width = len(self.channels)
         nan = np.full((1, width), np.nan)
         return {"key": np.array([key]), "utc": np.array([self.carry.utc]), "count": np.array([0]), "min": nan,
-                "max": nan, "mean": nan, "m2": np.zeros((1, width)), "int": area[None, :], "covered": np.array([dt])}
+                "max": nan, "mean": nan, "m2": np.zeros((1, width)), "mtx": np.zeros((1, width)), "int": area[None, :],
+                "covered": np.array([dt]), "t_mean": np.array([np.nan]), "t_m2": np.zeros(1)}
 
     def merged(self) -> dict[str, np.ndarray]:
         """Every row so far, in order of seconds, rows of the same second combined."""
@@ -157,7 +166,8 @@ def merge_rows(rows: list[dict[str, np.ndarray]], int_width: int, width: int) ->
         empty = np.zeros((0, width))
         return {"key": np.zeros(0, dtype=np.int64), "utc": np.zeros(0, dtype=np.int64),
                 "count": np.zeros(0, dtype=np.int64), "min": empty, "max": empty, "mean": empty, "m2": empty,
-                "int": np.zeros((0, int_width)), "covered": np.zeros(0)}
+                "mtx": empty, "int": np.zeros((0, int_width)), "covered": np.zeros(0), "t_mean": np.zeros(0),
+                "t_m2": np.zeros(0)}
     cat = {k: np.concatenate([r[k] for r in rows]) for k in rows[0]}
     order = np.argsort(cat["key"], kind="stable")
     cat = {k: v[order] for k, v in cat.items()}
@@ -169,11 +179,18 @@ def merge_rows(rows: list[dict[str, np.ndarray]], int_width: int, width: int) ->
     mean_sum = np.add.reduceat(np.nan_to_num(cat["mean"]) * n, starts, axis=0)
     with np.errstate(invalid="ignore", divide="ignore"):
         mean = np.where(total > 0, mean_sum / total, np.nan)
-    spread = np.nan_to_num(cat["mean"] - np.repeat(mean, np.diff(np.r_[starts, len(n)]), axis=0)) ** 2 * n
-    return {
+    sizes = np.diff(np.r_[starts, len(n)])
+    x_off = np.nan_to_num(cat["mean"] - np.repeat(mean, sizes, axis=0))
+    t_sum = np.add.reduceat(np.nan_to_num(cat["t_mean"]) * n[:, 0], starts)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        t_mean = np.where(total[:, 0] > 0, t_sum / total[:, 0], np.nan)
+    t_off = np.nan_to_num(cat["t_mean"] - np.repeat(t_mean, sizes))
+    return {  # moments of parts of a second combined exactly (the parallel-axis terms)
         "key": cat["key"][starts], "utc": np.minimum.reduceat(cat["utc"], starts),
         "count": np.add.reduceat(cat["count"], starts),
         "min": np.fmin.reduceat(cat["min"], starts, axis=0), "max": np.fmax.reduceat(cat["max"], starts, axis=0),
-        "mean": mean, "m2": np.add.reduceat(cat["m2"] + spread, starts, axis=0),
+        "mean": mean, "m2": np.add.reduceat(cat["m2"] + x_off**2 * n, starts, axis=0),
+        "mtx": np.add.reduceat(cat["mtx"] + x_off * t_off[:, None] * n, starts, axis=0),
         "int": np.add.reduceat(cat["int"], starts, axis=0), "covered": np.add.reduceat(cat["covered"], starts),
+        "t_mean": t_mean, "t_m2": np.add.reduceat(cat["t_m2"] + t_off**2 * n[:, 0], starts),
     }

@@ -28,6 +28,7 @@ from logger.store.rollup import Pair, gap_us, last_sample, pairs_of, read_rollup
 from logger.wire import DeviceHeader
 
 GAP_KINDS = ("frame_gap", "link_lost")
+FAULTS = ("brownout", "dropout", "overvoltage", "overcurrent", "flicker")
 
 
 @dataclass(frozen=True)
@@ -40,9 +41,9 @@ class ChannelStats:
     maximum: float
     std: float
     ripple_pp: tuple[float, float]
-    """Peak-to-peak within one-second windows: (median, largest)."""
+    """Peak-to-peak within one-second windows that no event touched: (median, largest)."""
     ripple_rms: tuple[float, float]
-    """RMS of the AC part (the spread about the window's mean) within one-second windows: (median, largest)."""
+    """RMS about each one-second window's straight-line trend, in windows no event touched: (median, largest)."""
     integral: float
     """Time integral of the value, unit x seconds."""
     below_s: float = 0.0
@@ -51,6 +52,8 @@ class ChannelStats:
     """Time in overvoltage or overcurrent."""
     resolution: float | None = None
     """One converter step in the channel's unit (the rig's scaling): what its figures are printed to."""
+    excursion: float = float("nan")
+    """The largest lowest-to-highest range within one second, events and steps included."""
 
 
 @dataclass(frozen=True)
@@ -180,18 +183,50 @@ def _channel(table: pa.Table, name: str, unit: str, events: pa.Table | None) -> 
     mean = float((mean_s * n).sum() / total) if total else float("nan")
     m2 = float(m2_s.sum() + (n * (mean_s - mean) ** 2).sum())  # variances of parts combined exactly
     pp = hi - lo
-    rms = np.sqrt(m2_s / n)
+    quiet = ~_in_events(table["device_s"].to_numpy()[have], events, name)
+    rms = np.sqrt(_detrended_m2(table, name, have) / n)
     return ChannelStats(
         name=name, unit=unit, samples=int(total),
         minimum=float(lo.min()) if total else float("nan"), mean=mean,
         maximum=float(hi.max()) if total else float("nan"),
         std=float(np.sqrt(m2 / (total - 1))) if total > 1 else float("nan"),
-        ripple_pp=(float(np.median(pp)), float(pp.max())) if total else (float("nan"),) * 2,
-        ripple_rms=(float(np.median(rms)), float(rms.max())) if total else (float("nan"),) * 2,
+        ripple_pp=_typical_worst(pp[quiet]), ripple_rms=_typical_worst(rms[quiet]),
         integral=float(table[f"{name}_int"].to_numpy().sum()),
         below_s=_total_s(events, ("brownout", "dropout"), name),
         above_s=_total_s(events, ("overvoltage", "overcurrent"), name),
+        excursion=float(pp.max()) if total else float("nan"),
     )
+
+
+def _typical_worst(values: np.ndarray) -> tuple[float, float]:
+    return (float(np.median(values)), float(values.max())) if len(values) else (float("nan"),) * 2
+
+
+def _detrended_m2(table: pa.Table, name: str, have: np.ndarray) -> np.ndarray:
+    """Each second's spread about its own straight-line trend: the slow part (a sag, a charge curve) is not
+    ripple. Rollups written before the trend was kept give the spread about the mean."""
+    m2 = table[f"{name}_m2"].to_numpy()[have]
+    if "t_m2" not in table.column_names or f"{name}_mtx" not in table.column_names:
+        return m2
+    t_m2 = table["t_m2"].to_numpy()[have]
+    mtx = table[f"{name}_mtx"].to_numpy()[have]
+    with np.errstate(invalid="ignore", divide="ignore"):
+        trend = np.where(t_m2 > 0, mtx**2 / t_m2, 0.0)
+    return np.maximum(m2 - trend, 0.0)
+
+
+def _in_events(device_s: np.ndarray, events: pa.Table | None, name: str) -> np.ndarray:
+    """Which seconds an excursion on this channel (a dip, an over-limit, a flicker) touched: left out of the
+    ripple, which describes the rail between events."""
+    inside = np.zeros(len(device_s), dtype=bool)
+    if events is None or events.num_rows == 0 or "device_start_us" not in events.column_names:
+        return inside
+    for row in events.select(["kind", "channel", "device_start_us", "device_end_us"]).to_pylist():
+        if row["channel"] != name or row["kind"] not in FAULTS or row["device_start_us"] is None:
+            continue
+        end = row["device_end_us"] if row["device_end_us"] is not None else row["device_start_us"]
+        inside |= (device_s >= row["device_start_us"] // 1_000_000) & (device_s <= end // 1_000_000)
+    return inside
 
 
 def _rail(table: pa.Table, pair: Pair) -> RailTotals:

@@ -52,7 +52,7 @@ def pairs_of(metadata: dict[str, Any]) -> list[Pair]:
 
 def rollup_schema(channels: list[str], pairs: list[Pair]) -> pa.Schema:
     fields = [pa.field("utc", UTC_TYPE), pa.field("device_s", pa.int64()), pa.field("count", pa.int64()),
-              pa.field("covered_s", pa.float64())]
+              pa.field("covered_s", pa.float64()), pa.field("t_m2", pa.float64())]
     fields += [pa.field(f"{c}_{s}", pa.float64()) for c in channels for s in STATS]
     fields += [pa.field(f"{p.rail}_w_int", pa.float64()) for p in pairs]
     return pa.schema(fields)
@@ -104,6 +104,7 @@ def rollup_table(seconds: Seconds) -> pa.Table:
         "device_s": from_numpy(merged["key"].astype(np.int64), pa.int64()),
         "count": from_numpy(merged["count"].astype(np.int64), pa.int64()),
         "covered_s": from_numpy(merged["covered"], pa.float64()),
+        "t_m2": from_numpy(np.ascontiguousarray(merged["t_m2"]), pa.float64()),
     }
     for k, c in enumerate(seconds.channels):
         for stat in STATS:
@@ -202,7 +203,7 @@ def read_rollups(folder: Path, pairs: list[Pair], gap: int = round(GAP_S * 1e6),
             results = [_outcome(part, future.result, progress, n, len(parts))
                        for n, ((_, part), future) in enumerate(zip(parts, futures, strict=True), 1)]
     else:
-        wanted = {"device_s", *(f"{p.rail}_w_int" for p in pairs)}
+        wanted = {"device_s", "t_m2", *(f"{p.rail}_w_int" for p in pairs)}
         results = [_outcome(part, lambda i=index: _rollup_of(folder, i, pairs, gap, wanted), progress, n,
                             len(parts)) for n, (index, part) in enumerate(parts, 1)]
     tables = [r for r in results if isinstance(r, pa.Table)]
