@@ -18,6 +18,7 @@ FIGURES: tuple[tuple[str, str], ...] = (
     ("min", "minimum"), ("mean", "mean"), ("max", "maximum"), ("std", "std"),
     ("ripple p-p, typical", "ripple_pp[0]"), ("ripple p-p, worst", "ripple_pp[1]"),
     ("ripple RMS, typical", "ripple_rms[0]"), ("ripple RMS, worst", "ripple_rms[1]"),
+    ("largest excursion in a second", "excursion"),
     ("below threshold (s)", "below_s"), ("above (s)", "above_s"),
 )
 """Rows of the channel table: the label and the :class:`ChannelStats` field (``[k]``: an item of a pair)."""
