@@ -48,3 +48,16 @@ def journal_rows(root: Path) -> int:
     journals = sorted(root.glob("_journal-*.arrows")) + sorted(root.glob("*/_journal-*.arrows"))
     table = read_journal_table(journals[-1]) if journals else None
     return 0 if table is None else table.num_rows
+
+
+def flip_page_bytes(part: Path) -> None:
+    """Damage a data page of a sample part in place (every 7th byte of its first value column's first page
+    flipped), leaving its footer whole: only the page's checksum can tell."""
+    import pyarrow.parquet as pq
+
+    column = pq.read_metadata(part).row_group(0).column(4)
+    data = bytearray(part.read_bytes())
+    start = column.dictionary_page_offset or column.data_page_offset
+    for i in range(start + 40, min(start + column.total_compressed_size, len(data)) - 8, 7):
+        data[i] ^= 0x5A
+    part.write_bytes(bytes(data))

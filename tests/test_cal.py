@@ -10,6 +10,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from fakes import flip_page_bytes
 
 from logger.cal.apply import Calibrator
 from logger.cal.assess import CalPoint, assess, gain_only
@@ -392,7 +393,6 @@ def test_a_killed_recal_leaves_the_old_calibration_or_the_new_never_a_mix(tmp_pa
 def test_recal_of_a_run_with_a_damaged_part_names_it_and_changes_nothing(tmp_path: Path, damage: str) -> None:
     """A part whose footer is gone is found before anything is written; one whose page fails its checksum is
     found while rewriting: either way one StoreError naming the part, no temporary file left, the run as it was."""
-    import pyarrow.parquet as pq
 
     from logger.store import StoreError, read_run_json
     from logger.store.recal import recalibrate
@@ -402,12 +402,7 @@ def test_recal_of_a_run_with_a_damaged_part_names_it_and_changes_nothing(tmp_pat
     if damage == "truncated":
         part.write_bytes(part.read_bytes()[:3000])
     else:
-        column = pq.read_metadata(part).row_group(0).column(4)
-        data = bytearray(part.read_bytes())
-        start = column.dictionary_page_offset or column.data_page_offset
-        for i in range(start + 40, min(start + column.total_compressed_size, len(data)) - 8, 7):
-            data[i] ^= 0x5A
-        part.write_bytes(bytes(data))
+        flip_page_bytes(part)
     before = read_run_json(run)
     with pytest.raises(StoreError, match=part.name):
         recalibrate(run, [_line_profile("out_v", "V", 3.3 / 4096 * 11.0, (0.0, 4095.0))])

@@ -9,6 +9,7 @@ import numpy as np
 import pandas as pd
 import pyarrow as pa
 import pytest
+from fakes import flip_page_bytes
 from scipy.integrate import trapezoid
 
 from logger.cal.apply import Calibrator
@@ -261,17 +262,11 @@ def _same_scaling_profile(folder: Path) -> Path:
 @pytest.mark.parametrize("full", [False, True])
 def test_a_damaged_page_inside_a_part_is_named(tmp_path: Path, capsys, full: bool) -> None:
     """Bytes flipped inside a data page (the footer still opens): the part is named in one line."""
-    import pyarrow.parquet as pq
 
     t = np.arange(0, 30.0, 1 / 100)
     run = _write_run(tmp_path, t, 12.0 + 0.1 * np.sin(t), np.full(len(t), 1.0), rate_hz=100.0)
     part = run / "part-00000.parquet"
-    column = pq.read_metadata(part).row_group(0).column(4)
-    data = bytearray(part.read_bytes())
-    start = column.dictionary_page_offset or column.data_page_offset
-    for i in range(start + 40, min(start + column.total_compressed_size, len(data)) - 8, 7):
-        data[i] ^= 0x5A
-    part.write_bytes(bytes(data))
+    flip_page_bytes(part)
     for rollup in run.glob("_rollup-*.parquet"):
         rollup.unlink()
     capsys.readouterr()
@@ -301,12 +296,7 @@ def test_review_leaves_out_a_damaged_part_and_says_the_run_is_incomplete(tmp_pat
     if damage == "truncated":
         middle.write_bytes(middle.read_bytes()[:2000])
     else:
-        column = pq.read_metadata(middle).row_group(0).column(4)
-        data = bytearray(middle.read_bytes())
-        start = column.dictionary_page_offset or column.data_page_offset
-        for i in range(start + 40, min(start + column.total_compressed_size, len(data)) - 8, 7):
-            data[i] ^= 0x5A
-        middle.write_bytes(bytes(data))
+        flip_page_bytes(middle)
     s = summarize(run, full=full)
     assert s.samples == readable and len(s.skipped) == 1 and middle.name in s.skipped[0]
     capsys.readouterr()

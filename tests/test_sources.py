@@ -307,15 +307,15 @@ def test_a_busy_port_names_the_process_that_holds_it() -> None:
     master, slave = os.openpty()
     tty.setraw(slave)
     path = os.ttyname(slave)
-    holder = subprocess.Popen([sys.executable, "-c", "import serial, sys, time; port = serial.Serial(sys.argv[1], "
-                               "exclusive=True); print('open', flush=True); time.sleep(120)", path],
-                              stdout=subprocess.PIPE, text=True)
+    holder = subprocess.Popen([sys.executable, "-c", "import serial, sys; port = serial.Serial(sys.argv[1], "
+                               "exclusive=True); print('open', flush=True); sys.stdin.read()", path],
+                              stdin=subprocess.PIPE, stdout=subprocess.PIPE, text=True)  # holds it until told
     try:
         assert holder.stdout.readline().strip() == "open"
         with pytest.raises(SourceError) as info:
             SerialSource(path).open()
         assert f"port is busy; it is open in pid {holder.pid} (" in str(info.value)
-        assert "-c import serial, sys, time" in str(info.value)
+        assert "-c import serial, sys; port = serial.Serial" in str(info.value)
     finally:
         holder.kill()
         holder.wait(10)
