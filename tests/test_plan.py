@@ -230,10 +230,12 @@ def test_zener_feed_limits_of_the_chosen_resistor() -> None:
     assert feed.zener_worst_w == pytest.approx(12.0 * 0.023)
     # the regulation bound solved for the input: Vin = Vz + R (Iz,min + IL) (shunt-regulator design equations)
     assert feed.regulates_to_v == pytest.approx(12.0 + 1000.0 * 0.015)
-    assert feed.meter_runs_to_v == pytest.approx(12.0 + 1000.0 * 0.010)
-    assert zener.plan(spec, 1000.0).spec.meter_min_v is None
-    low = zener.plan(zener.ZenerSpec(35.0, 35.0, 12.0, 0.010, meter_min_v=4.5), 1000.0)
-    assert low.meter_runs_to_v == pytest.approx(14.5)
+    # below its 7 V knee the running meter is a resistor of 7 V / 10 mA = 700 ohm: it turns off at 3.3 V on
+    # its supply with 3.3 V / 700 ohm = 4.71 mA through the 1 kohm, so at 3.3 + 4.71 = 8.01 V input (Ohm's law,
+    # common practice, no source); the trade reports about 8 V for this feed (common practice, no source)
+    assert feed.meter_runs_to_v == pytest.approx(3.3 + 1000.0 * 3.3 / 700.0)
+    low = zener.plan(zener.ZenerSpec(35.0, 35.0, 12.0, 0.010, meter_min_v=4.5, meter_on_v=5.0), 1000.0)
+    assert low.meter_runs_to_v == pytest.approx(4.5 + 1000.0 * 4.5 / 700.0)
     # 276 mW is 55 % of the Zener's 0.5 W: above a 50 % derating, and said so
     assert any("55 % of its 500 mW rating" in line for line in zener.warnings(feed))
 
@@ -262,6 +264,22 @@ def test_zener_choice_is_a_preferred_value_inside_the_window() -> None:
     text = zener_report.report(feed).render()
     assert "a lower resistor keeps the meter alive to a lower input, but wastes more and runs hotter" in text
     assert "1 kohm" in text and "1.5 kohm" in text
+
+
+def test_zener_plan_says_where_the_meter_cycles_and_how_fast() -> None:
+    feed = zener.plan(zener.ZenerSpec(vin_min_v=35.0, vin_max_v=35.0, vz_v=12.0, meter_a=0.010), 1000.0)
+    cycle = feed.cycling()
+    assert cycle is not None and feed.meter_restarts_at_v < cycle.rail_v < feed.meter_runs_to_v
+    text = zener_report.report(feed).render()
+    assert "on/off cycling           between 4.54 V and 8.01 V input; at 6.28 V about 93.1 ms a cycle" in text
+    # ten times the capacitor, ten times the period: both RC times scale with C (common practice, no source)
+    slow = zener.plan(zener.ZenerSpec(35.0, 35.0, 12.0, 0.010, cap_f=1e-3), 1000.0).cycling()
+    assert slow is not None and slow.period_s == pytest.approx(10 * cycle.period_s, rel=1e-12)
+    # a small resistor leaves the meter's own hysteresis: off below its drop-out input, back above its restart
+    stiff = zener.plan(zener.ZenerSpec(35.0, 35.0, 12.0, 0.010, meter_on_v=6.0), 100.0)
+    assert stiff.cycling() is None and stiff.meter_runs_to_v < stiff.meter_restarts_at_v
+    assert "on/off cycling           none: once off below 3.77 V input it stays off until the input is back above " \
+           "6.01 V" in zener_report.report(stiff).render()
 
 
 def test_zener_requests_that_cannot_work() -> None:
@@ -308,9 +326,9 @@ def test_shunt_and_zener_commands_write_rig_lines_that_read_back(capsys) -> None
     amps = parse_rig('name = "t"\n' + capsys.readouterr().out).channel("rail_a")
     assert amps.shunt_ohm == pytest.approx(0.0015) and amps.gain == 20.0 and amps.high == 40.0
     assert _run(["plan", "zener", "--vin-min", "24", "--vin-max", "35", "--vz", "12", "--meter-a", "10m",
-                 "--meter-min-v", "4.5", "--rig-only"]) == 0
+                 "--meter-min-v", "4", "--rig-only"]) == 0
     node = parse_rig('name = "t"\n' + capsys.readouterr().out).channel("meter_v")
-    assert node.role == "aux" and node.nominal == 12.0 and node.low == 4.5 and node.divider > 35.0 / 3.3
+    assert node.role == "aux" and node.nominal == 12.0 and node.low == 4.0 and node.divider > 35.0 / 3.3
     assert _run(["plan", "zener", "--vin-min", "35", "--vin-max", "35", "--vz", "12", "--meter-a", "10m",
                  "--resistor-ohm", "1k"]) == 0
     out = capsys.readouterr().out
@@ -329,6 +347,10 @@ def test_shunt_and_zener_commands_write_rig_lines_that_read_back(capsys) -> None
     (["plan", "divider", "--max-v", "48", "--input", "9"], "--input: expected"),
     (["plan", "shunt", "--rated-mv", "75"], "--rated-mv needs --rated-a"),
     (["plan", "zener", "--vin-min", "10", "--vin-max", "35", "--vz", "12", "--meter-a", "10m"], "--vz: "),
+    (["plan", "zener", "--vin-min", "24", "--vin-max", "35", "--vz", "12", "--meter-a", "10m", "--meter-min-v", "5"],
+     "--meter-on-v: a meter restarts above the supply it turns off at (5 V, --meter-min-v), not at 4.5 V"),
+    (["plan", "zener", "--vin-min", "24", "--vin-max", "35", "--vz", "12", "--meter-a", "10m", "--cap-f", "lots"],
+     "--cap-f: 'lots' is not a value in farads"),
 ])
 def test_command_errors_are_one_line(argv: list[str], start: str) -> None:
     with pytest.raises(PlanError) as info:

@@ -14,6 +14,7 @@ from hypothesis import strategies as st
 from scipy.integrate import solve_ivp
 
 from logger.cal.apply import Calibrator
+from logger.plan import zener
 from logger.rig import parse_rig
 from logger.sim import MeterCircuit, MeterNode, ScenarioError, load_scenario, scenario_names
 from logger.sim.battery import Battery
@@ -133,6 +134,7 @@ def test_flicker_period_agrees_with_rc_charge_and_discharge_times(rail_v: float)
     period, switches = simulated_period(c, rail_v, 10.0)
     assert switches > 10
     assert period == pytest.approx(flicker_period(c, rail_v), rel=1e-9)
+    assert c.cycle(rail_v).period_s == pytest.approx(flicker_period(c, rail_v), rel=1e-12)  # the planner's figure
 
 
 def test_bigger_capacitor_flickers_slower_but_still_flickers() -> None:
@@ -158,6 +160,46 @@ def test_default_meter_drops_out_near_8_volts_like_the_trade_rule() -> None:
     first_off = next(s for s in node.switches if not s.on)
     assert c.dropout_rail_v() == pytest.approx(8.01, abs=0.01)  # steady-state figure
     assert 7.5 < first_off.rail_v < 8.5  # what the falling rail shows: 7.99 V
+
+
+def first_switch(c: MeterCircuit, rail_from: float, rail_to: float, on: bool) -> float:
+    """The rail at the simulated meter's first switch to ``on`` while the rail ramps slowly, at 0.1 V/s."""
+    seconds = abs(rail_to - rail_from) * 10.0
+    t = np.arange(0, int(seconds * RATE_HZ)) / RATE_HZ
+    node = MeterNode(c)
+    node.start(0.0, rail_from, c.equilibrium(rail_from, not on), not on)
+    node.advance(t, np.interp(t, [0.0, seconds], [rail_from, rail_to]))
+    return next(s.rail_v for s in node.switches if s.on is on)
+
+
+@pytest.mark.parametrize(("vz_v", "r_ohm", "spec_kw"), [
+    (12.0, 1000.0, {}),  # the trade's feed: 35 V, 1 kohm, 12 V Zener, a 10 mA meter
+    (5.1, 820.0, {"cap_f": 1e-3, "meter_min_v": 3.0}),  # the knee above the Zener: always in drop-out
+    (12.0, 1500.0, {"meter_knee_v": 4.0, "meter_on_v": 6.0}),  # the cycle passes the knee
+])
+def test_the_plan_predicts_what_the_simulated_meter_does(vz_v: float, r_ohm: float, spec_kw: dict) -> None:
+    """One meter model: where ``plan zener`` says the meter drops out, restarts and how fast it cycles is what
+    the simulator, stepping the same circuit in time, then shows."""
+    feed = zener.plan(zener.ZenerSpec(vin_min_v=35.0, vin_max_v=35.0, vz_v=vz_v, meter_a=0.010, **spec_kw), r_ohm)
+    c = feed.circuit
+    # a first-order system following a ramp lags it by rate x tau (common practice, no source): at 0.1 V/s
+    # the switch comes that much past the steady figure, and no further
+    for on, steady_v, node_v in ((False, feed.meter_runs_to_v, c.off_v), (True, feed.meter_restarts_at_v, c.on_v)):
+        lag_v = 0.1 * c.thevenin(not on, c.segment(node_v), steady_v)[1]
+        seen_v = first_switch(c, 2.0, 20.0, on) if on else first_switch(c, 20.0, 2.0, on)
+        assert (seen_v - steady_v) * (1 if on else -1) == pytest.approx(lag_v, abs=0.2 * lag_v + 2e-3)
+    cycle = feed.cycling()
+    assert cycle is not None
+    period, switches = simulated_period(c, cycle.rail_v, 40 * cycle.period_s)
+    assert switches > 20 and period == pytest.approx(cycle.period_s, rel=1e-9)
+
+
+def test_the_trade_figure_for_the_default_feed_is_the_plans() -> None:
+    # Trade rule (common practice, no source): 35 V through 1 kOhm into a 12 V Zener, a meter of about
+    # 10 mA keeps running down to roughly 8 V input.
+    feed = zener.plan(zener.ZenerSpec(vin_min_v=35.0, vin_max_v=35.0, vz_v=12.0, meter_a=0.010), 1000.0)
+    assert feed.circuit == MeterCircuit()  # the simulator's default meter is the planner's
+    assert 7.5 < feed.meter_runs_to_v < 8.5
 
 
 @given(st.lists(st.integers(1, 2999), max_size=6))

@@ -10,6 +10,7 @@ from __future__ import annotations
 import argparse
 import re
 
+from logger.panel_meter import MeterCircuit
 from logger.plan import divider, series, shunt, zener, zener_report
 from logger.plan.report import Report
 from logger.plan.values import PlanError, format_value, parse_value, positive
@@ -94,8 +95,16 @@ def _zener_parser(actions: argparse._SubParsersAction) -> None:
                    help="least Zener current that still regulates, amps (default 5m)")
     p.add_argument("--meter-off-a", default="0", metavar="A",
                    help="least the meter draws, amps (default 0: unplugged or switched off, the worst case)")
-    p.add_argument("--meter-min-v", metavar="V", help="lowest supply the meter still runs at, volts "
-                                                      "(default: the Zener voltage)")
+    p.add_argument("--meter-min-v", default=f"{MeterCircuit.off_v:g}", metavar="V",
+                   help=f"supply at which the meter turns off, volts (default {MeterCircuit.off_v:g})")
+    p.add_argument("--meter-on-v", default=f"{MeterCircuit.on_v:g}", metavar="V",
+                   help=f"supply at which a switched-off meter starts again, volts (default {MeterCircuit.on_v:g})")
+    p.add_argument("--meter-knee-v", default=f"{MeterCircuit.knee_v:g}", metavar="V",
+                   help="supply below which the meter's regulator drops out and its draw falls with it, volts "
+                        f"(default {MeterCircuit.knee_v:g})")
+    p.add_argument("--cap-f", default=f"{MeterCircuit.cap_f * 1e6:g}u", metavar="F",
+                   help=f"capacitor across the Zener, farads (default {MeterCircuit.cap_f * 1e6:g}u); it sets how "
+                        "fast the meter cycles on and off near drop-out")
     _series_option(p, "E12")
     p.add_argument("--resistor-ohm", metavar="OHM", help="check this series resistor instead of choosing one")
     p.add_argument("--resistor-w", metavar="W", help="the series resistor's power rating, watts")
@@ -232,7 +241,11 @@ def run_zener(args: argparse.Namespace) -> int:
         vz_v=_value(args, "vz", "V", "a Zener voltage"), meter_a=_value(args, "meter_a", "A", "a current"),
         pz_w=_value(args, "pz_w", "W", "a power rating"), iz_min_a=_value(args, "iz_min_a", "A", "a current"),
         meter_off_a=parse_value(args.meter_off_a, "A", "--meter-off-a"),
-        meter_min_v=_value(args, "meter_min_v", "V", "a voltage"), series=series.series_name(args.series),
+        meter_min_v=_value(args, "meter_min_v", "V", "a voltage"),
+        meter_on_v=_value(args, "meter_on_v", "V", "a voltage"),
+        meter_knee_v=_value(args, "meter_knee_v", "V", "a voltage"),
+        cap_f=_value(args, "cap_f", "F", "a capacitance"),
+        series=series.series_name(args.series),
         derate=_fraction(args, "derate_pct", 1, 100), resistor_w=_value(args, "resistor_w", "W", "a power rating"))
     if spec.meter_off_a < 0:
         raise PlanError("--meter-off-a: expected a current of zero or more")

@@ -23,12 +23,14 @@ _NUMBER = re.compile(r"([+-]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?)\s*([pnuµμmk
 _RKM = re.compile(r"(\d+)([RrkKM])(\d*)")
 """Resistor code with the multiplier as the decimal point (IEC 60062 style): 4k7, 0R1, 1M5, 10R."""
 
-UNIT_WORDS = {"ohm": "ohms", "V": "volts", "A": "amps", "W": "watts", "%": "percent", "x": "plain numbers"}
+UNIT_WORDS = {"ohm": "ohms", "V": "volts", "A": "amps", "W": "watts", "%": "percent", "x": "plain numbers",
+              "F": "farads"}
 _SUFFIXES = {
     "ohm": ("ohms", "ohm", "Ω", "Ω"),
     "V": ("V", "v"),
     "A": ("A", "a"),
     "W": ("W", "w"),
+    "F": ("F", "f"),
     "%": ("%",),
     "x": ("x", "X"),
 }
@@ -40,12 +42,12 @@ def parse_value(text: str, unit: str, option: str) -> float:
 
     Args:
         text: what the user typed.
-        unit: the quantity's unit (``ohm``, ``V``, ``A``, ``W``; ``%`` or ``x`` for plain numbers, which take
+        unit: the quantity's unit (``ohm``, ``V``, ``A``, ``W``, ``F``; ``%`` or ``x`` for plain numbers, which take
             no prefix); typing it is optional.
         option: the command-line option, named in the error.
 
     Returns:
-        The value in base units (ohms, volts, amps, watts; percent as typed).
+        The value in base units (ohms, volts, amps, watts, farads; percent as typed).
 
     Raises:
         PlanError: the text is not a number in that unit.
@@ -65,7 +67,7 @@ def parse_value(text: str, unit: str, option: str) -> float:
     match = _NUMBER.fullmatch(body)
     if match is None or (plain and match.group(2)):
         example = {"ohm": "4.7k, 4k7 or 0.01", "V": "48, 3.3 or 500m", "A": "5, 100m or 250u",
-                   "W": "0.25 or 500m", "%": "5", "x": "50"}[unit]
+                   "W": "0.25 or 500m", "F": "100u or 1m", "%": "5", "x": "50"}[unit]
         kind = "a plain number" if unit == "x" else f"a value in {UNIT_WORDS[unit]}"
         raise PlanError(f"{option}: {text!r} is not {kind}; give a number such as {example}")
     mantissa, _, power = match.group(1).lower().partition("e")

@@ -19,6 +19,10 @@ design equations):
 
 The resistor dissipates (Vin,max - Vz)^2 / R at the highest input whatever the meter does. Between the limits
 lies the trade-off: a lower resistor keeps the meter alive to a lower input but wastes more and runs hotter.
+
+How low the meter runs, where it restarts and how fast it cycles on and off in between come from the meter
+model the simulator steps too (:class:`~logger.panel_meter.MeterCircuit`), so the plan predicts what a
+simulated rig then shows.
 """
 
 from __future__ import annotations
@@ -28,6 +32,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from logger.panel_meter import Cycle, MeterCircuit
 from logger.plan import series
 from logger.plan.values import PlanError, exceeds, format_value
 
@@ -48,8 +53,14 @@ class ZenerSpec:
     iz_min_a: float = 5e-3
     meter_off_a: float = 0.0
     """The least the meter draws (IL,min): 0 when it can be unplugged or switched off, the worst case."""
-    meter_min_v: float | None = None
-    """The lowest supply at which the meter still runs; ``None`` means it needs the full Zener voltage."""
+    meter_min_v: float = MeterCircuit.off_v
+    """The meter's supply at which it turns off (its undervoltage lockout)."""
+    meter_on_v: float = MeterCircuit.on_v
+    """The meter's supply at which a switched-off meter starts again."""
+    meter_knee_v: float = MeterCircuit.knee_v
+    """The meter's supply below which its regulator drops out and its draw falls with the supply."""
+    cap_f: float = MeterCircuit.cap_f
+    """The capacitor across the Zener: it sets how fast the meter cycles on and off near drop-out."""
     series: str = "E12"
     derate: float = 0.5
     resistor_w: float | None = None
@@ -68,8 +79,16 @@ def check(spec: ZenerSpec) -> None:
     if s.meter_off_a > s.meter_a:
         raise PlanError(f"--meter-off-a: {format_value(s.meter_off_a, 'A')} is more than the running meter's "
                         f"{format_value(s.meter_a, 'A')} (--meter-a); give the least it draws")
-    if s.meter_min_v is not None and s.meter_min_v > s.vz_v:
+    if s.meter_min_v > s.vz_v:
         raise PlanError(f"--meter-min-v: a meter that needs {format_value(s.meter_min_v, 'V')} never runs on a "
+                        f"{format_value(s.vz_v, 'V')} Zener (--vz); pick a higher Zener voltage")
+    if not s.meter_min_v < s.meter_on_v:
+        raise PlanError(f"--meter-on-v: a meter restarts above the supply it turns off at "
+                        f"({format_value(s.meter_min_v, 'V')}, --meter-min-v), not at "
+                        f"{format_value(s.meter_on_v, 'V')}; "
+                        "give the restart voltage from its datasheet or a test, or a lower --meter-min-v")
+    if s.meter_on_v > s.vz_v:
+        raise PlanError(f"--meter-on-v: a meter that restarts at {format_value(s.meter_on_v, 'V')} never starts on a "
                         f"{format_value(s.vz_v, 'V')} Zener (--vz); pick a higher Zener voltage")
 
 
@@ -177,10 +196,26 @@ class Feed:
         return self.spec.vz_v + self.r_ohm * (self.spec.iz_min_a + self.spec.meter_a)
 
     @property
+    def circuit(self) -> MeterCircuit:
+        """The meter on this feed, as the simulator models it."""
+        s = self.spec
+        return MeterCircuit(series_ohm=self.r_ohm, cap_f=s.cap_f, zener_v=s.vz_v, run_a=s.meter_a,
+                            knee_v=s.meter_knee_v, off_v=s.meter_min_v, on_v=s.meter_on_v)
+
+    @property
     def meter_runs_to_v(self) -> float:
-        """Lowest input at which the meter still gets its lowest supply, taking its current as constant."""
-        floor_v = self.spec.meter_min_v if self.spec.meter_min_v is not None else self.spec.vz_v
-        return floor_v + self.r_ohm * self.spec.meter_a
+        """Lowest steady input at which a running meter stays on, its draw falling as its supply sags."""
+        return self.circuit.dropout_rail_v()
+
+    @property
+    def meter_restarts_at_v(self) -> float:
+        """Steady input above which a switched-off meter starts again."""
+        return self.circuit.restart_rail_v()
+
+    def cycling(self) -> Cycle | None:
+        """The meter's on/off cycle in the middle of the inputs where it cycles, or ``None`` if it never does."""
+        low, high = self.meter_restarts_at_v, self.meter_runs_to_v
+        return self.circuit.cycle(0.5 * (low + high)) if low < high else None
 
 
 def plan(spec: ZenerSpec, r_ohm: float | None = None) -> Feed:

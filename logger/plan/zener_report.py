@@ -75,9 +75,26 @@ def _choice(rep: Report, feed: Feed) -> None:
             f"{format_value(feed.zener_worst_w, 'W')} meter {_least(s)} ({100 * feed.zener_worst_w / s.pz_w:.0f} % "
             f"of rating), {format_value(feed.zener_running_w, 'W')} meter running")
     rep.row("regulates down to", f"{format_value(feed.regulates_to_v, 'V')} input")
-    floor = (f"meter at {format_value(s.meter_min_v, 'V')}" if s.meter_min_v is not None
-             else "meter needing the full Zener voltage; --meter-min-v gives its real floor")
-    rep.row("meter runs down to", f"{format_value(feed.meter_runs_to_v, 'V')} input ({floor})")
+    rep.row("meter runs down to", f"{format_value(feed.meter_runs_to_v, 'V')} input (it turns off when its supply "
+                                  f"falls to {format_value(s.meter_min_v, 'V')}; below "
+                                  f"{format_value(s.meter_knee_v, 'V')} its draw falls with its supply)")
+    rep.row("restarts above", f"{format_value(feed.meter_restarts_at_v, 'V')} input (its supply back at "
+                              f"{format_value(s.meter_on_v, 'V')})")
+    _cycling(rep, feed)
+
+
+def _cycling(rep: Report, feed: Feed) -> None:
+    """The row for the meter's on/off cycling between its restart and its drop-out inputs."""
+    low, high, cycle = format_value(feed.meter_restarts_at_v, "V"), format_value(feed.meter_runs_to_v, "V"), \
+        feed.cycling()
+    if cycle is None:
+        rep.row("on/off cycling", f"none: once off below {high} input it stays off until the input is back above "
+                                  f"{low}")
+        return
+    rep.row("on/off cycling", f"between {low} and {high} input; at {format_value(cycle.rail_v, 'V')} about "
+                              f"{format_value(cycle.period_s, 's')} a cycle ({format_value(cycle.on_s, 's')} on, "
+                              f"{format_value(cycle.off_s, 's')} off, with {format_value(feed.spec.cap_f, 'F')} "
+                              "across the Zener); a bigger capacitor (--cap-f) slows it but cannot stop it")
 
 
 def _trade_off(rep: Report, feed: Feed) -> None:
@@ -110,10 +127,7 @@ def _rig_lines(rep: Report, feed: Feed, name: str, input_index: int, vref_v: flo
     else:
         rep.rig_line("divider", "1.0", "the rail fits the ADC's range without a divider")
     rep.rig_line("nominal", toml_float(s.vz_v), "the Zener voltage: where the node sits while it regulates")
-    if s.meter_min_v is not None:
-        rep.rig_line("low", toml_float(s.meter_min_v), "the meter's lowest supply: a dip below it restarts it")
-    else:
-        rep.rig_comment("low = ...                      # the meter's lowest supply (give --meter-min-v)")
+    rep.rig_line("low", toml_float(s.meter_min_v), "the meter's lowest supply: a dip below it restarts it")
     rep.rig_comment(f"the Zener stops regulating below {format_value(feed.regulates_to_v, 'V')} on the rail; "
                     f"low = {toml_float(feed.regulates_to_v, 4)} on the rail's channel would mark it")
     device_comment(rep, bits, vref_v)

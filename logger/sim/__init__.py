@@ -4,8 +4,9 @@
 electronic load, a self-powered meter, a real ADC) and the ground truth of what they did.
 """
 
+from logger.panel_meter import MeterCircuit
 from logger.sim.device import LinkFaults, LinkTruth, RigModel, SimDevice
-from logger.sim.meter import MeterCircuit, MeterNode, Switch
+from logger.sim.meter import MeterNode, Switch
 from logger.sim.model import PhysicalRig
 from logger.sim.scenario import Scenario, load_scenario, scenario_names
 from logger.sim.simple import DEFAULT_SCRIPT, ScriptedFault, SimpleRail

@@ -1,24 +1,7 @@
-"""A panel meter powered from the rail it watches, through a series resistor and a Zener diode.
+"""The simulated panel meter in time: its supply node stepped sample by sample through the circuit of
+:class:`~logger.panel_meter.MeterCircuit` (the model the planner uses too).
 
-::
-
-    rail ──[ series_ohm ]──┬── node ──┬─────────┬──────────┐
-                           │          │         │          │
-                         cap_f     Zener    meter (regulator + display, with undervoltage lockout)
-                           │          │         │          │
-    0 V ───────────────────┴──────────┴─────────┴──────────┘
-
-The meter's supply current is that of a linear regulator and display: about ``run_a`` while the node is
-above the regulator's drop-out (``knee_v``), and below it, with the regulator passing its input through,
-falling in proportion to the voltage towards zero. The meter shuts off when the node falls below
-``off_v`` and restarts only above ``on_v`` (undervoltage lockout with hysteresis); switched off it draws a
-small leakage through ``off_ohm``. When the rail is so low that the running meter pulls the node below
-``off_v`` but the idle meter lets it charge above ``on_v``, it switches on and off for as long as the rail
-stays there: the flicker a self-powered meter shows near drop-out. A bigger capacitor slows the cycle but
-cannot stop it.
-
-Every current draw is piecewise linear in the node voltage (segments split at ``knee_v`` and ``zener_v``),
-so within a segment and a meter state the node is a first-order RC circuit: ``dV/dt = (V_th - V) / tau``
+Within a segment and a meter state the node is a first-order RC circuit: ``dV/dt = (V_th - V) / tau``
 with ``V_th`` linear in the rail voltage. :class:`MeterNode` steps it exactly: over each sample interval
 the rail is taken as a straight line (first-order hold) and the linear ODE is solved in closed form, an
 exponential integrator that is stable at any step. Runs of samples in one segment are a first-order IIR
@@ -36,93 +19,14 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from logger.panel_meter import MeterCircuit
+
 _MIN_WINDOW = 256
 _MAX_WINDOW = 8192
 _MAX_CROSSINGS = 16
 _BISECTIONS = 52
 _STEP_RTOL = 1e-9
 """Sample intervals within this relative difference share one set of filter coefficients."""
-
-
-@dataclass(frozen=True)
-class MeterCircuit:
-    """Values of the meter's feed and of the meter itself.
-
-    The defaults are a trade rule of thumb for a meter on a rail of up to about 35 V: 1 kOhm into a 12 V
-    Zener, a meter drawing about 10 mA (values invented for a typical cheap meter, not a datasheet).
-    """
-
-    series_ohm: float = 1000.0
-    cap_f: float = 100e-6
-    zener_v: float = 12.0
-    zener_ohm: float = 10.0
-    """Dynamic resistance of the Zener above its voltage."""
-    run_a: float = 0.010
-    knee_v: float = 7.0
-    """Node voltage below which the meter's regulator is in drop-out and its current falls."""
-    off_v: float = 3.3
-    on_v: float = 4.5
-    off_ohm: float = 100e3
-    """Leakage of the switched-off meter (``inf``: none)."""
-
-    def __post_init__(self) -> None:
-        positive = (self.series_ohm, self.cap_f, self.zener_v, self.zener_ohm, self.run_a, self.knee_v,
-                    self.off_v, self.off_ohm)
-        if not all(v > 0 for v in positive):
-            raise ValueError("meter circuit values must all be positive")
-        if not self.off_v < self.on_v:
-            raise ValueError(f"restart voltage on_v ({self.on_v}) must be above drop-out off_v ({self.off_v})")
-        if not self.knee_v < self.zener_v:
-            raise ValueError(f"knee_v ({self.knee_v}) must be below zener_v ({self.zener_v})")
-
-    @property
-    def breakpoints(self) -> tuple[float, float]:
-        """Node voltages where the current draw changes slope: the knee and the Zener."""
-        return (self.knee_v, self.zener_v)
-
-    def segment(self, node_v: float) -> int:
-        """Which linear segment a node voltage is in: 0 below the knee, 1 up to the Zener, 2 above."""
-        return int(np.searchsorted(self.breakpoints, node_v, side="right"))
-
-    def linear(self, on: bool, k: int) -> tuple[float, float]:
-        """Current drawn from the node in segment ``k`` as ``g * V + i0``: returns ``(g, i0)``."""
-        if on:
-            g, i0 = (self.run_a / self.knee_v, 0.0) if k == 0 else (0.0, self.run_a)
-        else:
-            g, i0 = 1.0 / self.off_ohm, 0.0
-        if k == 2:
-            g, i0 = g + 1.0 / self.zener_ohm, i0 - self.zener_v / self.zener_ohm
-        return g, i0
-
-    def thevenin(self, on: bool, k: int, rail_v: float) -> tuple[float, float]:
-        """Where the node heads in segment ``k`` and how fast: ``(V_th, tau_s)`` for a given rail voltage."""
-        g, i0 = self.linear(on, k)
-        conductance = 1.0 / self.series_ohm + g
-        return (rail_v / self.series_ohm - i0) / conductance, self.cap_f / conductance
-
-    def draw_a(self, node_v: np.ndarray, on: bool) -> np.ndarray:
-        """Current taken from the node by the meter and the Zener (vectorised; for checks and plots)."""
-        v = np.asarray(node_v, dtype=np.float64)
-        meter = self.run_a * np.minimum(v / self.knee_v, 1.0) if on else v / self.off_ohm
-        return meter + np.maximum(v - self.zener_v, 0.0) / self.zener_ohm
-
-    def equilibrium(self, rail_v: float, on: bool) -> float:
-        """Steady node voltage for a steady rail with the meter held in one state."""
-        for k in range(3):
-            v, _ = self.thevenin(on, k, rail_v)
-            if self.segment(v) == k:
-                return v
-        raise AssertionError("a continuous piecewise-linear draw always has an equilibrium")
-
-    def dropout_rail_v(self) -> float:
-        """Lowest steady rail voltage at which a running meter stays on (its node rests at ``off_v``)."""
-        g, i0 = self.linear(True, self.segment(self.off_v))
-        return self.off_v + self.series_ohm * (g * self.off_v + i0)
-
-    def restart_rail_v(self) -> float:
-        """Lowest steady rail voltage at which a switched-off meter restarts (its node reaches ``on_v``)."""
-        g, i0 = self.linear(False, self.segment(self.on_v))
-        return self.on_v + self.series_ohm * (g * self.on_v + i0)
 
 
 @dataclass(frozen=True)

@@ -12,9 +12,10 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from logger.panel_meter import MeterCircuit
 from logger.rig import Channel, Rig
 from logger.sim.adc import Adc, AdcSpec
-from logger.sim.meter import MeterCircuit, MeterNode, Switch
+from logger.sim.meter import MeterNode, Switch
 from logger.sim.rail import Rail, RailSpec
 
 

@@ -21,10 +21,10 @@ from collections.abc import Callable
 from dataclasses import replace
 from typing import Any, TypeVar
 
+from logger.panel_meter import MeterCircuit
 from logger.sim.adc import AdcSpec
 from logger.sim.battery import Battery
 from logger.sim.load import LoadSchedule, LoadStep
-from logger.sim.meter import MeterCircuit
 from logger.sim.model import MeterSpec, Physics
 from logger.sim.rail import RailSpec
 from logger.sim.supply import Fault, RegulatedSupply, check_faults
