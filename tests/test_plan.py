@@ -278,6 +278,9 @@ def test_zener_plan_says_where_the_meter_cycles_and_how_fast() -> None:
     # a small resistor leaves the meter's own hysteresis: off below its drop-out input, back above its restart
     stiff = zener.plan(zener.ZenerSpec(35.0, 35.0, 12.0, 0.010, meter_on_v=6.0), 100.0)
     assert stiff.cycling() is None and stiff.meter_runs_to_v < stiff.meter_restarts_at_v
+    # below its knee the meter draws in proportion to its supply: 10 mA x 5.1 / 7 = 7.29 mA on a 5.1 V Zener
+    low_zener = zener.plan(zener.ZenerSpec(24.0, 35.0, 5.1, 0.010), 820.0)
+    assert "it draws about 7.29 mA there, not --meter-a" in zener_report.report(low_zener).render()
     assert "on/off cycling           none: once off below 3.77 V input it stays off until the input is back above " \
            "6.01 V" in zener_report.report(stiff).render()
 

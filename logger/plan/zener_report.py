@@ -81,6 +81,11 @@ def _choice(rep: Report, feed: Feed) -> None:
     rep.row("restarts above", f"{format_value(feed.meter_restarts_at_v, 'V')} input (its supply back at "
                               f"{format_value(s.meter_on_v, 'V')})")
     _cycling(rep, feed)
+    if s.meter_knee_v > s.vz_v:
+        rep.notes.append(f"the meter's regulator drops out below {format_value(s.meter_knee_v, 'V')} "
+                         f"(--meter-knee-v), above the {format_value(s.vz_v, 'V')} Zener: it draws about "
+                         f"{format_value(s.meter_a * s.vz_v / s.meter_knee_v, 'A')} there, not --meter-a; the "
+                         "resistor limits above take --meter-a, the safe side")
 
 
 def _cycling(rep: Report, feed: Feed) -> None:
