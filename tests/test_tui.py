@@ -650,16 +650,17 @@ def test_a_flicker_episode_is_one_row_in_the_live_list() -> None:
     asyncio.run(run())
 
 
-def test_f_filters_the_event_list_to_faults_then_to_the_trends_channel() -> None:
+def test_f_filters_the_event_list_by_kind_and_shift_f_by_the_trends_channel() -> None:
     from dataclasses import replace
 
     from logger.events.model import Event
 
     fake = FakePipeline(SCENARIO.rig, [12.0, 2.0, 7.3], [11.9, 0.5, 7.2], [12.1, 3.5, 7.4])
     t0 = 1_800_000_000_000_000
-    events = (Event("mark", t0 + 3_000_000, detail="a note", id=4),
-              Event("brownout", t0 + 2_000_000, end_us=t0 + 2_100_000, channel="meter_v", detail="m", id=3),
-              Event("link_lost", t0 + 1_000_000, end_us=t0 + 1_500_000, detail="unplugged", id=2),
+    events = (Event("mark", t0 + 3_000_000, detail="a note", id=5),
+              Event("brownout", t0 + 2_000_000, end_us=t0 + 2_100_000, channel="meter_v", detail="m", id=4),
+              Event("link_lost", t0 + 1_000_000, end_us=t0 + 1_500_000, detail="unplugged", id=3),
+              Event("brownout", t0 + 500_000, end_us=t0 + 600_000, channel="out_v", detail="b", id=2),
               Event("dropout", t0, end_us=t0 + 100_000, channel="out_v", detail="d", id=1))
     fake._snap = replace(fake._snap, events=events)
 
@@ -671,15 +672,27 @@ def test_f_filters_the_event_list_to_faults_then_to_the_trends_channel() -> None
             def kinds() -> list[str]:
                 return [str(table.get_row_at(k)[0]) for k in range(table.row_count)]
 
-            await _until(pilot, lambda: table.row_count == 4, 30.0)
-            await _key(app, pilot, "f")
-            await _until(pilot, lambda: kinds() == ["brownout", "dropout"], 30.0)
-            assert "showing faults (f: more)" in str(table.border_title)
-            await _key(app, pilot, "f")  # the trend shows out_v
-            await _until(pilot, lambda: kinds() == ["dropout"], 30.0)
-            assert "showing faults on out_v" in str(table.border_title)
-            await _key(app, pilot, "f")
-            await _until(pilot, lambda: table.row_count == 4, 30.0)
+            await _until(pilot, lambda: table.row_count == 5, 30.0)
+            steps = [(["brownout", "brownout", "dropout"], "showing faults (f kind, F channel)"),
+                     (["dropout"], "showing dropout"),  # then each kind seen, faults first
+                     (["brownout", "brownout"], "showing brownout"),
+                     (["link_lost"], "showing link_lost"),
+                     (["mark"], "showing mark")]
+            for rows, title in steps:
+                await _key(app, pilot, "f")
+                await _until(pilot, lambda rows=rows: kinds() == rows, 30.0)
+                assert title in str(table.border_title)
+            await _key(app, pilot, "f")  # round to every event again
+            await _until(pilot, lambda: table.row_count == 5, 30.0)
+            for _ in range(3):
+                await _key(app, pilot, "f")  # brownouts
+            await _key(app, pilot, "F")  # ... on the trend's channel, out_v
+            await _until(pilot, lambda: table.row_count == 1 and table.channel == "out_v", 30.0)
+            assert "showing brownout on out_v" in str(table.border_title)
+            await _key(app, pilot, "c")  # the filter follows the trend to its next channel
+            await _until(pilot, lambda: table.channel != "out_v", 30.0)
+            await _key(app, pilot, "F")
+            await _until(pilot, lambda: table.channel is None and table.row_count == 2, 30.0)
             await _key(app, pilot, "q")
             await _until(pilot, lambda: app.return_value is not None, 30.0)
 

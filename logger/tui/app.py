@@ -28,7 +28,7 @@ from logger.ingest.stream import ZERO_MOMENT_S
 from logger.tui.banner import Banner
 from logger.tui.calpanel import CalPanel
 from logger.tui.channels import shown_channels
-from logger.tui.events_table import ALERT_KINDS, EventDetail, EventTable
+from logger.tui.events_table import EventDetail, EventTable
 from logger.tui.history import TrendHistory
 from logger.tui.mark import MarkInput
 from logger.tui.messages import MarkNote, RunSealed
@@ -67,6 +67,7 @@ class RailtapApp(App[str]):
         Binding("c", "channel", "channel"),
         Binding("b", "bell", "bell"),
         Binding("f", "filter", "filter"),
+        Binding("F", "filter_channel", "channel only", show=False),
         Binding("z", "zero", "zero"),
         Binding("w", "record", "record"),
         Binding("k", "calibrate", "cal"),
@@ -173,19 +174,35 @@ class RailtapApp(App[str]):
         self.query_one(Trend).next_span()
 
     def action_channel(self) -> None:
+        """The trend's next channel; an event list limited to a channel follows it."""
         self.query_one(Trend).next_channel()
+        table = self.query_one(EventTable)
+        if table.channel is not None:
+            self._filter(table.kinds, self._trend_channel())
 
     def action_filter(self) -> None:
-        """The event list: every event, then faults only, then faults on the channel the trend shows."""
+        """The event list by kind: every event, then faults, then each kind seen so far in turn."""
         table = self.query_one(EventTable)
+        self._filter(table.next_kinds(), table.channel)
+
+    def action_filter_channel(self) -> None:
+        """The event list limited to the channel the trend shows (``c`` picks it), or to every channel again."""
+        table = self.query_one(EventTable)
+        channel = self._trend_channel() if table.channel is None else None
+        if table.channel is None and channel is None:
+            self.notify("the trend shows a computed figure, not a channel: press c for a channel", timeout=3)
+            return
+        self._filter(table.kinds, channel)
+
+    def _trend_channel(self) -> str | None:
+        """The rig channel the trend shows, or None for a figure computed from two (power)."""
         trend = self.query_one(Trend)
-        channel = trend.history.shown.names[trend.channel]
-        if table.kinds is None:
-            table.set_filter(ALERT_KINDS, None)
-        elif table.channel is None and channel in [ch.name for ch in self.pipeline.rig.channels]:
-            table.set_filter(ALERT_KINDS, channel)
-        else:
-            table.set_filter(None, None)
+        name = trend.history.shown.names[trend.channel]
+        return name if name in [ch.name for ch in self.pipeline.rig.channels] else None
+
+    def _filter(self, kinds: tuple[str, ...] | None, channel: str | None) -> None:
+        table = self.query_one(EventTable)
+        table.set_filter(kinds, channel)
         self.query_one(EventDetail).show(table.selected())
 
     def action_zero(self) -> None:

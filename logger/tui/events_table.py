@@ -11,12 +11,16 @@ from textual.binding import Binding, BindingType
 from textual.widgets import DataTable, Static
 
 from logger.events.model import Event
+from logger.tui.banner import FAULT_KINDS
 from logger.tui.fmt import duration_text, event_details, local_time
 
 ALERT_KINDS = ("brownout", "dropout", "overvoltage", "overcurrent", "flicker")
 LINK_KINDS = ("frame_gap", "crc_burst", "link_lost", "device_reset")
 QUALITY_KINDS = ("outside_cal",)
 DIPS = ("brownout", "dropout")
+KIND_ORDER = (*FAULT_KINDS, *LINK_KINDS, *QUALITY_KINDS, "mark")
+"""The order the kind filter steps through the kinds it has seen: worst first, as the banner ranks them
+(others follow by name)."""
 
 
 class EventTable(DataTable):
@@ -100,6 +104,14 @@ class EventTable(DataTable):
             self._show(key, self._events[key])
         self._settle(held)
 
+    def next_kinds(self) -> tuple[str, ...] | None:
+        """The kind filter after this one: every kind, then faults, then each kind among the events kept."""
+        seen = sorted({e.kind for e in self._events.values()},
+                      key=lambda k: (KIND_ORDER.index(k) if k in KIND_ORDER else len(KIND_ORDER), k))
+        steps: list[tuple[str, ...] | None] = [None, ALERT_KINDS, *((kind,) for kind in seen)]
+        at = steps.index(self.kinds) if self.kinds in steps else -1
+        return steps[(at + 1) % len(steps)]
+
     def _wanted(self, event: Event) -> bool:
         return (self.kinds is None or event.kind in self.kinds) and (self.channel is None
                                                                       or event.channel == self.channel)
@@ -123,8 +135,8 @@ class EventTable(DataTable):
         folded = f", {self.folded:,} dips inside flicker episodes" if self.folded else ""
         only = ""
         if self.kinds is not None or self.channel is not None:
-            only = f"; showing {'faults' if self.kinds is not None else 'all'}" + (
-                f" on {self.channel}" if self.channel else "") + " (f: more)"
+            what = "all" if self.kinds is None else "faults" if self.kinds == ALERT_KINDS else self.kinds[0]
+            only = f"; showing {what}" + (f" on {self.channel}" if self.channel else "") + " (f kind, F channel)"
         self.border_title = f"events (newest first): {self.last_id} so far{folded}{only}"
 
     def _fold(self, episode: Event) -> None:
