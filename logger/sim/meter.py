@@ -26,7 +26,10 @@ _MAX_WINDOW = 8192
 _MAX_CROSSINGS = 16
 _BISECTIONS = 52
 _STEP_RTOL = 1e-9
-"""Sample intervals within this relative difference share one set of filter coefficients."""
+"""Sample intervals within this relative difference share one set of filter coefficients..."""
+_STEP_ULPS = 16
+"""... or within this many float steps of the sample times: intervals taken between float seconds carry
+rounding of the times themselves (about 1e-12 s at 3 h), which must not split a run of equal steps."""
 
 
 @dataclass(frozen=True)
@@ -99,10 +102,12 @@ class MeterNode:
             v_out[0], on_out[0], i = self._v, self._on, 1
         h = np.diff(t, prepend=self._t if i == 0 else t[0])
         while i < n:
-            if not abs(h[i] - self._h) <= _STEP_RTOL * abs(self._h):
-                self._h, self._zi = float(h[i]), None
             j = min(n, i + self._window)
-            other = np.flatnonzero(np.abs(h[i:j] - self._h) > _STEP_RTOL * abs(self._h))
+            tol = _step_tolerance(self._h, float(t[j - 1]))
+            if not abs(h[i] - self._h) <= tol:
+                self._h, self._zi = float(h[i]), None
+                tol = _step_tolerance(self._h, float(t[j - 1]))
+            other = np.flatnonzero(np.abs(h[i:j] - self._h) > tol)
             if other.size:
                 j = i + int(other[0])
             i = self._run(t, x, i, j, v_out, on_out)
@@ -215,6 +220,11 @@ def _crossing(v: float, line: tuple[float, float, float], rem: float, bound: flo
         else:
             inside = mid
     return outside
+
+
+def _step_tolerance(h: float, t_s: float) -> float:
+    """How far a sample interval may differ from ``h`` and still share its filter coefficients."""
+    return max(_STEP_RTOL * abs(h), _STEP_ULPS * math.ulp(t_s)) if math.isfinite(h) else 0.0
 
 
 def _hold_factors(u: float) -> tuple[float, float]:
