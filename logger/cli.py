@@ -204,10 +204,11 @@ def cmd_live(args: argparse.Namespace) -> int:
 
 def cmd_demo(args: argparse.Namespace) -> int:
     scenario = _scenario(args.scenario or DEFAULT_SCENARIO)
+    source = _sim_source(scenario, args.speed, args.seed, args.duration)
     if args.headless:
         print(f"railtap demo: recording the simulated rig {scenario.name!r} ({scenario.description}); "
               "Ctrl-C stops.", file=sys.stderr)
-    return _record(_sim_source(scenario, args.speed, args.seed), scenario.rig, args, screen=not args.headless)
+    return _record(source, scenario.rig, args, screen=not args.headless)
 
 
 def cmd_sim(args: argparse.Namespace) -> int:
@@ -415,14 +416,15 @@ def _source(args: argparse.Namespace, rig: Rig) -> Source:
         from logger.sources.serial_port import SerialSource
 
         return SerialSource(args.port or rig.device.port, args.baud or rig.device.baud)
-    return _sim_source(_scenario(args.scenario or DEFAULT_SCENARIO), args.speed, args.seed)
+    return _sim_source(_scenario(args.scenario or DEFAULT_SCENARIO), args.speed, args.seed, args.duration)
 
 
-def _sim_source(scenario: Scenario, speed: float | None, seed: int) -> Source:
+def _sim_source(scenario: Scenario, speed: float | None, seed: int, duration_s: float | None) -> Source:
+    """The simulated rig, for the scenario's own length or ``duration_s`` (repeating it if it may)."""
     from logger.sources.simulated import SimSource
 
     return SimSource(scenario.make_device(seed), speed=1.0 if speed is None else speed,
-                     duration_s=scenario.duration_s)
+                     duration_s=scenario.run_length_s(duration_s))
 
 
 def _record(source: Source, rig: Rig, args: argparse.Namespace, screen: bool = False) -> int:

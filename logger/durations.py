@@ -32,3 +32,17 @@ def duration_arg(text: str) -> float:
     if seconds is None:
         raise argparse.ArgumentTypeError(f"{text!r}: expected {SYNTAX}")
     return seconds
+
+
+def format_duration(seconds: float) -> str:
+    """``seconds`` written in the same syntax, largest unit first: ``2h``, ``1h5m``, ``1m30s``, ``0.5s``."""
+    whole, rest = divmod(round(seconds, 3), 1.0)
+    pieces = []
+    for unit, size in (("d", 86400), ("h", 3600), ("m", 60)):
+        count, whole = divmod(int(whole), size)
+        if count:
+            pieces.append(f"{count}{unit}")
+    left = int(whole) + rest
+    if left or not pieces:
+        pieces.append(f"{left:g}s")
+    return "".join(pieces)

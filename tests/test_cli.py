@@ -243,6 +243,23 @@ def test_one_duration_syntax(text: str, seconds: float) -> None:
     assert parse_duration(text) == pytest.approx(seconds)
 
 
+@pytest.mark.parametrize("seconds", [0.0, 0.5, 59.0, 90.0, 3600.0, 3900.0, 7200.0, 43200.0, 45296.25, 86400.0])
+def test_a_written_duration_reads_back(seconds: float) -> None:
+    from logger.durations import format_duration, parse_duration
+
+    assert parse_duration(format_duration(seconds)) == pytest.approx(seconds)
+
+
+def test_duration_past_a_scenario_that_cannot_repeat_is_refused_before_anything_starts(tmp_path: Path,
+                                                                                         capsys) -> None:
+    out = tmp_path / "runs"
+    code = main(["demo", "--scenario", "battery-discharge", "--duration", "2h", "--headless", "--out", str(out)])
+    err = capsys.readouterr().err
+    assert code == 2 and not out.exists()
+    assert err == ("railtap: scenario 'battery-discharge' lasts 1h5m and cannot repeat (its `repeat` is false); "
+                   "ask for --duration 1h5m or less\n")
+
+
 def test_every_duration_option_reads_the_one_syntax(tmp_path: Path, capsys) -> None:
     """`record --duration 2s` records two seconds; a value in no syntax is a usage error naming it."""
     from logger.durations import parse_duration

@@ -402,6 +402,28 @@ def test_broken_scenario_names_file_and_key(tmp_path: Path) -> None:
         parse_scenario(text.replace("start_s = 480.0", "start_s = 240.05"), "<s>")
 
 
+def test_a_repeating_scenario_starts_its_faults_again_and_a_pack_cannot_repeat() -> None:
+    scenario = load_scenario("split-15v")
+    assert scenario.repeats and scenario.duration_s == 600.0
+    once = [(e.kind, e.start_s) for e in scenario.true_events(600.0) if e.kind != "meter_off"]
+    twice = [(e.kind, e.start_s) for e in scenario.true_events(1200.0) if e.kind != "meter_off"]
+    assert twice == once + [(kind, start + 600.0) for kind, start in once]
+    # the rails at a time and one period later are the same (ripple at 100 Hz has a whole number of cycles)
+    t = np.array([10.0, 240.05, 480.2])
+    assert np.allclose(scenario.true_values(t + 600.0), scenario.true_values(t), atol=1e-9)
+    assert scenario.run_length_s(43200.0) == 43200.0 and scenario.run_length_s(None) == 600.0
+    pack = load_scenario("battery-discharge")
+    with pytest.raises(ScenarioError, match=r"^scenario 'battery-discharge' lasts 1h5m and cannot repeat "
+                                            r"\(its `repeat` is false\); ask for --duration 1h5m or less$"):
+        pack.run_length_s(7200.0)
+    with pytest.raises(ScenarioError, match=r"^<s>: rail\[0\]\.supply: a battery pack runs down, so its scenario "
+                                            "cannot repeat; set repeat = false$"):
+        parse_scenario(pack.text.replace("duration_s = 3900.0", "duration_s = 3900.0\nrepeat = true"), "<s>")
+    late = scenario.text.replace("duration_s = 600.0", "duration_s = 300.0")
+    with pytest.raises(ScenarioError, match=r"^<s>: rail\[1\]\.fault: a fault ends at .* past the 300 s after which"):
+        parse_scenario(late, "<s>")
+
+
 def test_regulated_supply_sags_under_load() -> None:
     supply = RegulatedSupply(24.0, source_ohm=0.08)
     rail = Rail(RailSpec("out", supply, LoadSchedule((LoadStep(0.0, "cc", 2.5),))))

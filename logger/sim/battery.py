@@ -100,6 +100,10 @@ class Battery:
         """Open-circuit voltage at each time for the given states of charge, scaled by any active fault."""
         return self.ocv_v(soc) * fault_envelope(self.faults, t_s)
 
+    def scheduled(self, until_s: float) -> list[Fault]:
+        """Every fault starting before ``until_s`` (a pack runs down: its faults never repeat)."""
+        return [f for f in self.faults if f.start_s < until_s]
+
 
 class SocTrack:
     """State of charge of a pack, counted on a fixed tick grid ``k * tick_s`` and extended as asked.

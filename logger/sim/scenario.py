@@ -20,15 +20,16 @@ from typing import Any
 
 import numpy as np
 
+from logger.durations import format_duration
 from logger.rig import Rig, RigError, rig_from_dict
 from logger.sim.adc import AdcSpec
 from logger.sim.device import LinkFaults, SimDevice
 from logger.sim.model import PhysicalRig, Physics, ordered_channels
-from logger.sim.spec import Reader, ScenarioError, read_adc, read_physics
+from logger.sim.spec import Reader, ScenarioError, read_adc, read_physics, repeating
 from logger.sim.truth import TrueEvent, Truth
 
 _PACKAGE_DIR = "sim/scenarios"
-_TOP_KEYS = ("name", "description", "duration_s", "rig", "link", "adc", "rail", "meter")
+_TOP_KEYS = ("name", "description", "duration_s", "repeat", "rig", "link", "adc", "rail", "meter")
 _ROLES_FOR = {"volts": ("volts",), "amps": ("amps",), "node": ("aux", "volts")}
 
 
@@ -51,6 +52,8 @@ class Scenario:
         source: where it was read from.
         text: the scenario file as written.
         duration_s: how long a run of it is meant to last, in simulated seconds.
+        repeats: whether it starts again after ``duration_s`` (faults and load steps), so that a run may last
+            longer; a pack that runs down cannot.
         rig: the matching rig (its ``text`` is a plain rig file of the ``[rig]`` table).
         physics: rails and meters.
         adc: converter and errors.
@@ -66,6 +69,21 @@ class Scenario:
     physics: Physics
     adc: AdcSpec
     link: LinkSpec
+    repeats: bool = False
+
+    def run_length_s(self, asked_s: float | None) -> float:
+        """How long a run of this scenario lasts when ``asked_s`` (``--duration``) is asked for.
+
+        Raises:
+            ScenarioError: more is asked for than a scenario that cannot repeat holds.
+        """
+        if asked_s is None:
+            return self.duration_s
+        if asked_s > self.duration_s and not self.repeats:
+            raise ScenarioError(f"scenario {self.name!r} lasts {format_duration(self.duration_s)} and cannot repeat "
+                                f"(its `repeat` is false); ask for --duration {format_duration(self.duration_s)} or "
+                                "less")
+        return asked_s
 
     def make_model(self, seed: int | None = 0) -> PhysicalRig:
         """A fresh physics model (noise seeded with ``seed``) to give to :class:`SimDevice`."""
@@ -138,6 +156,10 @@ def scenario_from_dict(doc: dict[str, Any], source: str = "<scenario>", text: st
     except RigError as exc:
         raise ScenarioError(str(exc)) from None
     physics = read_physics(r, doc)
+    duration_s = r.number(doc, "duration_s", "", 600.0, positive=True)
+    repeats = r.flag(doc, "repeat", "", False)
+    if repeats:
+        physics = repeating(r, physics, duration_s)
     adc = read_adc(r, doc.get("adc", {}))
     link = _read_link(r, doc.get("link", {}))
     _check_wiring(r, rig, physics, adc)
@@ -146,11 +168,12 @@ def scenario_from_dict(doc: dict[str, Any], source: str = "<scenario>", text: st
         description=r.text(doc, "description", "", ""),
         source=source,
         text=text,
-        duration_s=r.number(doc, "duration_s", "", 600.0, positive=True),
+        duration_s=duration_s,
         rig=rig,
         physics=physics,
         adc=adc,
         link=link,
+        repeats=repeats,
     )
 
 

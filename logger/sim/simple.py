@@ -165,7 +165,7 @@ RIG_TOML = """\
 name = "simple-rail-12v"
 
 [device]
-baud = 921600
+baud = 1000000
 # adc_bits = 12
 # vref_mv = 3300
 

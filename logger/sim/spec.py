@@ -2,7 +2,7 @@
 
 The file layout (``[rig]`` aside, which is a rig file's tables under one name)::
 
-    name, description, duration_s
+    name, description, duration_s, repeat (true: the faults and load steps start again after duration_s)
     [link]       rate_hz, drift_ppm, drop_line, corrupt_byte, drop_byte
     [adc]        bits, vref_mv, noise_lsb, inl_lsb, offset_lsb = {channel = counts}, gain_error = {channel = x}
     [[rail]]     name, volts, amps
@@ -86,6 +86,13 @@ class Reader:
             raise self.fail(_key(where, key), f"expected a string, got {value!r}")
         return value
 
+    def flag(self, table: dict[str, Any], key: str, where: str, default: bool) -> bool:
+        """A true or false."""
+        value = table.get(key, default)
+        if not isinstance(value, bool):
+            raise self.fail(_key(where, key), f"expected true or false, got {value!r}")
+        return value
+
     def table(self, value: Any, where: str) -> dict[str, Any]:
         """``value`` if it is a table, whatever its keys."""
         if not isinstance(value, dict):
@@ -130,6 +137,23 @@ def read_physics(r: Reader, doc: dict[str, Any]) -> Physics:
         raise r.fail("rail", f"rail names must differ, got {names}")
     meters = tuple(read_meter(r, t, f"meter[{i}]", names) for i, t in enumerate(r.tables(doc, "meter", "")))
     return Physics(rails, meters)
+
+
+def repeating(r: Reader, physics: Physics, period_s: float) -> Physics:
+    """The physics with every rail's faults, and any load schedule without a period of its own, starting
+    again every ``period_s`` (meters and other state carry on)."""
+    rails = []
+    for i, rail in enumerate(physics.rails):
+        where = f"rail[{i}]"
+        if isinstance(rail.supply, Battery):
+            raise r.fail(f"{where}.supply", "a battery pack runs down, so its scenario cannot repeat; "
+                                            "set repeat = false")
+        supply = r.build(f"{where}.fault", lambda s=rail.supply: replace(s, period_s=period_s))
+        load = rail.load
+        if load.period_s is None and load.steps:
+            load = r.build(f"{where}.load", lambda ld=load: replace(ld, period_s=period_s))
+        rails.append(replace(rail, supply=supply, load=load))
+    return replace(physics, rails=tuple(rails))
 
 
 def read_rail(r: Reader, table: Any, where: str) -> RailSpec:

@@ -14,7 +14,7 @@ from __future__ import annotations
 import itertools
 import math
 from collections.abc import Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 
@@ -105,6 +105,7 @@ class RegulatedSupply:
         ripple_hz: ripple frequency (100 Hz: full-wave rectified 50 Hz mains).
         ripple_pp_v: ripple peak-to-peak at the set-point; it shrinks with the EMF during a fault.
         faults: scheduled input faults.
+        period_s: the faults repeat with this period (``None``: they happen once).
     """
 
     setpoint_v: float
@@ -113,11 +114,15 @@ class RegulatedSupply:
     ripple_hz: float = 100.0
     ripple_pp_v: float = 0.0
     faults: tuple[Fault, ...] = ()
+    period_s: float | None = None
 
     def __post_init__(self) -> None:
         if not self.setpoint_v > 0 or self.source_ohm < 0 or not self.current_limit_a > 0:
             raise ValueError("a supply needs a positive set-point and current limit and a source resistance >= 0")
         object.__setattr__(self, "faults", check_faults(self.faults))
+        if self.period_s is not None and self.faults and not self.faults[-1].end_s < self.period_s:
+            raise ValueError(f"a fault ends at {self.faults[-1].end_s:g} s, past the {self.period_s:g} s after which "
+                             "the faults repeat")
 
     @property
     def nominal_v(self) -> float:
@@ -130,4 +135,12 @@ class RegulatedSupply:
         emf = np.full(t.shape, self.setpoint_v)
         if self.ripple_pp_v:
             emf += 0.5 * self.ripple_pp_v * np.sin(2.0 * np.pi * self.ripple_hz * t)
-        return emf * fault_envelope(self.faults, t)
+        return emf * fault_envelope(self.faults, t if self.period_s is None else np.mod(t, self.period_s))
+
+    def scheduled(self, until_s: float) -> list[Fault]:
+        """Every fault starting before ``until_s``, repeats included (one period of them if it is unbounded)."""
+        if self.period_s is None:
+            return [f for f in self.faults if f.start_s < until_s]
+        rounds = 1 if math.isinf(until_s) else math.ceil(until_s / self.period_s)
+        shifted = (replace(f, start_s=f.start_s + k * self.period_s) for k in range(rounds) for f in self.faults)
+        return [f for f in shifted if f.start_s < until_s]

@@ -100,9 +100,7 @@ class Truth:
         for spec in self.physics.rails:
             rail = self._rig.rails[spec.name]
             channel = spec.volts or spec.name
-            for f in spec.faults:
-                if f.start_s >= until_s:
-                    continue
+            for f in spec.supply.scheduled(until_s):
                 hold = np.linspace(f.start_s, f.end_s, _FAULT_POINTS)
                 lowest = float(np.min(rail.values(hold)[0]))
                 events.append(TrueEvent(f.kind, channel, f.start_s, f.end_s, f.level, lowest))

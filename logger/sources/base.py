@@ -39,7 +39,7 @@ class Source(Protocol):
 
     @property
     def name(self) -> str:
-        """Short description for screens and metadata, e.g. ``/dev/ttyACM0 @ 921600``."""
+        """Short description for screens and metadata, e.g. ``/dev/ttyACM0 @ 1000000``."""
         ...
 
     def open(self) -> None:

@@ -38,14 +38,14 @@ class SerialSource:
         baud: line speed; USB CDC devices ignore it, UART bridges need it to match the firmware.
     """
 
-    def __init__(self, url: str, baud: int = 921600) -> None:
+    def __init__(self, url: str, baud: int = 1_000_000) -> None:
         self.url = url
         self.baud = baud
         self._ser: serial.SerialBase | None = None
 
     @property
     def name(self) -> str:
-        """E.g. ``/dev/ttyACM0 @ 921600``."""
+        """E.g. ``/dev/ttyACM0 @ 1000000``."""
         return f"{self.url} @ {self.baud}"
 
     def open(self) -> None:
