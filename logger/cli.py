@@ -120,8 +120,9 @@ def _parser() -> argparse.ArgumentParser:
     cal.add_argument("--reference-note", default="", help="the reference instrument, e.g. its model and last check")
     cal.add_argument("--temperature-note", default="", help="e.g. 23 C bench, tap warmed up 20 min")
     cal.add_argument("--due-days", type=int, default=365, help="days until the profile is due again (0: never)")
-    cal.add_argument("--u-ref", type=float, metavar="VALUE",
-                     help="standard uncertainty of the reference readings, in the channel's unit, if known")
+    cal.add_argument("--u-ref", metavar="VALUE",
+                     help="standard uncertainty of the reference readings, in the channel's unit, if known "
+                          "(e.g. 0.001 or 1m)")
     cal.set_defaults(run=cmd_cal)
 
     recal = sub.add_parser("recal", help="calibrate a recorded run again from its raw counts with new profiles")
@@ -251,6 +252,21 @@ def cmd_sim(args: argparse.Namespace) -> int:
     return 0
 
 
+def _u_ref(text: str | None, unit: str) -> float | None:
+    """``--u-ref`` in the channel's unit, SI prefixes allowed as the planner reads them (``1m``, ``500u``)."""
+    if text is None:
+        return None
+    from logger.plan.values import PlanError, parse_value
+
+    try:
+        value = parse_value(text, unit if unit in ("V", "A") else "x", "--u-ref")
+    except PlanError as exc:
+        raise UsageError(str(exc)) from None
+    if not value >= 0:
+        raise UsageError(f"--u-ref: expected an uncertainty of zero or more, got {text!r}")
+    return value
+
+
 def cmd_cal(args: argparse.Namespace) -> int:
     from logger.cal import session
 
@@ -259,11 +275,12 @@ def cmd_cal(args: argparse.Namespace) -> int:
     if args.channel not in names:
         raise UsageError(f"{args.channel}: no such channel in {rig.source or rig.name}; it has {', '.join(names)}")
     ch, k = rig.channel(args.channel), names.index(args.channel)
+    u_ref = _u_ref(args.u_ref, ch.unit)
     opts = session.CalOptions(args.samples, args.max_sd, args.model, args.out, args.reference_note,
-                              args.temperature_note, args.due_days, args.u_ref)
+                              args.temperature_note, args.due_days, u_ref)
     say = session.terminal_say
     if args.csv is not None:
-        session.fit_and_save(rig, ch, session.points_from_csv(args.csv, args.u_ref), opts, say)
+        session.fit_and_save(rig, ch, session.points_from_csv(args.csv, u_ref), opts, say)
         return 0
     pipeline = Pipeline(_source(args, rig), rig, Settings(record_root=None))
     pipeline.start()

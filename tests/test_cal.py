@@ -234,6 +234,13 @@ def test_csv_points_and_their_errors(tmp_path: Path, capsys) -> None:
     with pytest.raises(CalError, match="line 2"):
         points_from_csv(bad)
     assert main(["cal", "out_x", "--rig", str(rig_file), "--csv", str(good)]) == 2
+    capsys.readouterr()
+    # --u-ref reads SI prefixes as the planner does: 1m is 1 mV on a volts channel
+    assert main(["cal", "out_v", "--rig", str(rig_file), "--csv", str(good), "--u-ref", "1m"]) == 0
+    profile = json.loads((tmp_path / "cal" / "out_v.json").read_text())
+    assert {p["u_reference"] for p in profile["points"]} == {0.001}
+    assert main(["cal", "out_v", "--rig", str(rig_file), "--csv", str(good), "--u-ref", "1mA"]) == 2
+    assert "--u-ref: '1mA' is not a value in volts" in capsys.readouterr().err
     with pytest.raises(ProfileError, match="no such calibration profile"):
         load_profile(tmp_path / "missing.json")
     save_profile(load_profile(tmp_path / "cal" / "out_v.json"), tmp_path / "copy.json")
