@@ -465,13 +465,19 @@ def _record(source: Source, rig: Rig, args: argparse.Namespace, screen: bool = F
     if args.run is cmd_record and not args.quiet:
         print(f"railtap record: {rig.name} from {source.name} into {args.out}/; Ctrl-C stops and seals the run",
               file=sys.stderr)
-    _on_signals(lambda: pipeline.request_stop("stopped by signal"))
+    hangup = threading.Event()
+
+    def on_signal() -> None:
+        pipeline.request_stop("stopped by signal")
+        hangup.set()
+
+    _on_signals(on_signal)
     failure = None
     try:
         if screen:
             from logger.tui import run_screen
 
-            run_screen(pipeline)
+            run_screen(pipeline, hangup)
         else:
             print_status(pipeline, args.quiet)
     except KeyboardInterrupt:

@@ -411,7 +411,8 @@ def test_a_repeating_scenario_starts_its_faults_again_and_a_pack_cannot_repeat()
     # the rails at a time and one period later are the same (ripple at 100 Hz has a whole number of cycles)
     t = np.array([10.0, 240.05, 480.2])
     assert np.allclose(scenario.true_values(t + 600.0), scenario.true_values(t), atol=1e-9)
-    assert scenario.run_length_s(43200.0) == 43200.0 and scenario.run_length_s(None) == 600.0
+    assert scenario.run_length_s(43200.0) is None and scenario.run_length_s(None) == 600.0  # --duration stops it
+    assert scenario.run_length_s(5.0) == 600.0
     pack = load_scenario("battery-discharge")
     with pytest.raises(ScenarioError, match=r"^scenario 'battery-discharge' lasts 1h5m and cannot repeat "
                                             r"\(its `repeat` is false\); ask for --duration 1h5m or less$"):

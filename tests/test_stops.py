@@ -44,7 +44,7 @@ def test_a_bug_in_the_ingest_thread_seals_the_run_and_says_so(tmp_path: Path, mo
 def test_a_broken_screen_is_not_a_users_stop(tmp_path: Path, monkeypatch, capsys) -> None:
     import logger.tui
 
-    def broken(pipeline):
+    def broken(pipeline, hangup):
         raise RuntimeError("deque mutated during iteration")
 
     monkeypatch.setattr(logger.tui, "run_screen", broken)

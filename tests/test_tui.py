@@ -474,6 +474,25 @@ def test_a_negative_rails_dip_towards_zero_is_the_one_drawn_as_low() -> None:
     assert columns == {2}
 
 
+def test_a_run_that_reaches_its_duration_keeps_the_screen_up_until_q(start: Callable[..., Pipeline]) -> None:
+    """--duration ends the run and seals it; the screen stays with the whole run on it (a 12-hour test is read
+    in the morning), says the run ended and why, and q leaves at once."""
+    pipeline = start(speed=0.0, duration_s=3.0)
+
+    async def run() -> None:
+        app = RailtapApp(pipeline)
+        async with app.run_test(size=SIZE) as pilot:
+            banner = app.query_one(Banner)
+            await _until(pilot, lambda: pipeline.wait(0) and "RUN ENDED" in str(banner.content), 60.0)
+            assert "RUN ENDED: duration of 3 s reached; every part is sealed; q leaves" in str(banner.content)
+            assert app.return_value is None and pipeline.final["status"] == "complete"
+            await _key(app, pilot, "q")  # the run is over: one press leaves
+            await _until(pilot, lambda: app.return_value is not None, 30.0)
+        assert app.return_value == "complete: duration of 3 s reached"
+
+    asyncio.run(run())
+
+
 def test_a_failed_run_keeps_the_screen_up_with_its_reason(start: Callable[..., Pipeline], monkeypatch) -> None:
     """A run that stops on an error is sealed, and the screen stays with a red FAILED banner saying why until q;
     the run says it failed, not that a user stopped it."""

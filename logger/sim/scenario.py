@@ -71,19 +71,20 @@ class Scenario:
     link: LinkSpec
     repeats: bool = False
 
-    def run_length_s(self, asked_s: float | None) -> float:
-        """How long a run of this scenario lasts when ``asked_s`` (``--duration``) is asked for.
+    def run_length_s(self, asked_s: float | None) -> float | None:
+        """How long the simulated source runs when ``asked_s`` (``--duration``) is asked for: the scenario's
+        own length, or with no end (``None``) when it repeats past it and the run's duration stops it.
 
         Raises:
             ScenarioError: more is asked for than a scenario that cannot repeat holds.
         """
-        if asked_s is None:
+        if asked_s is None or asked_s <= self.duration_s:
             return self.duration_s
-        if asked_s > self.duration_s and not self.repeats:
+        if not self.repeats:
             raise ScenarioError(f"scenario {self.name!r} lasts {format_duration(self.duration_s)} and cannot repeat "
                                 f"(its `repeat` is false); ask for --duration {format_duration(self.duration_s)} or "
                                 "less")
-        return asked_s
+        return None
 
     def make_model(self, seed: int | None = 0) -> PhysicalRig:
         """A fresh physics model (noise seeded with ``seed``) to give to :class:`SimDevice`."""

@@ -101,7 +101,7 @@ class RailtapApp(App[str]):
 
     def on_mount(self) -> None:
         self._polls = 0
-        self._failure_told = False
+        self._end_told = False
         for warning in self.pipeline.rig.warnings():
             self.notify(warning, severity="warning", timeout=15)
         self.set_interval(POLL_S, self.poll)
@@ -133,14 +133,16 @@ class RailtapApp(App[str]):
             # times a second, half the poll rate: drawing it is most of what the screen costs.
             if fresh_samples and self._polls % 2 == 0:
                 self.query_one(Trend).new_data()
-        if not self.sealing and self.pipeline.wait(0):
-            if self.pipeline.error:  # stays up with the red FAILED banner until someone has read it
-                if not self._failure_told:
-                    self._failure_told = True
-                    self.notify("the run stopped on an error and its parts are sealed; q leaves", severity="error",
-                                timeout=24 * 3600)
-                return
-            self._seal(f"run ended: {self.pipeline.stop_reason}")
+        if not self.sealing and self.pipeline.wait(0) and not self._end_told:
+            # The run ended by itself (its duration, the source, an error) and is sealed. The screen stays, with
+            # the whole run's trend and events, until someone has looked: a 12-hour test is read in the morning.
+            self._end_told = True
+            if self.pipeline.error:
+                self.notify("the run stopped on an error and its parts are sealed; q leaves", severity="error",
+                            timeout=24 * 3600)
+            else:
+                self.notify(f"the run ended ({self.pipeline.stop_reason}) and is sealed; the screen stays for a look; "
+                            "q leaves", timeout=24 * 3600)
 
     def on_data_table_row_highlighted(self, message: DataTable.RowHighlighted) -> None:
         """Moving through the event list spells out the event under the cursor."""
@@ -314,21 +316,24 @@ class RailtapApp(App[str]):
             event.prevent_default()
 
 
-def run_screen(pipeline: Pipeline, grace_s: float = 5.0) -> str | None:
-    """Show the live screen over a started pipeline until the user quits or the run ends; the run is
-    stopped and sealed when this returns (or, if the screen itself failed, the caller must stop it).
+def run_screen(pipeline: Pipeline, hangup: threading.Event | None = None, grace_s: float = 5.0) -> str | None:
+    """Show the live screen over a started pipeline until the user quits; the run is stopped and sealed when
+    this returns (or, if the screen itself failed, the caller must stop it). A run that ends by itself (its
+    duration, the source, an error) is sealed and stays on screen, saying so, until someone presses q.
 
     If the terminal goes away (a closed window, a dropped SSH session), the hangup signal stops and seals the
-    run, but the screen can then block for ever writing to the dead terminal. So once the run is sealed, the
-    screen has ``grace_s`` to close; after that the process ends without it (exit status 129, as for a
-    hangup), its data already safe on disk. A run that stopped on an error keeps the screen up, its red banner
-    saying why, until someone presses q.
+    run (the caller sets ``hangup``), but the screen can then block for ever writing to the dead terminal, or
+    wait for a q nobody will press. So once the run is sealed after a hangup, the screen has ``grace_s`` to
+    close; after that the process ends without it (exit status 129, as for a hangup), its data already safe on
+    disk.
     """
     closed = threading.Event()
+    hung_up = hangup or threading.Event()
 
     def watch() -> None:
+        hung_up.wait()
         pipeline.wait()
-        if pipeline.stop_reason == "stopped by signal" and not closed.wait(grace_s):  # the terminal went away
+        if not closed.wait(grace_s):  # the terminal went away
             os._exit(129)
 
     threading.Thread(target=watch, name="railtap-screen-watch", daemon=True).start()

@@ -1,9 +1,9 @@
 """The banner line at the top: what is going on now, in words, and the bell when a new fault starts.
 
 It shows, in order of importance: the run being sealed; a brownout, dropout, overvoltage or overcurrent going
-on; a link that is down or carries no valid data; a fault that ended less than ``hold_s`` ago; a pipeline
-still waiting for its device or stopped; a paused display; that nothing is being recorded; otherwise a quiet
-line with the rig's name.
+on; a link that is down or carries no valid data; a fault that ended less than ``hold_s`` ago; a run that
+ended by itself (it stays on screen until q); a pipeline still waiting for its device; a paused display; that
+nothing is being recorded; otherwise a quiet line with the rig's name.
 """
 
 from __future__ import annotations
@@ -81,6 +81,8 @@ class Banner(Static):
             kind, line = "-alert", f"{NO_DATA[snap.state]}{_for(snap.link.down_since)}: {snap.message}"
         elif held:
             kind, line = "-alert", f"JUST NOW: {event_title(self._recent)}"
+        elif snap.state == "stopped":
+            kind, line = "-warn", f"RUN ENDED: {snap.message}; every part is sealed; q leaves"
         elif snap.state != "running":
             kind, line = "-warn", f"{snap.state.upper()}: {snap.message}"
         elif self.paused:
