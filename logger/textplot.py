@@ -1,6 +1,7 @@
 """Column charts in text: each column filled from its lowest to its highest value in half-cell steps, so a
-one-sample dip shows however many samples a column covers. Used by the live trend and by ``railtap review``'s
-quick look in the terminal.
+one-sample dip shows however many samples a column covers, and, where a column spans more than a cell, its
+mean marked in its own colour, so that a long span full of dips still shows where the rail sat. Used by the
+live trend and by ``railtap review``'s quick look in the terminal.
 """
 
 from __future__ import annotations
@@ -14,7 +15,7 @@ from rich.text import Text
 GUTTER = 8
 """Columns taken by the value labels and the axis line on the left."""
 DEFAULT_STYLES = {"data": Style(color="green"), "low": Style(color="red", bold=True),
-                  "threshold": Style(color="yellow"), "axis": Style(dim=True)}
+                  "threshold": Style(color="yellow"), "axis": Style(dim=True), "mean": Style(color="white", bold=True)}
 
 
 def value_text(value: float | None, signed: bool = True) -> str:
@@ -41,10 +42,11 @@ def value_range(lo: np.ndarray, hi: np.ndarray, threshold: float | None) -> tupl
 
 
 def draw_columns(lo: np.ndarray, hi: np.ndarray, threshold: float | None, bottom: float, top: float,
-                 height: int, styles: dict[str, Style], over: bool = False) -> Text:
+                 height: int, styles: dict[str, Style], over: bool = False, mean: np.ndarray | None = None) -> Text:
     """Rows of half-cell blocks from each column's lowest to highest value, labelled at top and bottom, with the
     threshold dashed across; columns that went past it (below a brownout threshold, above an ``over`` limit)
-    use the ``low`` style."""
+    use the ``low`` style, and the cell of a column's ``mean`` the ``mean`` style where the column spans more
+    than that cell."""
     levels = 2 * height
     scale = (levels - 1) / (top - bottom)
     have = ~np.isnan(lo)
@@ -56,6 +58,11 @@ def draw_columns(lo: np.ndarray, hi: np.ndarray, threshold: float | None, bottom
         below = np.zeros(len(lo), dtype=bool)
     else:
         below = have & ((lo < threshold) if (threshold >= 0) != over else (hi > threshold))
+    mean_row = np.full(len(lo), -1)
+    if mean is not None:
+        mean_l = np.floor((np.nan_to_num(mean) - bottom) * scale + 0.5).astype(int)
+        spread = have & ~np.isnan(mean) & (hi_l - lo_l > 2)
+        mean_row = np.where(spread, mean_l // 2, -1)
     text = Text(no_wrap=True, overflow="crop")
     for row in range(height - 1, -1, -1):
         label = value_text(top if row == height - 1 else bottom if row == 0 else None, False)
@@ -67,18 +74,19 @@ def draw_columns(lo: np.ndarray, hi: np.ndarray, threshold: float | None, bottom
         line = "".join(cells)
         if row == thr_row:
             line = "".join(c if c != " " else ("\u254c" if k % 2 == 0 else " ") for k, c in enumerate(line))
-        _append_runs(text, line, below, row == thr_row, styles)
+        _append_runs(text, line, below, row == thr_row, styles, mean_row == row)
         if row:
             text.append("\n")
     return text
 
 
-def _append_runs(text: Text, line: str, below: np.ndarray, on_threshold: bool, styles: dict[str, Style]) -> None:
+def _append_runs(text: Text, line: str, below: np.ndarray, on_threshold: bool, styles: dict[str, Style],
+                 at_mean: np.ndarray) -> None:
     """Append a row of cells, one styled run per stretch of the same kind of cell."""
     start = 0
-    kinds = ["t" if c == "\u254c" or (on_threshold and c == " ") else "l" if below[k] else "d"
-             for k, c in enumerate(line)]
-    names = {"t": "threshold", "l": "low", "d": "data"}
+    kinds = ["t" if c == "\u254c" or (on_threshold and c == " ") else "m" if at_mean[k] else "l" if below[k]
+             else "d" for k, c in enumerate(line)]
+    names = {"t": "threshold", "l": "low", "d": "data", "m": "mean"}
     for k in range(1, len(line) + 1):
         if k == len(line) or kinds[k] != kinds[start]:
             text.append(line[start:k], styles[names[kinds[start]]])

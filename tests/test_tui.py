@@ -281,10 +281,10 @@ def test_history_keeps_a_one_sample_dip_at_any_span() -> None:
     for chunk in np.array_split(np.arange(len(utc)), 7):
         history.add(utc[chunk], values[chunk])
     for span_s in (10.0, 60.0, 600.0, 3600.0):  # the last from the 1 s tier
-        lo, hi = history.columns(0, span_s, 50)
+        lo, hi, _ = history.columns(0, span_s, 50)
         assert np.nanmax(hi) == pytest.approx(12.0)
         assert (np.nanmin(lo) == pytest.approx(3.0)) == (span_s > 60.0 - 1e-9)
-    _, power_hi = history.columns(3, 60.0, 50)
+    _, power_hi, _ = history.columns(3, 60.0, 50)
     assert np.nanmax(power_hi) == pytest.approx(24.0)  # out_w = out_v x out_a
 
 
@@ -579,6 +579,20 @@ def test_home_and_end_go_to_the_newest_and_the_oldest_event() -> None:
     asyncio.run(run())
 
 
+def test_a_column_that_spans_more_than_a_cell_marks_its_mean() -> None:
+    """A column that held dips to 0 V but sat at 12 V marks the cell of its mean; a flat column has none."""
+    from logger.textplot import DEFAULT_STYLES, draw_columns
+
+    lo, hi, mean = np.array([0.0, 11.9]), np.array([12.1, 12.1]), np.array([11.95, 12.0])
+    text = draw_columns(lo, hi, 10.8, 0.0, 12.6, 6, DEFAULT_STYLES, mean=mean)
+    row_starts = np.cumsum([0] + [len(row) + 1 for row in text.plain.split("\n")])
+    rows = [int(np.searchsorted(row_starts, span.start, side="right")) - 1 for span in text.spans
+            if span.style == DEFAULT_STYLES["mean"]]
+    marked = [(row, span.start - row_starts[row]) for row, span in
+              zip(rows, (sp for sp in text.spans if sp.style == DEFAULT_STYLES["mean"]), strict=True)]
+    assert marked == [(0, 8)]  # the top row, the first column (after the 8-cell gutter); not the flat one
+
+
 def test_an_amps_trend_draws_its_overcurrent_limit_and_marks_columns_above_it() -> None:
     """The demo rig's out_a has `high = 5.0`: its trend draws that line, named, as out_v's draws its brownout
     threshold; a column that went above it is drawn in the alarm style, one that stayed below is not."""
@@ -622,9 +636,13 @@ def test_the_whole_run_span_covers_every_sample_with_its_ends_labelled() -> None
             values[2_400_000, 0] = 9.6
         history.add(utc, values)
     assert history.run_s == pytest.approx(3 * 3600 - 0.001)
-    lo, _ = history.columns(0, history.run_s, 90)
+    lo, _, mean = history.columns(0, history.run_s, 90)
     assert np.nanmin(lo) == pytest.approx(9.6) and np.isnan(lo).sum() == 0
-    lo_hour, _ = history.columns(0, 3600.0, 90)
+    # the column holding the one low sample keeps its mean at the rail: 12 V less 2.4 V over its ~120,000
+    # samples (arithmetic mean, common fact)
+    dip = int(np.nanargmin(lo))
+    assert mean[dip] == pytest.approx(12.0 - 2.4 / 120_000, abs=1e-6) and np.nanmax(np.abs(mean - 12.0)) < 1e-4
+    lo_hour, _, _ = history.columns(0, 3600.0, 90)
     assert np.nanmin(lo_hour) == pytest.approx(12.0)
 
     trend = Trend(history)

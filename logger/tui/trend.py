@@ -1,8 +1,9 @@
 """The trend: one channel over the last span, one column per slice of time, drawn from lowest to highest.
 
 Each column covers ``span / width`` of time and is filled from the lowest to the highest value seen in it
-(half-cell steps), so a dip of a single sample shows however long the span. The brownout threshold is a
-dashed line; columns that went below it are drawn in the alert colour.
+(half-cell steps), so a dip of a single sample shows however long the span; where a column spans more than a
+cell, the cell of its mean is marked, so a night full of dips still shows where the rail sat. The brownout
+threshold is a dashed line; columns that went below it are drawn in the alert colour.
 """
 
 from __future__ import annotations
@@ -46,8 +47,10 @@ class Trend(Widget):
     Trend > .trend--low { color: $error; text-style: bold; }
     Trend > .trend--threshold { color: $warning; }
     Trend > .trend--axis { color: $text-muted; }
+    Trend > .trend--mean { color: $text; text-style: bold; }
     """
-    COMPONENT_CLASSES: ClassVar[set[str]] = {"trend--data", "trend--low", "trend--threshold", "trend--axis"}
+    COMPONENT_CLASSES: ClassVar[set[str]] = {"trend--data", "trend--low", "trend--threshold", "trend--axis",
+                                             "trend--mean"}
 
     def __init__(self, history: TrendHistory, *, id: str | None = None) -> None:
         super().__init__(id=id)
@@ -102,10 +105,10 @@ class Trend(Widget):
         height, width = self.content_size.height, self.content_size.width - GUTTER
         if height <= 0 or width <= 4:
             return Text("")
-        lo, hi = self.history.columns(self.channel, self.shown_span_s(), width)
+        lo, hi, mean = self.history.columns(self.channel, self.shown_span_s(), width)
         if np.all(np.isnan(lo)):
             return Text("waiting for samples...", style="dim")
         threshold = self.history.shown.thresholds[self.channel]
         bottom, top = value_range(lo, hi, threshold)
         return draw_columns(lo, hi, threshold, bottom, top, height, self._styles(),
-                            over=self.history.shown.over[self.channel])
+                            over=self.history.shown.over[self.channel], mean=mean)
