@@ -88,6 +88,31 @@ def test_ripple_leaves_out_the_slow_trend_and_the_events_and_names_the_largest_e
     assert out_v.excursion == pytest.approx(12.0 + 0.1 * 6.0 + a - 9.0, abs=0.01)  # its second's top to the dip
 
 
+def test_a_load_step_is_not_ripple_and_a_ramp_is_taken_out_of_the_peak_to_peak(tmp_path: Path) -> None:
+    """5 mV peak-to-peak of 100 Hz ripple (A = 2.5 mV) sampled at 1 kHz, with a 0.2 V load step at 5.5 s: the
+    step's second is left out of the ripple (it read 204.8 mV of ripple when the second's max - min was the
+    ripple) and is the largest excursion instead. On a 0.1 V/s ramp the peak-to-peak is the ripple's, not the
+    ramp's 0.1 V, to within the slope times two ripple cycles (2 mV). A sine's RMS is A / sqrt(2) and its
+    peak-to-peak 2 A (common fact of the trade); at 1 kHz the 100 Hz peaks fall between samples, so 2 A reads
+    2 A sin(72 deg) = 4.76 mV (sampling arithmetic, common practice, no source)."""
+    a = 0.0025
+    t = np.arange(0, 10.0, 1 / 1000)
+    ripple = a * np.sin(2 * np.pi * 100 * t)
+    sampled_pp = 2 * a * np.sin(np.deg2rad(72))
+    stepped = summarize(_write_run(tmp_path / "step", t, 12.0 + ripple - 0.2 * (t >= 5.5), np.ones(len(t)),
+                                   rate_hz=1000.0)).channels[0]
+    assert stepped.ripple_pp == pytest.approx((sampled_pp, sampled_pp), abs=1e-4)
+    assert stepped.ripple_rms == pytest.approx((a / np.sqrt(2), a / np.sqrt(2)), rel=1e-3)
+    assert stepped.excursion == pytest.approx(0.2 + sampled_pp, abs=1e-3)
+    ramp = summarize(_write_run(tmp_path / "ramp", t, 12.0 + ripple + 0.1 * t, np.ones(len(t)),
+                                rate_hz=1000.0)).channels[0]
+    assert ramp.ripple_pp[1] == pytest.approx(sampled_pp, abs=0.1 * 2 / 100)
+    assert ramp.ripple_rms[1] == pytest.approx(a / np.sqrt(2), rel=1e-3)
+    burst = ripple * (1 + 4 * ((t >= 3) & (t < 4)))  # five times the ripple for one second: that is ripple
+    assert summarize(_write_run(tmp_path / "burst", t, 12.0 + burst, np.ones(len(t)),
+                                rate_hz=1000.0)).channels[0].ripple_pp[1] == pytest.approx(5 * sampled_pp, rel=0.01)
+
+
 def test_a_2_ah_cell_at_0_2_it_for_5_hours_gives_2_ah(tmp_path: Path) -> None:
     # IEC 61960-3 rated capacity: discharge at 0.2 It, here 0.4 A for a 2.0 Ah cell, for 5 h (value from
     # memory); one sample a second, in five one-hour parts, so the interval between parts counts too.

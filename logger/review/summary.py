@@ -2,10 +2,11 @@
 
 Both paths fold the same per-second rows (a full scan just builds them from every sample again), so they agree
 to rounding. Per channel: samples, min, mean, max and standard deviation (variances combined exactly from the
-seconds' squared deviations), ripple over one-second windows (peak-to-peak and the RMS of the AC part: typical
-and worst), the time integral; per rail: charge (Ah) and energy (Wh) by the trapezoid rule on the samples' own
-timestamps. From the event table: time below the brownout threshold and above the overvoltage one (as the
-detectors timed them), gaps, and the events by kind with counts, worst depth and longest duration.
+seconds' squared deviations), ripple over one-second windows (peak-to-peak and the RMS of the AC part about
+each window's trend, typical and worst, leaving out windows an event touched or a step moved), the largest
+excursion in a second, the time integral; per rail: charge (Ah) and energy (Wh) by the trapezoid rule on the
+samples' own timestamps. From the event table: time below the brownout threshold and above the overvoltage one
+(as the detectors timed them), gaps, and the events by kind with counts, worst depth and longest duration.
 """
 
 from __future__ import annotations
@@ -183,14 +184,19 @@ def _channel(table: pa.Table, name: str, unit: str, events: pa.Table | None) -> 
     mean = float((mean_s * n).sum() / total) if total else float("nan")
     m2 = float(m2_s.sum() + (n * (mean_s - mean) ** 2).sum())  # variances of parts combined exactly
     pp = hi - lo
-    quiet = ~_in_events(table["device_s"].to_numpy()[have], events, name)
+    device_s = table["device_s"].to_numpy()[have]
     rms = np.sqrt(_detrended_m2(table, name, have) / n)
+    quiet = ~_in_events(device_s, events) & ~_stepped(table, name, have, device_s, pp)
+    rise = _trend_rise(table, name, have, n)
+    # A tenth of the peak-to-peak or less is what a line fitted to whole cycles of a 10 Hz or faster ripple
+    # rises by itself (12 A / (2 pi f T) for amplitude A): no trend to take out.
+    ripple_pp = np.where(rise > 0.1 * pp, np.maximum(pp - rise, 0.0), pp)
     return ChannelStats(
         name=name, unit=unit, samples=int(total),
         minimum=float(lo.min()) if total else float("nan"), mean=mean,
         maximum=float(hi.max()) if total else float("nan"),
         std=float(np.sqrt(m2 / (total - 1))) if total > 1 else float("nan"),
-        ripple_pp=_typical_worst(pp[quiet]), ripple_rms=_typical_worst(rms[quiet]),
+        ripple_pp=_typical_worst(ripple_pp[quiet]), ripple_rms=_typical_worst(rms[quiet]),
         integral=float(table[f"{name}_int"].to_numpy().sum()),
         below_s=_total_s(events, ("brownout", "dropout"), name),
         above_s=_total_s(events, ("overvoltage", "overcurrent"), name),
@@ -215,17 +221,54 @@ def _detrended_m2(table: pa.Table, name: str, have: np.ndarray) -> np.ndarray:
     return np.maximum(m2 - trend, 0.0)
 
 
-def _in_events(device_s: np.ndarray, events: pa.Table | None, name: str) -> np.ndarray:
-    """Which seconds an excursion on this channel (a dip, an over-limit, a flicker) touched: left out of the
-    ripple, which describes the rail between events."""
+def _trend_rise(table: pa.Table, name: str, have: np.ndarray, n: np.ndarray) -> np.ndarray:
+    """How far each second's straight-line trend rises or falls across its samples, ``|slope| * T``, with
+    ``T = sqrt(12 t_m2 / n)`` the span of evenly spaced samples. Taken from the second's peak-to-peak it leaves
+    the ripple's, to within the slope times two ripple cycles (the highest sample may sit up to a cycle from
+    the end, the lowest a cycle from the start)."""
+    if "t_m2" not in table.column_names or f"{name}_mtx" not in table.column_names:
+        return np.zeros(len(n))
+    t_m2 = table["t_m2"].to_numpy()[have]
+    with np.errstate(invalid="ignore", divide="ignore"):
+        slope = np.where(t_m2 > 0, table[f"{name}_mtx"].to_numpy()[have] / t_m2, 0.0)
+    return np.abs(slope) * np.sqrt(12.0 * t_m2 / n)
+
+
+def _stepped(table: pa.Table, name: str, have: np.ndarray, device_s: np.ndarray, pp: np.ndarray) -> np.ndarray:
+    """Which seconds held a step (a load switched, a range changed): the level moved between the seconds on
+    either side by more than the second's own straight-line trend explains, by over a quarter of its
+    peak-to-peak. A straight line through a step leaves the step in the residual, so such a second is not
+    ripple; the step shows as the largest excursion instead. A ramp or a charge curve moves as its trend says
+    and stays in."""
+    stepped = np.zeros(len(device_s), dtype=bool)
+    if "t_m2" not in table.column_names or f"{name}_mtx" not in table.column_names or len(device_s) < 3:
+        return stepped
+    mean = table[f"{name}_mean"].to_numpy()[have]
+    t_m2 = table["t_m2"].to_numpy()[have]
+    with np.errstate(invalid="ignore", divide="ignore"):
+        slope = np.where(t_m2 > 0, table[f"{name}_mtx"].to_numpy()[have] / t_m2, 0.0)  # units per second
+    at = device_s + (np.nan_to_num(table["t_mean"].to_numpy()[have]) if "t_mean" in table.column_names else 0.5)
+    inner = slice(1, -1)
+    neighbours = (device_s[2:] - device_s[:-2]) == 2  # both neighbours there, no gap between
+    moved = mean[2:] - mean[:-2]
+    explained = slope[inner] * (at[2:] - at[:-2])
+    stepped[inner] = neighbours & (np.abs(moved - explained) > 0.25 * pp[inner])
+    return stepped
+
+
+def _in_events(device_s: np.ndarray, events: pa.Table | None) -> np.ndarray:
+    """Which seconds an excursion (a dip, an over-limit, a flicker) on any channel touched: left out of the
+    ripple, which describes the rails between events. Any channel's: a dip on a rail shows in its current, and
+    in the supply of a meter it feeds, without being an event there. The second after an event's end goes too:
+    a rail or a meter's capacitor is still recovering in it."""
     inside = np.zeros(len(device_s), dtype=bool)
     if events is None or events.num_rows == 0 or "device_start_us" not in events.column_names:
         return inside
-    for row in events.select(["kind", "channel", "device_start_us", "device_end_us"]).to_pylist():
-        if row["channel"] != name or row["kind"] not in FAULTS or row["device_start_us"] is None:
+    for row in events.select(["kind", "device_start_us", "device_end_us"]).to_pylist():
+        if row["kind"] not in FAULTS or row["device_start_us"] is None:
             continue
         end = row["device_end_us"] if row["device_end_us"] is not None else row["device_start_us"]
-        inside |= (device_s >= row["device_start_us"] // 1_000_000) & (device_s <= end // 1_000_000)
+        inside |= (device_s >= row["device_start_us"] // 1_000_000) & (device_s <= end // 1_000_000 + 1)
     return inside
 
 

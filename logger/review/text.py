@@ -66,10 +66,11 @@ def summary_text(s: Summary) -> str:
             f"| {c.name} | {c.unit} | {_v(c.minimum, c)} | {_v(c.mean, c)} | {_v(c.maximum, c)} | {_v(c.std, c)} "
             f"| {_v(c.ripple_pp[0], c)} / {_v(c.ripple_pp[1], c)} | {_v(c.ripple_rms[0], c)} / "
             f"{_v(c.ripple_rms[1], c)} | {_v(c.excursion, c)} | {c.below_s:.3f} s | {c.above_s:.3f} s |")
-    lines += ["", "ripple: within one-second windows that no event touched, about each window's straight-line "
-              "trend (a sag or a charge curve is not ripple); its peak-to-peak is only as fine as the sampling "
-              "(a 100 Hz ripple sampled at 1 kHz reads about 4.8 mV for 5.0 mV: the peaks fall between samples). "
-              "Steps and dips show as the largest excursion."]
+    lines += ["", "ripple: within one-second windows that no event touched (nor the second after one) and in which the "
+              "level did not step, "
+              "about each window's straight-line trend (a sag or a charge curve is not ripple); its peak-to-peak is "
+              "only as fine as the sampling (a 100 Hz ripple sampled at 1 kHz reads about 4.8 mV for 5.0 mV: the "
+              "peaks fall between samples). Steps and dips show as the largest excursion."]
     if s.rails:
         lines += ["", "| rail | charge | energy |", "|---|---|---|"]
         lines += [f"| {r.rail} | {r.charge_ah:.6g} Ah | {r.energy_wh:.6g} Wh |" for r in s.rails]
