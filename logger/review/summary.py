@@ -186,8 +186,10 @@ def _channel(table: pa.Table, name: str, unit: str, events: pa.Table | None) -> 
     pp = hi - lo
     device_s = table["device_s"].to_numpy()[have]
     rms = np.sqrt(_detrended_m2(table, name, have) / n)
-    quiet = ~_in_events(device_s, events) & ~_stepped(table, name, have, device_s, pp)
     rise = _trend_rise(table, name, have, n)
+    same = device_s[1:] == device_s[:-1]  # a second split between two parts: each row holds only some of it
+    split = np.r_[same, False] | np.r_[False, same]
+    quiet = ~_in_events(device_s, events) & ~_stepped(table, name, have, device_s, pp, rise) & ~split
     # A tenth of the peak-to-peak or less is what a line fitted to whole cycles of a 10 Hz or faster ripple
     # rises by itself (12 A / (2 pi f T) for amplitude A): no trend to take out.
     ripple_pp = np.where(rise > 0.1 * pp, np.maximum(pp - rise, 0.0), pp)
@@ -234,12 +236,14 @@ def _trend_rise(table: pa.Table, name: str, have: np.ndarray, n: np.ndarray) -> 
     return np.abs(slope) * np.sqrt(12.0 * t_m2 / n)
 
 
-def _stepped(table: pa.Table, name: str, have: np.ndarray, device_s: np.ndarray, pp: np.ndarray) -> np.ndarray:
-    """Which seconds held a step (a load switched, a range changed): the level moved between the seconds on
-    either side by more than the second's own straight-line trend explains, by over a quarter of its
-    peak-to-peak. A straight line through a step leaves the step in the residual, so such a second is not
-    ripple; the step shows as the largest excursion instead. A ramp or a charge curve moves as its trend says
-    and stays in."""
+def _stepped(table: pa.Table, name: str, have: np.ndarray, device_s: np.ndarray, pp: np.ndarray,
+             rise: np.ndarray) -> np.ndarray:
+    """Which seconds held a step (a load switched, a range changed). The level moved between the seconds on
+    either side by more than the second's own straight-line trend explains (by over a quarter of its
+    peak-to-peak), or, for a step near the second's edge that the line happens to explain, by over half its
+    peak-to-peak while the neighbours themselves stayed level (their trends rise less than half the move). A
+    straight line through a step leaves the step in the residual, so such a second is not ripple; the step shows
+    as the largest excursion instead. A ramp or a charge curve moves as its trend says and stays in."""
     stepped = np.zeros(len(device_s), dtype=bool)
     if "t_m2" not in table.column_names or f"{name}_mtx" not in table.column_names or len(device_s) < 3:
         return stepped
@@ -251,8 +255,9 @@ def _stepped(table: pa.Table, name: str, have: np.ndarray, device_s: np.ndarray,
     inner = slice(1, -1)
     neighbours = (device_s[2:] - device_s[:-2]) == 2  # both neighbours there, no gap between
     moved = mean[2:] - mean[:-2]
-    explained = slope[inner] * (at[2:] - at[:-2])
-    stepped[inner] = neighbours & (np.abs(moved - explained) > 0.25 * pp[inner])
+    unexplained = np.abs(moved - slope[inner] * (at[2:] - at[:-2])) > 0.25 * pp[inner]
+    level_around = (np.abs(moved) > 0.5 * pp[inner]) & (np.abs(moved) > 2.0 * (rise[2:] + rise[:-2]))
+    stepped[inner] = neighbours & (unexplained | level_around)
     return stepped
 
 
