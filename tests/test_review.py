@@ -104,6 +104,10 @@ def test_a_load_step_is_not_ripple_and_a_ramp_is_taken_out_of_the_peak_to_peak(t
     assert stepped.ripple_pp == pytest.approx((sampled_pp, sampled_pp), abs=1e-4)
     assert stepped.ripple_rms == pytest.approx((a / np.sqrt(2), a / np.sqrt(2)), rel=1e-3)
     assert stepped.excursion == pytest.approx(0.2 + sampled_pp, abs=1e-3)
+    for at_s in (5.02, 5.1, 5.9, 5.97):  # near a second's edge a line through the step explains some of it
+        edge = summarize(_write_run(tmp_path / f"edge{at_s}", t, 12.0 + ripple - 0.2 * (t >= at_s),
+                                    np.ones(len(t)), rate_hz=1000.0)).channels[0]
+        assert edge.ripple_pp[1] == pytest.approx(sampled_pp, abs=1e-4)
     ramp = summarize(_write_run(tmp_path / "ramp", t, 12.0 + ripple + 0.1 * t, np.ones(len(t)),
                                 rate_hz=1000.0)).channels[0]
     assert ramp.ripple_pp[1] == pytest.approx(sampled_pp, abs=0.1 * 2 / 100)
