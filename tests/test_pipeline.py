@@ -352,3 +352,24 @@ def test_the_frame_rate_is_the_devices_even_when_reads_run_ahead(tmp_path: Path)
             rates.append(rate)
     assert len(rates) > 5
     assert all(900.0 < r < 1100.0 for r in rates), (min(rates), max(rates))  # 1 kHz less the link's few losses
+
+
+def test_recording_a_port_loads_no_analysis_libraries(tmp_path: Path) -> None:
+    """Recording, sealing and the live screen's code need none of pandas, scipy or matplotlib: each costs tens
+    of megabytes and a CPU-second of start-up that a recorder on a small board cannot spare (issue figures:
+    pandas ~45 MB, scipy.stats ~60 MB). Only review, calibration and the simulated meter load them."""
+    script = f"""
+import sys
+import logger.cli, logger.tui
+from logger.ingest import Pipeline, Settings
+from logger.sim.device import SimDevice
+from logger.sim.simple import simple_rig
+from logger.sources.simulated import SimSource
+pipeline = Pipeline(SimSource(SimDevice(seed=1), speed=0, duration_s=3.0), simple_rig(),
+                    Settings(record_root={str(tmp_path)!r}))
+pipeline.start()
+assert pipeline.wait(120) and pipeline.final["status"] == "complete"
+print(sorted(m for m in ("pandas", "scipy", "matplotlib") if m in sys.modules))
+"""
+    out = subprocess.run([sys.executable, "-c", script], capture_output=True, text=True, timeout=300, check=True)
+    assert out.stdout.strip() == "[]"

@@ -17,7 +17,6 @@ from __future__ import annotations
 from dataclasses import dataclass, field, replace
 
 import numpy as np
-from scipy.stats import chi2 as chi2_distribution
 
 from logger.cal.fit import Fit, Piecewise, Polynomial, fit_polynomial, piecewise
 
@@ -134,7 +133,9 @@ def _checked(c: Candidate) -> Candidate:
     if c.fit is None or c.fit.chi2 is None or c.fit.dof == 0:
         return c
     birge = float(np.sqrt(c.fit.chi2 / c.fit.dof))
-    limit = float(chi2_distribution.ppf(CONSISTENCY, c.fit.dof))
+    from scipy.stats import chi2  # here, not at the top: scipy.stats costs ~60 MB that recording never needs
+
+    limit = float(chi2.ppf(CONSISTENCY, c.fit.dof))
     curve = c.curve
     if birge > 1.0:
         curve = replace(curve, covariance=tuple(tuple(v * birge**2 for v in row) for row in curve.covariance))

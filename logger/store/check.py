@@ -7,15 +7,18 @@ from __future__ import annotations
 
 from collections.abc import Iterator
 from contextlib import contextmanager
+from functools import cache
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import pyarrow as pa
-import pyarrow.dataset as ds
 import pyarrow.parquet as pq
 
 from logger.store.files import StoreError, one_line, read_run_json
 from logger.store.layout import EVENTS_PARQUET, parts_in
+
+if TYPE_CHECKING:
+    import pyarrow.dataset as ds
 
 
 def check_readable(folder: Path, *, parts: bool = True) -> None:
@@ -41,9 +44,16 @@ def _footer(path: Path, what: str) -> None:
         raise StoreError(f"{path} is not a readable Parquet file ({one_line(str(exc))}); it is {what}") from None
 
 
-VERIFIED = ds.ParquetFileFormat(
-    default_fragment_scan_options=ds.ParquetFragmentScanOptions(page_checksum_verification=True))
-"""The Parquet format with page checksums verified, for pyarrow datasets over sample parts."""
+@cache
+def verified_format() -> ds.ParquetFileFormat:
+    """The Parquet format with page checksums verified, for pyarrow datasets over sample parts.
+
+    Built on first use: importing ``pyarrow.dataset`` imports pandas (some 45 MB), which a recorder never needs.
+    """
+    import pyarrow.dataset as ds
+
+    return ds.ParquetFileFormat(
+        default_fragment_scan_options=ds.ParquetFragmentScanOptions(page_checksum_verification=True))
 
 
 def open_part(part: Path) -> pq.ParquetFile:
@@ -53,7 +63,9 @@ def open_part(part: Path) -> pq.ParquetFile:
 
 def parts_dataset(source: Path | list[str], **options: Any) -> ds.Dataset:
     """The sample parts of a run folder (or the files listed) as one pyarrow dataset, pages verified."""
-    return ds.dataset(source if isinstance(source, list) else str(source), format=VERIFIED, **options)
+    import pyarrow.dataset as ds
+
+    return ds.dataset(source if isinstance(source, list) else str(source), format=verified_format(), **options)
 
 
 def damaged_part(part: Path, exc: Exception) -> str:

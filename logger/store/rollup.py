@@ -100,7 +100,7 @@ def rollup_table(seconds: Seconds) -> pa.Table:
     merged = seconds.merged()
     width = len(seconds.channels)
     columns: dict[str, pa.Array] = {
-        "utc": pa.array(merged["utc"], type=pa.int64()).cast(UTC_TYPE),
+        "utc": from_numpy(merged["utc"].astype(np.int64), UTC_TYPE),
         "device_s": from_numpy(merged["key"].astype(np.int64), pa.int64()),
         "count": from_numpy(merged["count"].astype(np.int64), pa.int64()),
         "covered_s": from_numpy(merged["covered"], pa.float64()),
