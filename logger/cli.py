@@ -20,7 +20,6 @@ from logger.cal.session import CalError
 from logger.console import print_status, report
 from logger.durations import duration_arg
 from logger.ingest import Pipeline, Settings
-from logger.ingest.recorder import use_lean_allocator
 from logger.plan import PlanError, add_plan_command
 from logger.review.command import add_review_commands
 from logger.rig import Rig, RigError, demo_rig_text, load_rig
@@ -446,7 +445,6 @@ def _sim_source(scenario: Scenario, speed: float | None, seed: int, duration_s: 
 
 def _record(source: Source, rig: Rig, args: argparse.Namespace, screen: bool = False) -> int:
     """Record until stopped, showing the live screen (``screen``) or status lines; then seal and report."""
-    use_lean_allocator()
     check_writable(args.out)
     _recover_leftovers(args.out)
     settings = Settings(

@@ -5,8 +5,7 @@ things (mark, zero, profile, reset, record on or off, stop); the ingest thread d
 from __future__ import annotations
 
 from logger.ingest.pipeline import Pipeline, Settings
-from logger.ingest.recorder import Recorder, run_metadata, use_lean_allocator
+from logger.ingest.recorder import Recorder, run_metadata
 from logger.ingest.state import LinkHealth, RecordingState, Ring, Snapshot
 
-__all__ = ["LinkHealth", "Pipeline", "Recorder", "RecordingState", "Ring", "Settings", "Snapshot", "run_metadata",
-           "use_lean_allocator"]
+__all__ = ["LinkHealth", "Pipeline", "Recorder", "RecordingState", "Ring", "Settings", "Snapshot", "run_metadata"]

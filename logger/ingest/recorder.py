@@ -187,12 +187,3 @@ def run_metadata(rig: Rig, header: DeviceHeader, source: str, gap_s: float) -> d
         },
     }
 
-
-def use_lean_allocator() -> None:
-    """Make pyarrow allocate with the C library's malloc for the rest of this process.
-
-    A recorder allocates and frees the same few megabytes all day; the C allocator hands them back, while
-    pyarrow's default pool keeps more resident. Measured on a simulated 24 h, 1 kHz, two-channel run: flat at
-    140-144 MB with this, 148-155 MB without (118 MB of either is the libraries themselves), at the same speed.
-    """
-    pa.set_memory_pool(pa.system_memory_pool())

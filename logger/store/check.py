@@ -58,7 +58,7 @@ def verified_format() -> ds.ParquetFileFormat:
 
 def open_part(part: Path) -> pq.ParquetFile:
     """A sealed sample part, its pages verified against their checksums as they are read."""
-    return pq.ParquetFile(part, page_checksum_verification=True)
+    return pq.ParquetFile(part, page_checksum_verification=True, pre_buffer=False)
 
 
 def parts_dataset(source: Path | list[str], **options: Any) -> ds.Dataset:

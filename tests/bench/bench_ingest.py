@@ -29,7 +29,6 @@ from pathlib import Path
 import serial
 
 from logger.ingest import Pipeline, Settings
-from logger.ingest.recorder import use_lean_allocator
 from logger.sim.device import SimDevice
 from logger.sim.simple import simple_rig
 from logger.sources.serial_port import SerialSource
@@ -140,7 +139,6 @@ def cpu_at_1khz(seconds: float, out: Path) -> tuple[float, int]:
 
 
 def long_run(hours: float, out: Path) -> dict[str, float]:
-    use_lean_allocator()  # as `railtap record` does
     source = SimSource(SimDevice(seed=12), speed=0, duration_s=hours * 3600.0)
     pipeline = Pipeline(source, RIG, Settings(record_root=out))
     t0 = time.perf_counter()

@@ -18,7 +18,6 @@ import time
 from pathlib import Path
 
 from logger.ingest import Pipeline, Settings
-from logger.ingest.recorder import use_lean_allocator
 from logger.sim.device import LinkFaults, SimDevice
 from logger.sim.scenario import load_scenario
 from logger.sources.simulated import SimSource
@@ -75,7 +74,6 @@ def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--seconds", type=float, default=15.0)
     args = parser.parse_args()
-    use_lean_allocator()
     with tempfile.TemporaryDirectory() as tmp:
         bare, frames_a, lost_a = measure_headless(Path(tmp) / "a", args.seconds)
         screen, frames_b, lost_b = measure_screen(Path(tmp) / "b", args.seconds)
