@@ -185,14 +185,18 @@ def _channel(table: pa.Table, name: str, unit: str, events: pa.Table | None) -> 
     m2 = float(m2_s.sum() + (n * (mean_s - mean) ** 2).sum())  # variances of parts combined exactly
     pp = hi - lo
     device_s = table["device_s"].to_numpy()[have]
-    rms = np.sqrt(_detrended_m2(table, name, have) / n)
-    rise = _trend_rise(table, name, have, n)
+    slope, t_m2 = _slopes(table, name, have)
+    rms = np.sqrt(np.maximum(m2_s - slope**2 * t_m2, 0.0) / n)  # the spread about each second's trend
+    # How far each second's trend rises across its samples (|slope| T, T = sqrt(12 t_m2 / n) for evenly spaced
+    # samples). Taken from the peak-to-peak it leaves the ripple's, to within the slope times two ripple cycles
+    # (the highest sample may sit up to a cycle from the end, the lowest a cycle from the start). A tenth of the
+    # peak-to-peak or less is what a line fitted to whole cycles of a 10 Hz or faster ripple rises by itself
+    # (12 A / (2 pi f T) for amplitude A): no trend to take out.
+    rise = np.abs(slope) * np.sqrt(12.0 * t_m2 / n)
+    ripple_pp = np.where(rise > 0.1 * pp, np.maximum(pp - rise, 0.0), pp)
     same = device_s[1:] == device_s[:-1]  # a second split between two parts: each row holds only some of it
     split = np.r_[same, False] | np.r_[False, same]
-    quiet = ~_in_events(device_s, events) & ~_stepped(table, name, have, device_s, pp, rise) & ~split
-    # A tenth of the peak-to-peak or less is what a line fitted to whole cycles of a 10 Hz or faster ripple
-    # rises by itself (12 A / (2 pi f T) for amplitude A): no trend to take out.
-    ripple_pp = np.where(rise > 0.1 * pp, np.maximum(pp - rise, 0.0), pp)
+    quiet = ~_in_events(device_s, events) & ~_stepped(mean_s, slope, device_s, pp, rise) & ~split
     return ChannelStats(
         name=name, unit=unit, samples=int(total),
         minimum=float(lo.min()) if total else float("nan"), mean=mean,
@@ -210,33 +214,19 @@ def _typical_worst(values: np.ndarray) -> tuple[float, float]:
     return (float(np.median(values)), float(values.max())) if len(values) else (float("nan"),) * 2
 
 
-def _detrended_m2(table: pa.Table, name: str, have: np.ndarray) -> np.ndarray:
-    """Each second's spread about its own straight-line trend: the slow part (a sag, a charge curve) is not
-    ripple. Rollups written before the trend was kept give the spread about the mean."""
-    m2 = table[f"{name}_m2"].to_numpy()[have]
+def _slopes(table: pa.Table, name: str, have: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Each second's straight-line trend, units per second, and the spread of its sample times (``t_m2``);
+    zeros for rollups written before the trend was kept (their figures are then about the mean)."""
     if "t_m2" not in table.column_names or f"{name}_mtx" not in table.column_names:
-        return m2
-    t_m2 = table["t_m2"].to_numpy()[have]
-    mtx = table[f"{name}_mtx"].to_numpy()[have]
-    with np.errstate(invalid="ignore", divide="ignore"):
-        trend = np.where(t_m2 > 0, mtx**2 / t_m2, 0.0)
-    return np.maximum(m2 - trend, 0.0)
-
-
-def _trend_rise(table: pa.Table, name: str, have: np.ndarray, n: np.ndarray) -> np.ndarray:
-    """How far each second's straight-line trend rises or falls across its samples, ``|slope| * T``, with
-    ``T = sqrt(12 t_m2 / n)`` the span of evenly spaced samples. Taken from the second's peak-to-peak it leaves
-    the ripple's, to within the slope times two ripple cycles (the highest sample may sit up to a cycle from
-    the end, the lowest a cycle from the start)."""
-    if "t_m2" not in table.column_names or f"{name}_mtx" not in table.column_names:
-        return np.zeros(len(n))
+        zeros = np.zeros(int(have.sum()))
+        return zeros, zeros
     t_m2 = table["t_m2"].to_numpy()[have]
     with np.errstate(invalid="ignore", divide="ignore"):
         slope = np.where(t_m2 > 0, table[f"{name}_mtx"].to_numpy()[have] / t_m2, 0.0)
-    return np.abs(slope) * np.sqrt(12.0 * t_m2 / n)
+    return slope, t_m2
 
 
-def _stepped(table: pa.Table, name: str, have: np.ndarray, device_s: np.ndarray, pp: np.ndarray,
+def _stepped(mean: np.ndarray, slope: np.ndarray, device_s: np.ndarray, pp: np.ndarray,
              rise: np.ndarray) -> np.ndarray:
     """Which seconds held a step (a load switched, a range changed). The level moved between the seconds on
     either side by more than the second's own straight-line trend explains (by over a quarter of its
@@ -245,17 +235,12 @@ def _stepped(table: pa.Table, name: str, have: np.ndarray, device_s: np.ndarray,
     straight line through a step leaves the step in the residual, so such a second is not ripple; the step shows
     as the largest excursion instead. A ramp or a charge curve moves as its trend says and stays in."""
     stepped = np.zeros(len(device_s), dtype=bool)
-    if "t_m2" not in table.column_names or f"{name}_mtx" not in table.column_names or len(device_s) < 3:
+    if len(device_s) < 3:
         return stepped
-    mean = table[f"{name}_mean"].to_numpy()[have]
-    t_m2 = table["t_m2"].to_numpy()[have]
-    with np.errstate(invalid="ignore", divide="ignore"):
-        slope = np.where(t_m2 > 0, table[f"{name}_mtx"].to_numpy()[have] / t_m2, 0.0)  # units per second
-    at = device_s + (np.nan_to_num(table["t_mean"].to_numpy()[have]) if "t_mean" in table.column_names else 0.5)
     inner = slice(1, -1)
-    neighbours = (device_s[2:] - device_s[:-2]) == 2  # both neighbours there, no gap between
+    neighbours = (device_s[2:] - device_s[:-2]) == 2  # both neighbours there, no gap between: 2 s apart
     moved = mean[2:] - mean[:-2]
-    unexplained = np.abs(moved - slope[inner] * (at[2:] - at[:-2])) > 0.25 * pp[inner]
+    unexplained = np.abs(moved - 2.0 * slope[inner]) > 0.25 * pp[inner]
     level_around = (np.abs(moved) > 0.5 * pp[inner]) & (np.abs(moved) > 2.0 * (rise[2:] + rise[:-2]))
     stepped[inner] = neighbours & (unexplained | level_around)
     return stepped
