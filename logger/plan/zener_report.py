@@ -90,8 +90,8 @@ def _choice(rep: Report, feed: Feed) -> None:
 
 def _cycling(rep: Report, feed: Feed) -> None:
     """The row for the meter's on/off cycling between its restart and its drop-out inputs."""
-    low, high, cycle = format_value(feed.meter_restarts_at_v, "V"), format_value(feed.meter_runs_to_v, "V"), \
-        feed.cycling()
+    low, high = format_value(feed.meter_restarts_at_v, "V"), format_value(feed.meter_runs_to_v, "V")
+    cycle = feed.cycling()
     if cycle is None:
         rep.row("on/off cycling", f"none: once off below {high} input it stays off until the input is back above "
                                   f"{low}")

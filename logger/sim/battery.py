@@ -19,7 +19,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from logger.sim.supply import Fault, check_faults, fault_envelope
+from logger.sim.supply import Fault, check_faults, fault_envelope, scheduled
 
 LI_ION_SOC = (0.0, 0.02, 0.05, 0.10, 0.20, 0.30, 0.40, 0.50, 0.60, 0.70, 0.80, 0.90, 1.00)
 LI_ION_OCV_V = (3.00, 3.30, 3.47, 3.58, 3.66, 3.72, 3.76, 3.80, 3.86, 3.93, 4.01, 4.09, 4.20)
@@ -102,7 +102,7 @@ class Battery:
 
     def scheduled(self, until_s: float) -> list[Fault]:
         """Every fault starting before ``until_s`` (a pack runs down: its faults never repeat)."""
-        return [f for f in self.faults if f.start_s < until_s]
+        return scheduled(self.faults, until_s)
 
 
 class SocTrack:

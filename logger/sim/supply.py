@@ -79,6 +79,16 @@ def check_faults(faults: Sequence[Fault]) -> tuple[Fault, ...]:
     return ordered
 
 
+def scheduled(faults: Sequence[Fault], until_s: float, period_s: float | None = None) -> list[Fault]:
+    """The faults starting before ``until_s``, started again every ``period_s`` if given (one period of them when
+    ``until_s`` is unbounded)."""
+    if period_s is None:
+        return [f for f in faults if f.start_s < until_s]
+    rounds = 1 if math.isinf(until_s) else math.ceil(until_s / period_s)
+    shifted = (replace(f, start_s=f.start_s + k * period_s) for k in range(rounds) for f in faults)
+    return [f for f in shifted if f.start_s < until_s]
+
+
 def fault_envelope(faults: Sequence[Fault], t_s: np.ndarray) -> np.ndarray:
     """Fraction of the set-point the faults leave at each time (1 where none is active).
 
@@ -139,8 +149,4 @@ class RegulatedSupply:
 
     def scheduled(self, until_s: float) -> list[Fault]:
         """Every fault starting before ``until_s``, repeats included (one period of them if it is unbounded)."""
-        if self.period_s is None:
-            return [f for f in self.faults if f.start_s < until_s]
-        rounds = 1 if math.isinf(until_s) else math.ceil(until_s / self.period_s)
-        shifted = (replace(f, start_s=f.start_s + k * self.period_s) for k in range(rounds) for f in self.faults)
-        return [f for f in shifted if f.start_s < until_s]
+        return scheduled(self.faults, until_s, self.period_s)
