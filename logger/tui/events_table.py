@@ -14,7 +14,8 @@ from logger.events.model import Event
 from logger.tui.banner import FAULT_KINDS
 from logger.tui.fmt import duration_text, event_details, local_time
 
-ALERT_KINDS = ("brownout", "dropout", "overvoltage", "overcurrent", "flicker")
+ALERT_KINDS = FAULT_KINDS
+"""The faults: drawn in the alarm style, and what the first press of f keeps."""
 LINK_KINDS = ("frame_gap", "crc_burst", "link_lost", "device_reset")
 QUALITY_KINDS = ("outside_cal",)
 DIPS = ("brownout", "dropout")
