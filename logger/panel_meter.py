@@ -87,9 +87,13 @@ class MeterCircuit:
         """Which linear segment a node voltage is in: 0 below both breakpoints, 1 between them, 2 above."""
         return int(np.searchsorted(self.breakpoints, node_v, side="right"))
 
+    def bounds(self, k: int) -> tuple[float, float]:
+        """The node voltages segment ``k`` spans."""
+        return (-math.inf, *self.breakpoints)[k], (*self.breakpoints, math.inf)[k]
+
     def linear(self, on: bool, k: int) -> tuple[float, float]:
         """Current drawn from the node in segment ``k`` as ``g * V + i0``: returns ``(g, i0)``."""
-        low, high = ((-math.inf, *self.breakpoints)[k], (*self.breakpoints, math.inf)[k])
+        low, high = self.bounds(k)
         if not on:
             g, i0 = 1.0 / self.off_ohm, 0.0
         elif high <= self.knee_v:
@@ -142,7 +146,7 @@ class MeterCircuit:
         total, v = 0.0, from_v
         while v != to_v:
             k = self.segment(v) if to_v > v else self.segment(math.nextafter(v, -math.inf))
-            low, high = ((-math.inf, *self.breakpoints)[k], (*self.breakpoints, math.inf)[k])
+            low, high = self.bounds(k)
             end = min(to_v, high) if to_v > v else max(to_v, low)
             target, tau = self.thevenin(on, k, rail_v)
             if (end - target) * (v - target) <= 0.0:

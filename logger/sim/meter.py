@@ -60,8 +60,7 @@ class MeterNode:
         self._zi: float | None = None
         self._window = _MIN_WINDOW
         self._coef: dict[tuple[bool, int, float], tuple[float, ...]] = {}
-        lows, highs = (-math.inf, *circuit.breakpoints), (*circuit.breakpoints, math.inf)
-        self._bounds = {(on, k): self._limits(on, lows[k], highs[k]) for on in (False, True) for k in range(3)}
+        self._bounds = {(on, k): self._limits(on, *circuit.bounds(k)) for on in (False, True) for k in range(3)}
 
     @property
     def on(self) -> bool:
