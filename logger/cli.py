@@ -222,6 +222,9 @@ def cmd_sim(args: argparse.Namespace) -> int:
         return 0
     if not args.pty:
         raise UsageError("say --pty to serve the simulated rig, or --list to see its scenarios")
+    if not 0 < args.speed < float("inf"):
+        raise UsageError(f"--speed {args.speed:g} cannot be served on a pseudo-terminal, which stands in for a paced "
+                         "serial line; give a positive speed such as 100, or record --sim --speed 0 without a pty")
     stop = threading.Event()
     _on_signals(lambda: stop.set())
     scenario = _scenario(args.scenario or DEFAULT_SCENARIO)
