@@ -97,7 +97,8 @@ def _parser() -> argparse.ArgumentParser:
     sim.add_argument("--pty", action="store_true", help="serve on a new pseudo-terminal")
     sim.add_argument("--list", action="store_true", help="list the shipped scenarios")
     sim.add_argument("--scenario", metavar="NAME|FILE", help=f"a simulated scenario (default: {DEFAULT_SCENARIO})")
-    sim.add_argument("--speed", type=float, default=1.0, help="simulated seconds per real second")
+    sim.add_argument("--speed", type=float, default=1.0,
+                     help="simulated seconds per real second (0 = as fast as the reader takes it, nothing dropped)")
     sim.add_argument("--seed", type=int, default=1, help="random seed of the simulated rig")
     sim.add_argument("--write-rig", type=Path, metavar="FILE", help="also write the scenario's rig file here")
     sim.add_argument("--link", type=Path, metavar="PATH",
@@ -222,9 +223,8 @@ def cmd_sim(args: argparse.Namespace) -> int:
         return 0
     if not args.pty:
         raise UsageError("say --pty to serve the simulated rig, or --list to see its scenarios")
-    if not 0 < args.speed < float("inf"):
-        raise UsageError(f"--speed {args.speed:g} cannot be served on a pseudo-terminal, which stands in for a paced "
-                         "serial line; give a positive speed such as 100, or record --sim --speed 0 without a pty")
+    if not 0 <= args.speed < float("inf"):
+        raise UsageError(f"--speed {args.speed:g}: give 0 (as fast as the reader takes it) or a positive speed")
     stop = threading.Event()
     _on_signals(lambda: stop.set())
     scenario = _scenario(args.scenario or DEFAULT_SCENARIO)

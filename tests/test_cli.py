@@ -91,9 +91,9 @@ def test_missing_rig_file(tmp_path: Path) -> None:
         load_rig(tmp_path / "nope.toml")
 
 
-def test_sim_on_a_pty_refuses_an_unpaced_speed_in_one_line(capsys) -> None:
-    assert main(["sim", "--pty", "--speed", "0"]) == 2
-    assert "--speed 0 cannot be served on a pseudo-terminal" in _error_line(capsys)
+def test_sim_on_a_pty_refuses_a_negative_speed_in_one_line(capsys) -> None:
+    assert main(["sim", "--pty", "--speed", "-1"]) == 2
+    assert "--speed -1: give 0" in _error_line(capsys)
 
 
 def test_record_sim_fast_then_read_with_pandas(tmp_path: Path, capsys) -> None:

@@ -117,6 +117,38 @@ def test_end_to_end_through_a_pseudo_terminal() -> None:
     assert decoder.counters.rejected <= 1  # at most the tail of a line already on its way at connect
 
 
+@pytest.mark.skipif(sys.platform == "win32", reason="pseudo-terminals are POSIX")
+def test_an_unpaced_pty_waits_for_a_slow_reader_and_drops_nothing() -> None:
+    from logger.sources.pty_server import serve_on_pty
+
+    stop = threading.Event()
+    ready: queue.Queue[str] = queue.Queue()
+    result: list = []
+    server = threading.Thread(
+        target=lambda: result.append(serve_on_pty(lambda: SimDevice(seed=3, faults=LinkFaults()), 0, stop, ready.put)),
+        daemon=True,
+    )
+    server.start()
+    decoder = Decoder()
+    seq: list[np.ndarray] = []
+    try:
+        source = SerialSource(ready.get(timeout=5), 921600)
+        source.open()
+        deadline = time.monotonic() + 60
+        while sum(map(len, seq)) < 20_000 and time.monotonic() < deadline:
+            seq += [i.seq for i in decoder.feed(source.read().data) if isinstance(i, FrameBatch)]
+            if len(seq) % 5 == 0:
+                stop.wait(0.02)  # a reader that falls behind now and then
+        source.close()
+    finally:
+        stop.set()
+        server.join(timeout=5)
+    frames = np.concatenate(seq).astype(np.int64)
+    assert len(frames) >= 20_000
+    assert np.all(np.diff(frames) % (1 << 16) == 1)  # every frame, in order: nothing dropped
+    assert result and result[0].bytes_dropped == 0
+
+
 # -- raw captures ----------------------------------------------------------------------------------------
 
 

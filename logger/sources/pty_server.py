@@ -4,7 +4,9 @@ POSIX only (``os.openpty``). The server writes the device's bytes to the pty mas
 clock, and feeds whatever the client writes back to the device as host commands. The slave side is kept
 open by the server itself, so the pty stays configured whether or not a client is attached; when nobody
 reads, the pty buffer fills and the server drops bytes (and the stale ones queued in the pty) rather
-than block, much as a real tap's transmit buffer overflows when no host is listening.
+than block, much as a real tap's transmit buffer overflows when no host is listening. At speed 0 the server
+is unpaced instead: it writes as fast as the client reads and waits for it, dropping nothing, so a recorder can
+be measured on a simulated day without the simulator in its own process.
 """
 
 from __future__ import annotations
@@ -22,6 +24,9 @@ from logger.sim.device import SimDevice
 
 BACKLOG_LIMIT = 65536
 """Bytes held back while the client is not reading; beyond this they are dropped."""
+
+UNPACED_STEP_S = 0.05
+"""Simulated time generated at once by an unpaced server: a few kilobytes, about what a pty buffer holds."""
 
 
 @dataclass
@@ -48,7 +53,7 @@ def serve_on_pty(
     Args:
         device: the device, or a factory that makes one (called in the serving thread); a default
             :class:`SimDevice` seeded with ``seed`` when ``None``.
-        speed: simulated seconds per wall second (positive; a pty stands in for a paced serial line).
+        speed: simulated seconds per wall second; 0 serves as fast as the client reads, dropping nothing.
         stop_event: set it to stop; the pty is closed on the way out. ``None`` serves until interrupted.
         on_ready: called with the slave path (e.g. ``/dev/pts/7``) once clients may open it.
         seed: seed of the default device.
@@ -57,8 +62,8 @@ def serve_on_pty(
     Returns:
         Counts of bytes written, dropped and received.
     """
-    if not 0 < speed < float("inf"):
-        raise ValueError(f"speed must be positive and finite on a pty, got {speed}")
+    if not 0 <= speed < float("inf"):
+        raise ValueError(f"speed must be 0 (unpaced) or positive and finite on a pty, got {speed}")
     dev = _make_device(device, seed)
     stop_event = stop_event or threading.Event()
     master, slave = os.openpty()
@@ -68,7 +73,10 @@ def serve_on_pty(
         stats = PtyStats(path=os.ttyname(slave))
         if on_ready is not None:
             on_ready(stats.path)
-        _pump(dev, master, slave, speed, stop_event, tick_s, stats)
+        if speed == 0:
+            _pump_unpaced(dev, master, stop_event, tick_s, stats)
+        else:
+            _pump(dev, master, slave, speed, stop_event, tick_s, stats)
         return stats
     finally:
         os.close(master)
@@ -99,6 +107,24 @@ def _pump(
             stats.command_bytes += _take_commands(master, dev)
         backlog += dev.generate(sim0 + (time.monotonic() - wall0) * speed)
         _push(master, slave, backlog, stats)
+
+
+def _pump_unpaced(dev: SimDevice, master: int, stop_event: threading.Event, tick_s: float, stats: PtyStats) -> None:
+    """Generate the next stretch whenever the last is written; wait for the client to read, never drop."""
+    backlog = b""
+    while not stop_event.is_set():
+        if not backlog:
+            backlog = dev.generate(dev.now_s + UNPACED_STEP_S)
+        readable, writable, _ = select.select([master], [master], [], tick_s)
+        if readable:
+            stats.command_bytes += _take_commands(master, dev)
+        if writable:
+            try:
+                written = os.write(master, backlog)
+            except BlockingIOError:
+                written = 0
+            backlog = backlog[written:]
+            stats.bytes_written += written
 
 
 def _take_commands(master: int, dev: SimDevice) -> int:
