@@ -450,6 +450,9 @@ def _record(source: Source, rig: Rig, args: argparse.Namespace, screen: bool = F
     """Record until stopped, showing the live screen (``screen``) or status lines; then seal and report."""
     check_writable(args.out)
     _recover_leftovers(args.out)
+    # A recorder's Arrow buffers are small and short-lived (its parts are sealed in child processes): the C
+    # library's allocator hands them back, where Arrow's default pool kept ~15 MB more (tests/bench/bench_memory.py).
+    pa.set_memory_pool(pa.system_memory_pool())
     settings = Settings(
         record_root=args.out,
         label=args.label,

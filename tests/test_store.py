@@ -20,6 +20,7 @@ import pyarrow as pa
 import pyarrow.dataset as ds
 import pyarrow.parquet as pq
 import pytest
+from fakes import wait_until
 
 import logger.store.journal as journal_module
 import logger.store.seal as seal_module
@@ -313,6 +314,7 @@ def test_readers_skip_journal_and_temp_files_while_recording(tmp_path: Path) -> 
     writer.append(make_batch(0, 1500))
     writer.add_event({"kind": "mark", "start": T0_US})
     (folder / "_part-00001.parquet.tmp").write_bytes(b"half a file")
+    wait_until(lambda: (folder / "part-00000.parquet").exists(), "the first part sealed on the sealing thread")
     assert {p.name for p in folder.iterdir()} >= {"_journal-00001.arrows", "_events.arrows", "part-00000.parquet"}
     assert read_seq(folder).tolist() == list(range(1000))
     assert len(pd.read_parquet(folder)) == 1000
@@ -324,10 +326,12 @@ def test_readers_skip_journal_and_temp_files_while_recording(tmp_path: Path) -> 
 KILL_SCRIPT = r"""
 import sys
 from pathlib import Path
+sys.path.insert(0, "tests")
 from tests.test_store import SCHEMA, T0_US, make_batch
 from logger.store import RunWriter
 
-writer = RunWriter(Path(sys.argv[1]), SCHEMA, {"test": "kill -9"}, part_seconds=0.5, flush_seconds=0.01)
+writer = RunWriter(Path(sys.argv[1]), SCHEMA, {"test": "kill -9"}, part_seconds=0.5, flush_seconds=0.01,
+                   seal_in_child=True)
 start = 0
 while True:
     writer.append(make_batch(start, 37))
@@ -361,7 +365,8 @@ def test_kill_9_then_recover(tmp_path: Path, seed: int) -> None:
         proc.wait()
     reported = [int(x) for x in (line + rest).splitlines()[:-1] if x.strip()]  # the last line may be torn
     assert read_run_json(folder)["status"] == "recording"
-    assert find_unfinished(tmp_path) == [folder]
+    # A part being sealed in a child process when the writer died keeps the run locked until it is sealed.
+    wait_until(lambda: find_unfinished(tmp_path) == [folder], "the run to be unlocked and unfinished")
 
     final = recover_run(folder)
     seq = read_seq(folder)
@@ -538,6 +543,43 @@ def test_disk_full_while_sealing_keeps_the_journal(tmp_path: Path, monkeypatch: 
     assert (folder / "_journal-00000.arrows").exists() and not (folder / "part-00000.parquet").exists()
     monkeypatch.undo()
     assert recover_run(folder)["rows"] == 700
+
+
+def test_a_part_closed_mid_run_is_sealed_in_a_child_process_while_the_journal_goes_on(tmp_path: Path) -> None:
+    folder = tmp_path / "run"
+    writer = RunWriter(folder, SCHEMA, {}, part_seconds=1.0, flush_seconds=0.0, seal_in_child=True)
+    writer.append(make_batch(0, 1500))  # rotates: part 0 goes to the sealer, rows of part 1 to its journal
+    writer.append(make_batch(1500, 600))  # taken at once, whatever the seal is doing
+    assert writer.durable_rows == 2100
+    wait_until(lambda: (folder / "_rollup-00000.parquet").exists(), "part 0 and its rollup from the sealer")
+    assert pq.read_metadata(folder / "part-00000.parquet").num_rows == 1000
+    final = writer.close("done")
+    assert [p["rows"] for p in final["parts"]] == [1000, 1000, 100]
+    assert read_seq(folder).tolist() == list(range(2100))
+    assert not list(folder.glob("_journal-*")) and (folder / "_rollup-00002.parquet").exists()
+
+
+def test_a_seal_that_fails_in_the_child_fails_the_run_in_one_line_and_keeps_the_journal(tmp_path: Path) -> None:
+    folder = tmp_path / "run"
+    writer = RunWriter(folder, SCHEMA, {}, part_seconds=1.0, flush_seconds=0.0, seal_in_child=True)
+    (folder / "part-00000.parquet").mkdir()  # something in the way of the sealed file
+    writer.append(make_batch(0, 1500))
+
+    def failed() -> bool:
+        try:
+            writer.tick()
+        except StoreError:
+            return True
+        return False
+
+    wait_until(failed, "the sealer's failure to reach the writer")
+    with pytest.raises(StoreError) as caught:
+        writer.append(make_batch(1500, 10))
+    message = str(caught.value)
+    assert "\n" not in message and "part-00000.parquet" in message and f"railtap recover {folder}" in message
+    assert (folder / "_journal-00000.arrows").exists() and read_run_json(folder)["status"] == "failed"
+    (folder / "part-00000.parquet").rmdir()
+    assert recover_run(folder)["rows"] == 1500
 
 
 def test_unwritable_place_gives_one_line(tmp_path: Path) -> None:

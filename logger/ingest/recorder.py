@@ -47,7 +47,7 @@ class Recorder:
         # Bounded, so a source faster than the disk (a replay, the simulator at full speed) waits for it; 64
         # batches of 0.1 s ride out several seconds of a stalled disk on a live port before ingest waits.
         self._queue: queue.Queue[Any] = queue.Queue(maxsize=64)
-        self._writer = new_run(root, label, schema, metadata, part_seconds=part_seconds)
+        self._writer = new_run(root, label, schema, metadata, part_seconds=part_seconds, seal_in_child=True)
         self.folder: Path = self._writer.folder
         self._raw = RawCaptureWriter(self.folder / "_raw.arrows") if keep_raw else None
         self._stop_reason = "stopped"

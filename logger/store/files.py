@@ -214,6 +214,11 @@ class RunLock:
         """True while this object holds the lock."""
         return self._fd is not None
 
+    def fileno(self) -> int | None:
+        """The locked descriptor while held: a child process given it holds the lock with its parent, until
+        both have ended (POSIX)."""
+        return self._fd
+
 
 def lock_is_free(folder: Path) -> bool:
     """True when no live process holds the run lock of ``folder``. Checked through a read-only descriptor, so a

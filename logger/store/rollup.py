@@ -10,11 +10,9 @@ run sum to exactly the full-rate integral.
 
 from __future__ import annotations
 
-import contextlib
 import os
-import threading
 from collections.abc import Callable
-from concurrent.futures import Future, ThreadPoolExecutor
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -153,36 +151,6 @@ def write_rollup(folder: Path, index: int, pairs: list[Pair], gap: int = round(G
         pa.default_memory_pool().release_unused()  # the part's decoded pages: back to the system, not kept
     fsync_dir(folder)
     return target
-
-
-class RollupQueue:
-    """Writes rollups of freshly sealed parts on a thread of its own, one at a time, so the recorder goes
-    straight back to the journal; a rollup that fails is left to be rebuilt when it is first read."""
-
-    def __init__(self, folder: Path, pairs: list[Pair], gap: int = round(GAP_S * 1e6)) -> None:
-        self.folder = folder
-        self.pairs = pairs
-        self.gap = gap
-        self._pool: ThreadPoolExecutor | None = None
-        self._pending: list[Future[Path]] = []
-        self._lock = threading.Lock()
-
-    def add(self, index: int) -> None:
-        with self._lock:
-            if self._pool is None:
-                self._pool = ThreadPoolExecutor(max_workers=1, thread_name_prefix="railtap-rollup")
-            self._pending.append(self._pool.submit(write_rollup, self.folder, index, self.pairs, self.gap))
-
-    def wait(self) -> None:
-        """Until every queued rollup is written (or has failed: it is derived data, rebuilt on demand)."""
-        with self._lock:
-            pending, self._pending = self._pending, []
-        for future in pending:
-            with contextlib.suppress(Exception):
-                future.result()
-        if self._pool is not None:
-            self._pool.shutdown(wait=True)
-            self._pool = None
 
 
 @dataclass(frozen=True)

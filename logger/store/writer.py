@@ -37,11 +37,12 @@ from logger.store.files import (
     write_json_atomic,
 )
 from logger.store.journal import JournalWriter
-from logger.store.layout import EVENTS_JOURNAL, EVENTS_PARQUET, journal_name, part_name
+from logger.store.layout import EVENTS_JOURNAL, EVENTS_PARQUET, journal_name
 from logger.store.meta import STORE_KEYS, finished_metadata, start_metadata
-from logger.store.rollup import RollupQueue, gap_us, pairs_of
+from logger.store.rollup import gap_us
 from logger.store.schema import channels_of, event_batch, event_schema
 from logger.store.seal import event_parquet_options, seal_journal, temp_name, write_empty
+from logger.store.sealer import PartSealer, SealFailed
 
 MAX_BUFFER_ROWS = 1 << 16
 
@@ -58,6 +59,9 @@ class RunWriter:
         part_seconds: Data time covered by one part.
         flush_seconds: Longest wall-clock time rows stay buffered in memory before the journal gets them.
         clock: Monotonic clock in seconds (injectable for tests).
+        seal_in_child: Seal parts in a child process each (see :mod:`logger.store.sealer`), so this
+            process never holds the memory a seal takes: what a day-long recorder wants. By default they
+            are sealed on the sealing thread in this process.
 
     Raises:
         ValueError: The schema is not a sample schema, an option is out of range, or ``metadata`` uses a key
@@ -74,6 +78,7 @@ class RunWriter:
         part_seconds: float = 3600.0,
         flush_seconds: float = 0.5,
         clock: Callable[[], float] = time.monotonic,
+        seal_in_child: bool = False,
     ) -> None:
         channels_of(schema)
         if part_seconds <= 0 or flush_seconds < 0:
@@ -99,7 +104,6 @@ class RunWriter:
         self._events: JournalWriter | None = None
         self._error: StoreError | None = None
         self._final: dict[str, Any] | None = None
-        self._rollups = RollupQueue(self.folder, pairs_of(metadata), gap_us(metadata))
         _prepare_folder(self.folder)
         self._lock = RunLock(self.folder)
         self._lock.acquire("record")
@@ -110,6 +114,8 @@ class RunWriter:
         }
         self._start = start_metadata({**defaults, **metadata}, schema, part_seconds)
         self._metadata: dict[str, Any] = {**self._start, "status": "recording"}
+        self._sealer = PartSealer(self.folder, self._start, gap_us(metadata), in_child=seal_in_child,
+                                  lock_fd=self._lock.fileno())
         self._journal: JournalWriter | None = None
         path = self.folder / RUN_JSON
         try:
@@ -217,7 +223,6 @@ class RunWriter:
         self.flush()
         self._finish_part()
         self._finish_events()
-        self._rollups.wait()
         last = utc_text(self._safe_until_us)
         self._metadata = finished_metadata(
             self._start, "complete", reason, utc_text(utc_now()), last, self._parts, self._event_count
@@ -281,6 +286,7 @@ class RunWriter:
             raise self._error
         if self._final is not None:
             raise ValueError(f"run {self.folder} is closed")
+        self._collect_sealed()
 
     def _flush_if_due(self) -> None:
         due = self._clock() - self._last_flush >= self._flush_s
@@ -288,9 +294,14 @@ class RunWriter:
             self.flush()
 
     def _rotate(self, slot: int) -> None:
-        """Close and seal the current part, then start the next one."""
+        """Close the current part's journal and hand it to the sealer, then start the next part."""
         self.flush()
-        self._finish_part()
+        assert self._journal is not None
+        try:
+            self._journal.close()
+        except OSError as exc:
+            self._fail(exc, self._journal.path)
+        self._sealer.add(self._part_index)
         self._part_index += 1
         self._slot = slot
         path = self.folder / journal_name(self._part_index)
@@ -299,24 +310,23 @@ class RunWriter:
         except OSError as exc:
             self._fail(exc, path)
 
+    def _collect_sealed(self, wait: bool = False) -> None:
+        """Note the parts sealed meanwhile; a seal that failed fails the run as if it had failed here."""
+        try:
+            self._parts += [sealed.as_dict() for sealed in self._sealer.collect(wait)]
+        except SealFailed as exc:
+            self._fail(exc.cause, temp_name(exc.path))
+
     def _finish_part(self) -> None:
+        """Seal the last part, after every part before it, and wait for them all."""
         assert self._journal is not None
-        journal, target = self._journal.path, self.folder / part_name(self._part_index)
         try:
             self._journal.close()
-            sealed = seal_journal(
-                journal,
-                target,
-                run_metadata=self._start,
-                part_index=self._part_index,
-                time_column="utc",
-                keep_empty=not self._parts,
-            )
-        except (OSError, pa.ArrowException) as exc:
-            self._fail(exc, temp_name(target))
-        if sealed is not None:
-            self._parts.append(sealed.as_dict())
-            self._rollups.add(self._part_index)
+        except OSError as exc:
+            self._fail(exc, self._journal.path)
+        self._sealer.add(self._part_index)
+        self._collect_sealed(wait=True)
+        self._sealer.shutdown()
 
     def _finish_events(self) -> None:
         target = self.folder / EVENTS_PARQUET
@@ -366,6 +376,7 @@ class RunWriter:
         for journal in (self._journal, self._events):
             if journal is not None:
                 journal.abandon()
+        self._sealer.shutdown(cancel=True)  # the lock goes only when no seal is reading a journal
         self._metadata = {**self._metadata, **changes}
         with contextlib.suppress(OSError):
             write_json_atomic(self.folder / RUN_JSON, self._metadata)
