@@ -28,10 +28,12 @@ from typing import Any
 
 import pyarrow as pa
 
+from logger.store.episodes import link_episodes
 from logger.store.files import to_json
-from logger.store.layout import journal_name, part_name
+from logger.store.layout import EVENTS_JOURNAL, EVENTS_PARQUET, journal_name, part_name
 from logger.store.rollup import Pair, pairs_of, write_rollup
-from logger.store.seal import SealedFile, seal_journal
+from logger.store.schema import event_schema
+from logger.store.seal import SealedFile, event_parquet_options, seal_journal, write_empty
 
 
 class SealFailed(Exception):
@@ -63,6 +65,28 @@ def seal_part(folder: Path, index: int, start: dict[str, Any], *, keep_empty: bo
     return sealed
 
 
+def seal_events(folder: Path, start: dict[str, Any]) -> None:
+    """Seal the event journal into ``_events.parquet`` with each episode's rows linked, or write an empty
+    event table when no event was recorded.
+
+    Raises:
+        SealFailed: as for :func:`seal_part`.
+    """
+    target = folder / EVENTS_PARQUET
+    journal = folder / EVENTS_JOURNAL
+    try:
+        sealed = None
+        if journal.exists():
+            sealed = seal_journal(journal, target, run_metadata=start, part_index=None, time_column="start",
+                                  options_for=event_parquet_options)
+        if sealed is None:
+            write_empty(target, event_schema(), run_metadata=start, part_index=None, options_for=event_parquet_options)
+        else:
+            link_episodes(target)
+    except (OSError, pa.ArrowException) as exc:
+        raise SealFailed(exc, target) from None
+
+
 class PartSealer:
     """Seals closed parts in order on a thread of its own, each in a child process (``in_child``) or here.
 
@@ -88,6 +112,12 @@ class PartSealer:
             self._pool = ThreadPoolExecutor(max_workers=1, thread_name_prefix="railtap-sealer")
         self._pending.append(self._pool.submit(self._seal, index))
 
+    def add_events(self) -> None:
+        """Queue the event journal (closed: the run is ending) for sealing, after every part."""
+        if self._pool is None:
+            self._pool = ThreadPoolExecutor(max_workers=1, thread_name_prefix="railtap-sealer")
+        self._pending.append(self._pool.submit(self._seal, None))
+
     def collect(self, wait: bool = False) -> list[SealedFile]:
         """Parts sealed since the last call, in order (all queued ones with ``wait``).
 
@@ -108,7 +138,7 @@ class PartSealer:
             self._pool.shutdown(wait=True, cancel_futures=cancel)
             self._pool = None
 
-    def _seal(self, index: int) -> SealedFile | None:
+    def _seal(self, index: int | None) -> SealedFile | None:
         job = {"folder": str(self.folder), "index": index, "start": self.start, "keep_empty": not self._sealed_any,
                "gap": self.gap}
         sealed = _in_child(job, self.lock_fd) if self.in_child else run_job(job)
@@ -117,8 +147,12 @@ class PartSealer:
 
 
 def run_job(job: dict[str, Any]) -> SealedFile | None:
-    """Run one sealing job as described by ``job`` (what the child process reads on its standard input)."""
+    """Run one sealing job as described by ``job`` (what the child process reads on its standard input): a part
+    by its ``index``, or the event journal when the index is None."""
     start = job["start"]
+    if job["index"] is None:
+        seal_events(Path(job["folder"]), start)
+        return None
     return seal_part(Path(job["folder"]), job["index"], start, keep_empty=job["keep_empty"], pairs=pairs_of(start),
                      gap=job["gap"])
 

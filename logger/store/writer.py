@@ -26,7 +26,6 @@ import pyarrow as pa
 
 from logger import __version__
 from logger.store.batches import conform, split_by_slot
-from logger.store.episodes import link_episodes
 from logger.store.files import (
     RUN_JSON,
     RunLock,
@@ -37,11 +36,11 @@ from logger.store.files import (
     write_json_atomic,
 )
 from logger.store.journal import JournalWriter
-from logger.store.layout import EVENTS_JOURNAL, EVENTS_PARQUET, journal_name
+from logger.store.layout import EVENTS_JOURNAL, journal_name
 from logger.store.meta import STORE_KEYS, finished_metadata, start_metadata
 from logger.store.rollup import gap_us
 from logger.store.schema import channels_of, event_batch, event_schema
-from logger.store.seal import event_parquet_options, seal_journal, temp_name, write_empty
+from logger.store.seal import temp_name
 from logger.store.sealer import PartSealer, SealFailed
 
 MAX_BUFFER_ROWS = 1 << 16
@@ -223,6 +222,7 @@ class RunWriter:
         self.flush()
         self._finish_part()
         self._finish_events()
+        self._sealer.shutdown()
         last = utc_text(self._safe_until_us)
         self._metadata = finished_metadata(
             self._start, "complete", reason, utc_text(utc_now()), last, self._parts, self._event_count
@@ -326,34 +326,16 @@ class RunWriter:
             self._fail(exc, self._journal.path)
         self._sealer.add(self._part_index)
         self._collect_sealed(wait=True)
-        self._sealer.shutdown()
 
     def _finish_events(self) -> None:
-        target = self.folder / EVENTS_PARQUET
-        try:
-            sealed = None
-            if self._events is not None:
+        """Seal the event journal (or write an empty event table) through the sealer, as the parts."""
+        if self._events is not None:
+            try:
                 self._events.close()
-                sealed = seal_journal(
-                    self._events.path,
-                    target,
-                    run_metadata=self._start,
-                    part_index=None,
-                    time_column="start",
-                    options_for=event_parquet_options,
-                )
-            if sealed is None:
-                write_empty(
-                    target,
-                    event_schema(),
-                    run_metadata=self._start,
-                    part_index=None,
-                    options_for=event_parquet_options,
-                )
-            else:
-                link_episodes(target)
-        except (OSError, pa.ArrowException) as exc:
-            self._fail(exc, temp_name(target))
+            except OSError as exc:
+                self._fail(exc, self._events.path)
+        self._sealer.add_events()
+        self._collect_sealed(wait=True)
 
     def _fail(self, exc: BaseException, path: Path) -> NoReturn:
         """Stop for good: close files without writing more, mark the run failed, unlock, raise StoreError."""
