@@ -27,6 +27,10 @@ from logger.wire import DeviceHeader
 
 _STOP = object()
 
+QUEUE_BATCHES = 64
+"""Batches the recorder's queue holds before ingest waits: a batch is at most 0.1 s of reads, so about 6.4 s
+of data ride out a stalled disk on a live port (sealing never stalls it: parts are sealed elsewhere)."""
+
 
 class Recorder:
     """Runs a :class:`RunWriter` on its own thread."""
@@ -44,9 +48,8 @@ class Recorder:
         self.error: str | None = None
         self.final: dict[str, Any] | None = None
         self.started = time.monotonic()
-        # Bounded, so a source faster than the disk (a replay, the simulator at full speed) waits for it; 64
-        # batches of 0.1 s ride out several seconds of a stalled disk on a live port before ingest waits.
-        self._queue: queue.Queue[Any] = queue.Queue(maxsize=64)
+        # Bounded, so a source faster than the disk (a replay, the simulator at full speed) waits for it.
+        self._queue: queue.Queue[Any] = queue.Queue(maxsize=QUEUE_BATCHES)
         self._writer = new_run(root, label, schema, metadata, part_seconds=part_seconds, seal_in_child=True)
         self.folder: Path = self._writer.folder
         self._raw = RawCaptureWriter(self.folder / "_raw.arrows") if keep_raw else None
