@@ -26,7 +26,7 @@ from logger.events.link import LinkWatch
 from logger.events.log import EventLog
 from logger.ingest.account import clock_account, link_counts, link_health
 from logger.ingest.flow import FlowWatch
-from logger.ingest.recorder import Recorder
+from logger.ingest.recorder import QUEUE_BATCHES, Recorder
 from logger.ingest.runs import Runs
 from logger.ingest.state import RateMeter, Ring, Snapshot
 from logger.ingest.stream import Processed, SampleStream
@@ -428,6 +428,7 @@ class Pipeline:
             "link": link_counts(self.decoder.counters, self.timebase, self.reconnects, self.header,
                                 recorder.link_base, self.stream.past_end),
             "clock": clock_account(self.timebase, self.settings.start_from),
+            "recorder_queue": {"peak_batches": recorder.queue_peak, "limit_batches": QUEUE_BATCHES},
         }
         if self.calibration_changes:
             extra["calibration_changes"] = self.calibration_changes

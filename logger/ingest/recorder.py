@@ -57,11 +57,15 @@ class Recorder:
         self._extra: dict[str, Any] | None = None
         self.link_base: dict[str, int] = {}
         """The link's counters when this run began, so the run's own share can be told at its end."""
+        self.queue_peak = 0
+        """Most batches ever waiting in the queue (written by the ingest thread, which alone adds batches): how
+        far the recorder fell behind, against :data:`QUEUE_BATCHES` at which ingest would stop reading."""
         self._thread = threading.Thread(target=self._run, name="railtap-recorder", daemon=True)
         self._thread.start()
 
     def add_batch(self, batch: pa.RecordBatch) -> None:
         self._put(("batch", batch))
+        self.queue_peak = max(self.queue_peak, self._queue.qsize())
 
     def add_event(self, row: dict[str, Any]) -> None:
         self._put(("event", row))

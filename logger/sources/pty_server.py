@@ -47,6 +47,7 @@ def serve_on_pty(
     *,
     seed: int | None = 0,
     tick_s: float = 0.01,
+    backlog_limit: int = BACKLOG_LIMIT,
 ) -> PtyStats:
     """Run a simulated device on a new pty until ``stop_event`` is set.
 
@@ -58,6 +59,8 @@ def serve_on_pty(
         on_ready: called with the slave path (e.g. ``/dev/pts/7``) once clients may open it.
         seed: seed of the default device.
         tick_s: how often bytes are written and commands read.
+        backlog_limit: bytes held back while the client does not read before they are dropped (a bench on a
+            loaded machine raises it, so the server's own late wake-ups are not taken for a slow client).
 
     Returns:
         Counts of bytes written, dropped and received.
@@ -76,7 +79,7 @@ def serve_on_pty(
         if speed == 0:
             _pump_unpaced(dev, master, stop_event, tick_s, stats)
         else:
-            _pump(dev, master, slave, speed, stop_event, tick_s, stats)
+            _pump(dev, master, slave, speed, stop_event, tick_s, stats, backlog_limit)
         return stats
     finally:
         os.close(master)
@@ -97,6 +100,7 @@ def _pump(
     stop_event: threading.Event,
     tick_s: float,
     stats: PtyStats,
+    backlog_limit: int,
 ) -> None:
     """Each tick: take commands, produce the bytes due by the wall clock, write what the pty accepts."""
     wall0, sim0 = time.monotonic(), dev.now_s
@@ -106,7 +110,7 @@ def _pump(
         if readable:
             stats.command_bytes += _take_commands(master, dev)
         backlog += dev.generate(sim0 + (time.monotonic() - wall0) * speed)
-        _push(master, slave, backlog, stats)
+        _push(master, slave, backlog, stats, backlog_limit)
 
 
 def _pump_unpaced(dev: SimDevice, master: int, stop_event: threading.Event, tick_s: float, stats: PtyStats) -> None:
@@ -136,7 +140,7 @@ def _take_commands(master: int, dev: SimDevice) -> int:
     return len(data)
 
 
-def _push(master: int, slave: int, backlog: bytearray, stats: PtyStats) -> None:
+def _push(master: int, slave: int, backlog: bytearray, stats: PtyStats, limit: int) -> None:
     """Write as much of the backlog as the pty takes; drop it all when the client has stopped reading."""
     if backlog:
         try:
@@ -145,7 +149,7 @@ def _push(master: int, slave: int, backlog: bytearray, stats: PtyStats) -> None:
             written = 0
         del backlog[:written]
         stats.bytes_written += written
-    if len(backlog) > BACKLOG_LIMIT:
+    if len(backlog) > limit:
         stats.bytes_dropped += len(backlog)
         backlog.clear()
         termios.tcflush(slave, termios.TCIFLUSH)  # what sits unread in the pty is stale by now

@@ -32,6 +32,9 @@ from logger.sim.simple import RIG_TOML
 from logger.sources.pty_server import serve_on_pty
 
 RATE_HZ = 10_000
+BACKLOG_S = 2.0
+"""Seconds of data the served device holds while the recorder does not read, before it drops them: long enough
+that the server's own late wake-ups on a loaded machine are not counted, short beside the recorder's queue."""
 
 
 def _hog(stop: multiprocessing.synchronize.Event) -> None:
@@ -43,7 +46,8 @@ def serve(stop: threading.Event) -> str:
     """Serve the clean 10 kHz link on a new pty; its path."""
     ready: queue.Queue[str] = queue.Queue()
     device = SimDevice(rate_hz=RATE_HZ, max_rate_hz=RATE_HZ, seed=7, faults=LinkFaults())
-    threading.Thread(target=serve_on_pty, args=(device, 1.0, stop, ready.put), daemon=True).start()
+    threading.Thread(target=serve_on_pty, args=(device, 1.0, stop, ready.put),
+                     kwargs={"backlog_limit": BACKLOG_S * RATE_HZ * 40}, daemon=True).start()
     return ready.get(timeout=30)
 
 
@@ -82,6 +86,8 @@ def main() -> None:
           f"{RATE_HZ} frames/s for {args.seconds:g} s, a part sealed every {args.part_minutes:g} min")
     print(f"frames lost by the host: {link.get('lost', '?')} (goal 0)")
     print(f"frames recorded:         {meta.get('rows')} in {len(meta.get('parts', []))} parts")
+    peak = meta.get("recorder_queue", {}).get("peak_batches")
+    print(f"recorder queue at most:  {peak} batches (the recorder was at most about {peak * 0.1:.1f} s behind)")
     batch_s = Settings().batch_s
     print(f"recorder queue headroom: {QUEUE_BATCHES} batches of up to {batch_s:g} s = {QUEUE_BATCHES * batch_s:g} s "
           "of data before ingest stops reading the port")
