@@ -6,6 +6,8 @@ from __future__ import annotations
 import csv
 import io
 import json
+import subprocess
+import sys
 from datetime import UTC, datetime, timedelta
 from pathlib import Path
 
@@ -177,3 +179,22 @@ def test_a_stretch_reads_only_the_row_groups_that_reach_into_it(tmp_path: Path) 
     gap = tmp_path / "gap.csv"
     assert export_samples(run, gap, start=parse_when("100.2s", first), end=parse_when("101.2s", first)) == 0
     assert gap.read_bytes() == b""
+
+
+def test_export_loads_no_pandas(tmp_path: Path) -> None:
+    """``railtap export`` writes CSV and JSON lines, a stretch of them too, without importing pandas (some 40 MB
+    of a process whose own work needs about 100): the export neither reads through a dataset nor hands Python
+    values to Arrow's converters."""
+    run = _odd_run(tmp_path)
+    script = f"""
+import sys
+from logger.cli import main
+for out, more in (("all.csv", []), ("some.jsonl", ["--from", "10s", "--until", "20s", "--counts"])):
+    assert main(["export", {str(run)!r}, {str(tmp_path)!r} + "/" + out, *more]) == 0
+print(sorted(m for m in ("pandas", "scipy", "matplotlib") if m in sys.modules))
+"""
+    out = subprocess.run([sys.executable, "-c", script], capture_output=True, text=True, timeout=300, check=True)
+    assert out.stdout.strip() == "[]"
+    first = run_start(run)
+    want = _parquet_rows(run, _us(parse_when("10s", first)), _us(parse_when("20s", first)))
+    assert (tmp_path / "some.jsonl").read_text().count("\n") == want.num_rows > 9_000

@@ -20,6 +20,8 @@ import pyarrow as pa
 import pyarrow.compute as pc
 import pyarrow.csv as pacsv
 
+from logger.store.arrays import as_numpy, from_numpy
+
 JSON_TIME = "%Y-%m-%dT%H:%M:%SZ"
 """``strftime`` format of a JSON line's time; Arrow's ``%S`` carries the microseconds (``10.100000``)."""
 WHOLE_SECOND_TAIL = b".000000Z"
@@ -51,10 +53,10 @@ def stamp_text(utc: pa.Array, whole: Formatter) -> pa.Array:
     """
     if utc.type.unit != "us" or utc.null_count or len(utc) == 0:
         return whole(utc)
-    us = utc.cast(pa.int64()).to_numpy()
+    us = as_numpy(utc, np.int64)
     seconds, micros = np.divmod(us, US_PER_S)  # floor: times before 1970 keep a fraction in 0..999999
     starts = np.flatnonzero(np.r_[True, seconds[1:] != seconds[:-1]])
-    heads = _fixed_width(whole(pa.array(seconds[starts] * US_PER_S, pa.int64()).cast(utc.type)))
+    heads = _fixed_width(whole(from_numpy(seconds[starts] * US_PER_S, utc.type)))
     if heads is None:
         return whole(utc)
     rows = np.repeat(heads, np.diff(np.r_[starts, len(us)]), axis=0)
@@ -85,9 +87,11 @@ def _write_digits(rows: np.ndarray, first: int, micros: np.ndarray) -> None:
 
 
 def csv_header(schema: pa.Schema) -> bytes:
-    """The header line Arrow's CSV writer puts above these columns (each name quoted)."""
+    """The header line Arrow's CSV writer puts above these columns (each name quoted).
+
+    Written from a batch of null columns: ``Schema.empty_table`` would import pandas (some 40 MB) for nothing."""
     sink = io.BytesIO()
-    pacsv.write_csv(schema.empty_table(), sink)
+    pacsv.write_csv(pa.RecordBatch.from_arrays([pa.nulls(0, f.type) for f in schema], schema=schema), sink)
     return sink.getvalue()
 
 
@@ -108,15 +112,22 @@ def json_rows(batch: pa.RecordBatch) -> pa.Buffer:
 
     Numbers are Arrow's text of each value, as in the CSV; the whole is joined element-wise by Arrow."""
     text = pa.large_string()  # one string type throughout: the join has no kernel for a mix
-    pieces: list[pa.Array | pa.Scalar] = [pa.scalar('{"utc": "', text), json_time(batch.column("utc")).cast(text)]
+    pieces: list[pa.Array | pa.Scalar] = [_literal('{"utc": "'), json_time(batch.column("utc")).cast(text)]
     glue = '", '
     for name in batch.schema.names:
         if name != "utc":
-            pieces += [pa.scalar(f"{glue}{json.dumps(name)}: ", text), pc.cast(batch.column(name), text)]
+            pieces += [_literal(f"{glue}{json.dumps(name)}: "), pc.cast(batch.column(name), text)]
             glue = ", "
-    pieces += [pa.scalar("}\n" if glue == ", " else '"}\n', text), pa.scalar("", text)]
+    pieces += [_literal("}\n" if glue == ", " else '"}\n'), _literal("")]
     lines = pc.binary_join_element_wise(*pieces)
     return _string_bytes(lines)
+
+
+def _literal(text: str) -> pa.Scalar:
+    """A large-string scalar built from buffers (``pyarrow.scalar`` would import pandas to look at ``text``)."""
+    data = text.encode()
+    offsets = np.array([0, len(data)], np.int64)
+    return pa.LargeStringArray.from_buffers(1, pa.py_buffer(offsets), pa.py_buffer(data))[0]
 
 
 def _string_bytes(texts: pa.Array) -> pa.Buffer:

@@ -14,15 +14,19 @@ from datetime import UTC, datetime, timedelta
 from pathlib import Path
 from typing import Any
 
+import numpy as np
 import pyarrow as pa
 import pyarrow.compute as pc
 import pyarrow.parquet as pq
 
+from logger.store.arrays import as_numpy, from_numpy
 from logger.store.check import naming_damage, open_part, parts_dataset
 from logger.store.files import StoreError
 from logger.store.layout import EVENTS_PARQUET
 from logger.store.schema import channels_of
 
+EPOCH = datetime(1970, 1, 1, tzinfo=UTC)
+ONE_US = timedelta(microseconds=1)
 BATCH_ROWS = 65_536
 """Rows per streamed batch: a few MB of columns and of their text, so an export's memory stays near one batch,
 and enough rows that the fixed cost of a batch is lost in its work."""
@@ -64,8 +68,7 @@ class Stretch:
     @classmethod
     def of(cls, parts: list[Path], columns: list[str], start: datetime | None, end: datetime | None) -> Stretch:
         """Plan the read from the parts' footers (no page is read yet); times are aware or UTC."""
-        start_us, end_us = (None if t is None else pa.scalar(t, pa.timestamp("us", tz="UTC")).value
-                            for t in (start, end))
+        start_us, end_us = (None if t is None else (_aware(t) - EPOCH) // ONE_US for t in (start, end))
         plan, rows = [], 0
         for part in parts:
             meta = pq.read_metadata(part)
@@ -87,16 +90,17 @@ class Stretch:
                     yield batch
 
     def _within(self, batch: pa.RecordBatch) -> pa.RecordBatch:
-        """The batch's rows inside the stretch (all of them when it has no ends)."""
+        """The batch's rows inside the stretch (all of them when it has no ends). Compared in numpy: Arrow's
+        comparison with a Python number would import pandas to convert it."""
         if self.start_us is None and self.end_us is None:
             return batch
-        us = batch.column("utc").cast(pa.int64())
-        keep = pa.scalar(True)
+        us = as_numpy(batch.column("utc"), np.int64)
+        inside = np.ones(len(us), bool)
         if self.start_us is not None:
-            keep = pc.and_(keep, pc.greater_equal(us, self.start_us))
+            inside &= us >= self.start_us
         if self.end_us is not None:
-            keep = pc.and_(keep, pc.less_equal(us, self.end_us))
-        return batch.filter(keep)
+            inside &= us <= self.end_us
+        return batch if inside.all() else batch.take(from_numpy(np.flatnonzero(inside), pa.int64()))
 
 
 def _groups_within(meta: pq.FileMetaData, start_us: int | None, end_us: int | None) -> Iterator[int]:
