@@ -35,12 +35,13 @@ COLUMNS = ["utc", "out_v", "out_v_counts", "out_a", "out_a_counts"]
 
 def _odd_run(root: Path) -> Path:
     """150 s at about 1 kHz in three parts, written by railtap's own writer: every time off the millisecond by a
-    random number of microseconds, a gap from 100 s to 101.5 s, values whose shortest text is of every length
-    (and a few odd ones) and counts of every width."""
+    random number of microseconds, a gap from 100 s to 101.5 s, volts in converter steps (a few hundred distinct
+    values a batch) beside amps that are all distinct, values whose shortest text is of every length (and a few
+    odd ones) and counts of every width."""
     rng = np.random.default_rng(7)
     ticks = np.r_[np.arange(0, 100_000), np.arange(101_500, 150_000)]
     utc = T0 + ticks * 1000 + rng.integers(0, 1000, len(ticks))  # strictly increasing: steps of 1 to 1999 us
-    volts = rng.normal(12.0, 0.5, len(utc)).astype(np.float32)
+    volts = (np.rint(rng.normal(12.0, 0.5, len(utc)) / 0.0088623) * 0.0088623).astype(np.float32)  # ADC steps
     volts[:6] = [0.0, -0.0, 1e-7, -3.25, 65504.0, 3.4028235e38]
     amps = rng.uniform(0, 3, len(utc)).astype(np.float32)
     meta = {"rig": RIG_TOML, "channels_info": [{"name": "out_v", "unit": "V"}, {"name": "out_a", "unit": "A"}],
@@ -88,13 +89,16 @@ def test_time_text_is_arrows_own_from_year_1_to_9999() -> None:
 
 def test_time_text_falls_back_to_arrow_where_the_seconds_do_not_fit() -> None:
     """A formatter whose whole seconds do not end in ``.000000Z``, a unit other than microseconds, an empty
-    column: each is formatted by the formatter whole, so the text is still its own."""
+    column: each is formatted by the formatter whole, so the text is still its own; a slice of a column and a
+    formatter of large strings take the fast way and give the same text."""
     utc = pa.array([T0, T0 + 1, T0 + 1_500_000], pa.int64()).cast(UTC_TYPE)
     clock = lambda t: pc.strftime(t, format="%H:%M:%S")  # noqa: E731
     assert stamp_text(utc, clock).equals(clock(utc))
     millis = pa.array([T0 // 1000, T0 // 1000 + 1], pa.int64()).cast(pa.timestamp("ms", tz="UTC"))
     assert csv_time(millis).equals(pc.cast(millis, pa.string()))
     assert len(csv_time(utc.slice(0, 0))) == 0
+    wide = lambda t: pc.cast(t, pa.large_string())  # noqa: E731
+    assert stamp_text(utc.slice(1), wide).equals(wide(utc.slice(1)))  # a slice, and text with 64-bit offsets
 
 
 @pytest.mark.parametrize("batch_rows", [7001, window.BATCH_ROWS])

@@ -1,12 +1,13 @@
 """Sample batches as text for export: CSV rows and JSON lines, built column by column, never row by row.
 
 The text is Arrow's own: each value goes through Arrow's cast to text (a float32 as the shortest text that reads
-back as the same float32), and the CSV is written by Arrow's CSV writer. Only the time column is made another
-way, because Arrow's text for a timestamp costs about a microsecond a row (each value goes through a calendar
-and a time zone), several times what the rest of a row costs. At 1 kHz a thousand rows share each second, so
-Arrow formats each second once and numpy writes the six digits of the microseconds into a copy of it: the
-same bytes, a small part of the work. A batch whose seconds do not all read as text of one width ending in
-``.000000Z`` (a year past 9999, a unit other than microseconds) is formatted by Arrow whole instead.
+back as the same float32), once per distinct value in a batch, and the CSV is written by Arrow's CSV writer. The
+time column is made another way, because Arrow's text for a timestamp costs about a microsecond a row (each
+value goes through a calendar and a time zone), several times what the rest of a row costs. At 1 kHz a thousand
+rows share each second, so Arrow formats each second once and numpy writes the six digits of the microseconds
+into a copy of it: the same bytes, a small part of the work. A batch whose seconds do not all read as text of
+one width ending in ``.000000Z`` (a year past 9999, a unit other than microseconds) is formatted by Arrow whole
+instead.
 """
 
 from __future__ import annotations
@@ -27,6 +28,7 @@ JSON_TIME = "%Y-%m-%dT%H:%M:%SZ"
 WHOLE_SECOND_TAIL = b".000000Z"
 """How a whole second's text ends, in both formats: the six zeros are where the microseconds go."""
 US_PER_S = 1_000_000
+TEXT = pa.string()
 
 Formatter = Callable[[pa.Array], pa.Array]
 
@@ -68,7 +70,7 @@ def stamp_text(utc: pa.Array, whole: Formatter) -> pa.Array:
 
 def _fixed_width(texts: pa.Array) -> np.ndarray | None:
     """The texts as rows of one byte matrix, or None unless all have one width and end in ``.000000Z``."""
-    offsets = np.frombuffer(texts.buffers()[1], np.int32)[texts.offset: texts.offset + len(texts) + 1]
+    offsets = _offsets(texts)
     widths = np.diff(offsets)
     if widths.min() != widths.max() or widths[0] < len(WHOLE_SECOND_TAIL):
         return None
@@ -86,6 +88,19 @@ def _write_digits(rows: np.ndarray, first: int, micros: np.ndarray) -> None:
         rows[:, column] = digit + ord("0")
 
 
+def value_text(values: pa.Array, text: pa.DataType = TEXT) -> pa.Array:
+    """Arrow's text of each value, each distinct value formatted once and its text copied to its rows.
+
+    A channel's values come from its converter's counts, so a batch of 65 k rows holds a few hundred distinct
+    values: formatting those and copying their text costs a fraction of formatting every row. A batch with
+    many distinct values (more than a quarter of its rows) is formatted row by row, where the copy would cost
+    more than it saves."""
+    levels = pc.dictionary_encode(values)
+    if len(levels.dictionary) > len(values) // 4:
+        return pc.cast(values, text)
+    return pc.take(pc.cast(levels.dictionary, text), levels.indices)
+
+
 def csv_header(schema: pa.Schema) -> bytes:
     """The header line Arrow's CSV writer puts above these columns (each name quoted).
 
@@ -100,7 +115,8 @@ def csv_rows(batch: pa.RecordBatch) -> pa.Buffer:
 
     Arrow quotes text columns; the time column, now text, is left unquoted as Arrow leaves a timestamp (it holds
     no comma, quote or line break, so no reader needs the quotes: RFC 4180 section 2, rule 6)."""
-    columns = [csv_time(c) if name == "utc" else c for name, c in zip(batch.schema.names, batch.columns, strict=True)]
+    columns = [csv_time(c) if name == "utc" else value_text(c)
+               for name, c in zip(batch.schema.names, batch.columns, strict=True)]
     sink = pa.BufferOutputStream()
     options = pacsv.WriteOptions(include_header=False, quoting_style="none", batch_size=max(batch.num_rows, 1))
     pacsv.write_csv(pa.record_batch(columns, names=batch.schema.names), sink, write_options=options)
@@ -116,7 +132,7 @@ def json_rows(batch: pa.RecordBatch) -> pa.Buffer:
     glue = '", '
     for name in batch.schema.names:
         if name != "utc":
-            pieces += [_literal(f"{glue}{json.dumps(name)}: "), pc.cast(batch.column(name), text)]
+            pieces += [_literal(f"{glue}{json.dumps(name)}: "), value_text(batch.column(name), text)]
             glue = ", "
     pieces += [_literal("}\n" if glue == ", " else '"}\n'), _literal("")]
     lines = pc.binary_join_element_wise(*pieces)
@@ -132,7 +148,12 @@ def _literal(text: str) -> pa.Scalar:
 
 def _string_bytes(texts: pa.Array) -> pa.Buffer:
     """The characters of a string array end to end (its data buffer, cut to the rows it holds)."""
-    kind = np.int64 if pa.types.is_large_string(texts.type) else np.int32
-    offsets = np.frombuffer(texts.buffers()[1], kind)
-    first, last = int(offsets[texts.offset]), int(offsets[texts.offset + len(texts)])
+    offsets = _offsets(texts)
+    first, last = int(offsets[0]), int(offsets[-1])
     return texts.buffers()[2].slice(first, last - first)
+
+
+def _offsets(texts: pa.Array) -> np.ndarray:
+    """Where each text of a string array starts in its data buffer, and where the last one ends."""
+    kind = np.int64 if pa.types.is_large_string(texts.type) else np.int32
+    return np.frombuffer(texts.buffers()[1], kind)[texts.offset: texts.offset + len(texts) + 1]
