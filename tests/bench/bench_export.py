@@ -8,6 +8,8 @@ run (not a test).
    a. ``railtap csv``: ``export_samples(run, out.csv)``, every sample of ``utc``, ``out_v`` and ``out_a``;
    b. ``pyarrow csv``: the peer, pyarrow's own ``CSVWriter`` over the same columns streamed from each part's
       ``ParquetFile.iter_batches``: what the library alone does with the same bytes in and out;
+   b'. ``pyarrow int-utc``: the same with ``utc`` written as integer microseconds, not the same bytes: the
+      writer's cost without Arrow's time text (a floor for (a), which still writes that text);
    c. ``railtap jsonl``: ``export_samples`` to JSON lines for the first ``--json-until`` of the run;
    d. ``per-row jsonl``: the peer for (c), the same lines built with a Python string per row.
 3. Says whether (a) and (b), and (c) and (d), wrote the same bytes, and prints the ratios.
@@ -72,6 +74,21 @@ with open(OUT, "wb") as sink:
     sink.flush()
     os.fsync(sink.fileno())
 """,
+    "pyarrow int-utc": """
+import pyarrow as pa, pyarrow.csv as pacsv, pyarrow.parquet as pq
+rows = 0
+with open(OUT, "wb") as sink:
+    writer = None
+    for part in sorted(RUN.glob("part-*.parquet")):
+        for batch in pq.ParquetFile(part).iter_batches(columns=["utc", "out_v", "out_a"]):
+            batch = pa.record_batch([batch.column(0).cast(pa.int64()), *batch.columns[1:]], names=batch.schema.names)
+            writer = writer or pacsv.CSVWriter(sink, batch.schema)
+            writer.write_batch(batch)
+            rows += batch.num_rows
+    writer.close()
+    sink.flush()
+    os.fsync(sink.fileno())
+""",
     "railtap jsonl": """
 from logger.review.export import export_samples, parse_when, run_start
 rows = export_samples(RUN, OUT, channels=["out_v", "out_a"], end=parse_when(UNTIL, run_start(RUN)))
@@ -120,7 +137,7 @@ def measure(step: str, run: Path, out: Path, until: str) -> dict[str, float]:
 
 def line(step: str, got: dict[str, float]) -> str:
     """One step's figures on one line."""
-    return (f"  {step:14} {got['bytes'] / 1e6:8.0f} MB  {got['bytes'] / 1e6 / got['wall_s']:6.1f} MB/s  "
+    return (f"  {step:16} {got['bytes'] / 1e6:8.0f} MB  {got['bytes'] / 1e6 / got['wall_s']:6.1f} MB/s  "
             f"{got['rows'] / got['wall_s'] / 1e6:5.2f} M rows/s  wall {got['wall_s']:6.1f} s  "
             f"cpu {got['cpu_s']:6.1f} s  peak {got['peak_mb']:5.0f} MB")
 
@@ -161,6 +178,11 @@ def main() -> None:
     print(f"load before: {load()} on {os.cpu_count()} cores")
     with tempfile.TemporaryDirectory(prefix="railtap-bench-export-out-", dir=root) as scratch:
         csv = pair("railtap csv", "pyarrow csv", ".csv", run, Path(scratch), args.json_until)["railtap csv"]
+        floor = measure("pyarrow int-utc", run, Path(scratch) / "int-utc.csv", args.json_until)
+        (Path(scratch) / "int-utc.csv").unlink()
+        print(line("pyarrow int-utc", floor))
+        print(f"  railtap csv / pyarrow int-utc (not the same bytes): wall {csv['wall_s'] / floor['wall_s']:.2f} x, "
+              f"cpu {csv['cpu_s'] / floor['cpu_s']:.2f} x", flush=True)
         pair("railtap jsonl", "per-row jsonl", ".jsonl", run, Path(scratch), args.json_until)
     rate = csv["bytes"] / 1e6 / csv["wall_s"]
     print(f"goal: {rate:.1f} MB/s (at least {GOAL_MB_S:.0f}: {'met' if rate >= GOAL_MB_S else 'NOT met'}), "
