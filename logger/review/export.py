@@ -1,26 +1,26 @@
 """Samples out of a run for other tools: CSV or JSON lines, for a stretch of time and some channels.
 
-Streamed batch by batch from a filtered dataset scan, so a day-long run exports in bounded memory; written
-under a temporary name and renamed at the end, so an interrupted export leaves no half file behind.
+Streamed part by part in batches of a few MB (:class:`~logger.review.window.Stretch`), so a day-long run exports
+in bounded memory; each batch becomes text column by column (:mod:`logger.review.sampletext`), never a Python
+object per row. Written under a temporary name, made durable and renamed at the end, so an interrupted export
+leaves no half file behind.
 """
 
 from __future__ import annotations
 
-import json
 import os
 from collections.abc import Callable
 from datetime import UTC, datetime, timedelta
 from pathlib import Path
 
 import pyarrow as pa
-import pyarrow.compute as pc
-import pyarrow.csv as pacsv
-import pyarrow.dataset as ds
 
 from logger.durations import SYNTAX, parse_duration
-from logger.review.window import pick_channels
-from logger.store.check import naming_damage, parts_dataset
+from logger.review.sampletext import csv_header, csv_rows, json_rows
+from logger.review.window import Stretch, pick_channels
+from logger.store.check import naming_damage, open_part
 from logger.store.files import StoreError, read_run_json
+from logger.store.layout import parts_in
 
 FORMATS = ("csv", "jsonl")
 def parse_when(text: str, run_start: datetime) -> datetime:
@@ -79,64 +79,35 @@ def export_samples(
     fmt = path.suffix.lstrip(".").lower()
     if fmt not in FORMATS:
         raise StoreError(f"{path}: say .csv or .jsonl, the format is taken from the name")
-    data = parts_dataset(folder)
-    chosen = pick_channels(folder, data.schema, channels)
+    parts = [part for _, part in parts_in(folder)]
+    with naming_damage(folder):
+        schema = open_part(parts[0]).schema_arrow if parts else pa.schema([])
+    chosen = pick_channels(folder, schema, channels)
     columns = ["utc", *[c for name in chosen for c in ((name, f"{name}_counts") if counts else (name,))]]
-    # Little read-ahead: memory stays near one batch per core however long the run.
-    scanner = data.scanner(columns=columns, filter=_between(data.schema, start, end), batch_readahead=2,
-                           fragment_readahead=1)
-    total = data.count_rows() if progress is not None else 0
     tmp = path.with_name(f".{path.name}.part")
     try:
         with naming_damage(folder):
-            rows = _write(scanner, tmp, fmt, total, progress)
+            stretch = Stretch.of(parts, columns, start, end)
+            rows = _write(stretch, tmp, fmt, progress)
         os.replace(tmp, path)
     finally:
         tmp.unlink(missing_ok=True)
     return rows
 
 
-def _between(schema: pa.Schema, start: datetime | None, end: datetime | None) -> pc.Expression | None:
-    kind = schema.field("utc").type
-    parts = []
-    if start is not None:
-        parts.append(pc.field("utc") >= pa.scalar(start, kind))
-    if end is not None:
-        parts.append(pc.field("utc") <= pa.scalar(end, kind))
-    if not parts:
-        return None
-    return parts[0] if len(parts) == 1 else parts[0] & parts[1]
+def _write(stretch: Stretch, tmp: Path, fmt: str, progress: Callable[[int, int], None] | None) -> int:
+    """Write the stretch's rows to ``tmp`` and make them durable; returns the rows written.
 
-
-def _write(scanner: ds.Scanner, tmp: Path, fmt: str, total: int, progress: Callable[[int, int], None] | None) -> int:
+    Nothing is written for a stretch without rows, not even the CSV header, as before."""
     rows = 0
-    with open(tmp, "wb") as handle:
-        writer = None
-        for batch in scanner.to_batches():
-            if batch.num_rows == 0:
-                continue
-            if fmt == "csv":
-                writer = writer or pacsv.CSVWriter(handle, batch.schema)
-                writer.write_batch(batch)
-            else:
-                handle.write(_json_lines(batch))
+    text = csv_rows if fmt == "csv" else json_rows
+    with pa.OSFile(str(tmp), "wb") as sink:
+        for batch in stretch.batches():
+            if rows == 0 and fmt == "csv":
+                sink.write(csv_header(batch.schema))
+            sink.write(text(batch))
             rows += batch.num_rows
             if progress is not None:
-                progress(rows, total)
-        if writer is not None:
-            writer.close()
-        handle.flush()
-        os.fsync(handle.fileno())
+                progress(rows, stretch.rows)
+        os.fsync(sink.fileno())
     return rows
-
-
-def _json_lines(batch: pa.RecordBatch) -> bytes:
-    """One JSON object per row; times as ISO 8601 UTC text, values as numbers written as Arrow writes them
-    (the shortest text that reads back as the same float32, as in the CSV)."""
-    utc = pc.strftime(batch.column("utc"), format="%Y-%m-%dT%H:%M:%SZ").to_pylist()
-    names = [n for n in batch.schema.names if n != "utc"]
-    keys = [json.dumps(n) for n in names]
-    cols = [pc.cast(batch.column(n), pa.string()).to_pylist() for n in names]
-    lines = ['{"utc": "' + t + '", ' + ", ".join(f"{k}: {v}" for k, v in zip(keys, row, strict=True)) + "}"
-             for t, *row in zip(utc, *cols, strict=True)]
-    return ("\n".join(lines) + "\n").encode()

@@ -49,10 +49,14 @@ def pss_mb(pid: int) -> float:
 
 
 def children(pid: int) -> list[int]:
+    """Child processes of any of the process's threads (the sealing child is started by the sealer thread)."""
+    found: list[int] = []
     try:
-        return [int(c) for c in Path(f"/proc/{pid}/task/{pid}/children").read_text().split()]
-    except FileNotFoundError:
-        return []
+        for task in Path(f"/proc/{pid}/task").iterdir():
+            found += [int(c) for c in (task / "children").read_text().split()]
+    except (FileNotFoundError, ProcessLookupError):
+        pass
+    return found
 
 
 def serve(scenario: str, folder: Path) -> tuple[subprocess.Popen[bytes], Path, Path]:
