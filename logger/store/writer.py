@@ -296,12 +296,7 @@ class RunWriter:
     def _rotate(self, slot: int) -> None:
         """Close the current part's journal and hand it to the sealer, then start the next part."""
         self.flush()
-        assert self._journal is not None
-        try:
-            self._journal.close()
-        except OSError as exc:
-            self._fail(exc, self._journal.path)
-        self._sealer.add(self._part_index)
+        self._hand_over_part()
         self._part_index += 1
         self._slot = slot
         path = self.folder / journal_name(self._part_index)
@@ -317,14 +312,18 @@ class RunWriter:
         except SealFailed as exc:
             self._fail(exc.cause, temp_name(exc.path))
 
-    def _finish_part(self) -> None:
-        """Seal the last part, after every part before it, and wait for them all."""
+    def _hand_over_part(self) -> None:
+        """Close the current part's journal and queue it for sealing."""
         assert self._journal is not None
         try:
             self._journal.close()
         except OSError as exc:
             self._fail(exc, self._journal.path)
         self._sealer.add(self._part_index)
+
+    def _finish_part(self) -> None:
+        """Seal the last part, after every part before it, and wait for them all."""
+        self._hand_over_part()
         self._collect_sealed(wait=True)
 
     def _finish_events(self) -> None:
