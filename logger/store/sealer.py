@@ -108,15 +108,16 @@ class PartSealer:
 
     def add(self, index: int) -> None:
         """Queue part ``index`` (its journal closed) for sealing."""
-        if self._pool is None:
-            self._pool = ThreadPoolExecutor(max_workers=1, thread_name_prefix="railtap-sealer")
-        self._pending.append(self._pool.submit(self._seal, index))
+        self._submit(index)
 
     def add_events(self) -> None:
         """Queue the event journal (closed: the run is ending) for sealing, after every part."""
+        self._submit(None)
+
+    def _submit(self, index: int | None) -> None:
         if self._pool is None:
             self._pool = ThreadPoolExecutor(max_workers=1, thread_name_prefix="railtap-sealer")
-        self._pending.append(self._pool.submit(self._seal, None))
+        self._pending.append(self._pool.submit(self._seal, index))
 
     def collect(self, wait: bool = False) -> list[SealedFile]:
         """Parts sealed since the last call, in order (all queued ones with ``wait``).
