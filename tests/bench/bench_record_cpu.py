@@ -5,7 +5,8 @@ Each run starts a fresh ``railtap record --port PTY``, lets it settle, then read
 time from ``/proc/PID/stat`` (every thread) over ``--seconds`` of wall clock, and the share of each thread from
 ``/proc/PID/task``. Linux only.
 
-Run with ``.venv/bin/python tests/bench/bench_record_cpu.py [--seconds 120] [--runs 3] [--scenario demo-bench]``.
+Run with ``.venv/bin/python tests/bench/bench_record_cpu.py [--seconds 120] [--runs 3] [--scenario demo-bench]
+[--tty]`` (``--tty``: status lines to a terminal, every 2 s, rather than to a log every 10 s).
 """
 
 from __future__ import annotations
@@ -17,6 +18,7 @@ import statistics
 import subprocess
 import sys
 import tempfile
+import threading
 import time
 from pathlib import Path
 
@@ -49,7 +51,24 @@ def serve(scenario: str, rig: Path, seed: int) -> tuple[subprocess.Popen[str], s
     return server, line.split(" on ", 1)[1].split(";", 1)[0].split()[0]
 
 
-def one_run(scenario: str, seconds: float, settle_s: float, quiet: bool, seed: int) -> tuple[float, dict[str, float]]:
+def terminal() -> tuple[int, int]:
+    """A pseudo-terminal whose output is read and dropped, to stand in for a person's terminal (status lines
+    come every 2 s on a terminal, every 10 s otherwise)."""
+    master, slave = os.openpty()
+
+    def drop() -> None:
+        try:
+            while os.read(master, 4096):
+                pass
+        except OSError:
+            pass
+
+    threading.Thread(target=drop, daemon=True).start()
+    return master, slave
+
+
+def one_run(scenario: str, seconds: float, settle_s: float, quiet: bool, seed: int, tty: bool
+            ) -> tuple[float, dict[str, float]]:
     """Share of one core taken by one ``railtap record`` over ``seconds``, and each thread's share."""
     with tempfile.TemporaryDirectory() as tmp:
         rig = Path(tmp) / "rig.toml"
@@ -59,7 +78,8 @@ def one_run(scenario: str, seconds: float, settle_s: float, quiet: bool, seed: i
                 time.sleep(0.05)
             args = [sys.executable, "-m", "logger", "record", "--port", path, "--rig", str(rig), "--out",
                     str(Path(tmp) / "runs"), *(["--quiet"] if quiet else [])]
-            record = subprocess.Popen(args, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+            master, slave = terminal() if tty else (None, subprocess.DEVNULL)
+            record = subprocess.Popen(args, stdout=subprocess.DEVNULL, stderr=slave)
             try:
                 time.sleep(settle_s)
                 stat = Path(f"/proc/{record.pid}/stat")
@@ -69,6 +89,9 @@ def one_run(scenario: str, seconds: float, settle_s: float, quiet: bool, seed: i
             finally:
                 record.send_signal(signal.SIGINT)
                 record.wait(60)
+                if master is not None:
+                    os.close(slave)
+                    os.close(master)
         finally:
             server.terminate()
             server.wait(10)
@@ -84,11 +107,12 @@ def main() -> None:
     parser.add_argument("--settle", type=float, default=5.0, help="seconds left out at the start of each run")
     parser.add_argument("--scenario", default="demo-bench")
     parser.add_argument("--quiet", action="store_true", help="record with --quiet (no status lines)")
+    parser.add_argument("--tty", action="store_true", help="give the recorder a terminal for its status lines")
     args = parser.parse_args()
     shares = []
     for k in range(args.runs):
         load = os.getloadavg()
-        share, threads = one_run(args.scenario, args.seconds, args.settle, args.quiet, seed=3 + k)
+        share, threads = one_run(args.scenario, args.seconds, args.settle, args.quiet, seed=3 + k, tty=args.tty)
         shares.append(share)
         busy = ", ".join(f"{name} {s:.2%}" for name, s in sorted(threads.items(), key=lambda kv: -kv[1]) if s > 0.0005)
         print(f"run {k + 1}: {share:.2%} of one core over {args.seconds:g} s (load before "
