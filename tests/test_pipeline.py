@@ -354,6 +354,89 @@ def test_the_frame_rate_is_the_devices_even_when_reads_run_ahead(tmp_path: Path)
     assert all(900.0 < r < 1100.0 for r in rates), (min(rates), max(rates))  # 1 kHz less the link's few losses
 
 
+
+def _batch_sizes(pipeline: Pipeline) -> list[int]:
+    """Frames in each batch the ingest thread decodes from now on."""
+    sizes: list[int] = []
+    emit = pipeline.stream.emit
+    pipeline.stream.emit = lambda batch, arrival, offset: sizes.append(len(batch)) or emit(batch, arrival, offset)
+    return sizes
+
+
+@pytest.mark.parametrize("watched", [False, True])
+def test_batches_span_a_tenth_of_a_second_while_watched_and_half_a_second_otherwise(tmp_path: Path,
+                                                                                     watched: bool) -> None:
+    """A screen asks for snapshots ten times a second and gets a batch as often; a headless run is decoded
+    in half-second batches (less fixed work per sample). The rig is read in 10 ms slices on a clock of its
+    own that runs ahead as fast as it goes, so the batches follow the reads' arrival times: at 1 kHz, 100
+    and 500 frames."""
+    clock = [0.0]
+
+    def sleep(seconds: float) -> None:
+        clock[0] += seconds
+
+    source = SimSource(SimDevice(seed=6), speed=1.0, duration_s=20, slice_s=0.01, sleep=sleep,
+                       clock=lambda: clock[0])
+    pipeline = Pipeline(source, RIG, Settings(record_root=tmp_path))
+    sizes = _batch_sizes(pipeline)
+    done = threading.Event()
+
+    def watch() -> None:
+        while not done.wait(0.01):
+            pipeline.snapshot()
+
+    if watched:
+        pipeline.snapshot(), pipeline.snapshot()
+        threading.Thread(target=watch, daemon=True).start()
+    pipeline.start()
+    assert pipeline.wait(120)
+    done.set()
+    assert pipeline.error is None and pipeline.final["rows"] > 19_000
+    median = sorted(sizes)[len(sizes) // 2]
+    assert (90 <= median <= 110) if watched else (450 <= median <= 550), (median, sizes[:20])
+
+
+def test_a_status_line_every_few_seconds_is_not_watching(monkeypatch) -> None:
+    import logger.ingest.pipeline as module
+
+    clock = [1000.0]
+    monkeypatch.setattr(module, "time", type("Clock", (), {"monotonic": staticmethod(lambda: clock[0])}))
+    pipeline = Pipeline(SimSource(SimDevice(seed=1), speed=0, duration_s=1), RIG, Settings(record_root=None))
+    quiet, live = pipeline.settings.quiet_batch_s, pipeline.settings.batch_s
+    assert pipeline._batch_s(clock[0]) == quiet  # nobody has asked yet
+    for _ in range(3):
+        pipeline.snapshot()
+        clock[0] += 2.0  # the console's status line on a terminal
+        assert pipeline._batch_s(clock[0]) == quiet
+    for _ in range(3):
+        pipeline.snapshot()
+        clock[0] += 0.1  # a screen
+    assert pipeline._batch_s(clock[0]) == live
+    clock[0] += module.WATCHED_S
+    assert pipeline._batch_s(clock[0]) == quiet  # the screen has gone
+
+
+def test_unwatched_batches_still_reach_the_journal_while_the_run_goes_on(tmp_path: Path) -> None:
+    """Half-second batches are not held back from the journal: it keeps growing in real time with nobody
+    asking for a snapshot, and a batch is never longer than the journal's own flush interval."""
+    import inspect
+
+    from logger.store.writer import RunWriter
+
+    flush_s = inspect.signature(RunWriter).parameters["flush_seconds"].default
+    assert Settings().batch_s <= Settings().quiet_batch_s <= flush_s
+    pipeline = Pipeline(SimSource(SimDevice(seed=7), speed=1.0, duration_s=600), RIG,
+                        Settings(record_root=tmp_path))
+    pipeline.start()
+    try:
+        wait_until(lambda: journal_rows(tmp_path) >= 500, "the first rows in the journal")
+        first = journal_rows(tmp_path)
+        wait_until(lambda: journal_rows(tmp_path) >= first + 1000, "more rows in the journal")
+        assert pipeline.state == "running"
+    finally:
+        pipeline.stop()
+    assert pipeline.error is None
+
 def test_recording_a_port_loads_no_analysis_libraries(tmp_path: Path) -> None:
     """Recording, sealing and the live screen's code need none of pandas, scipy or matplotlib: each costs tens
     of megabytes and a CPU-second of start-up that a recorder on a small board cannot spare (issue figures:

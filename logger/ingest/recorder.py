@@ -28,8 +28,9 @@ from logger.wire import DeviceHeader
 _STOP = object()
 
 QUEUE_BATCHES = 64
-"""Batches the recorder's queue holds before ingest waits: a batch is at most 0.1 s of reads, so about 6.4 s
-of data ride out a stalled disk on a live port (sealing never stalls it: parts are sealed elsewhere)."""
+"""Batches the recorder's queue holds before ingest waits: a batch is 0.1 s of reads while someone watches and
+0.5 s otherwise, so 6.4 s to 32 s of data ride out a stalled disk on a live port (sealing never stalls it: parts
+are sealed elsewhere)."""
 
 
 class Recorder:

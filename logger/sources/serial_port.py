@@ -2,9 +2,10 @@
 
 Reads take whatever has arrived in one call (what ``in_waiting`` reports, or, when that is nothing or, as on
 ``socket://``, only says "something", whatever comes within the 0.1 s read timeout), never a line at a time:
-framing is the decoder's job. Every port failure after opening becomes :class:`LinkLost`, so the
-pipeline has one path for "the cable came out"; failing to open becomes a :class:`SourceError` whose one
-line says what to do.
+framing is the decoder's job. On Linux a device path is read at a steady pace (:class:`ReadPacer`): the kernel
+gathers the bytes between two reads, so a 1 kHz stream costs about ten wake-ups a second, not one per USB
+packet. Every port failure after opening becomes :class:`LinkLost`, so the pipeline has one path for "the
+cable came out"; failing to open becomes a :class:`SourceError` whose one line says what to do.
 """
 
 from __future__ import annotations
@@ -12,7 +13,9 @@ from __future__ import annotations
 import contextlib
 import errno
 import os
+import sys
 import time
+from collections.abc import Callable
 from pathlib import Path
 
 import serial
@@ -28,6 +31,56 @@ _BUSY = {errno.EBUSY, errno.EAGAIN, errno.EWOULDBLOCK}
 
 
 MAX_READ = 65536
+GATHER_S = 0.1
+"""A paced read comes this long after the previous one, unless the bytes coming in say it must come sooner."""
+KERNEL_BUFFER_BYTES = 4096
+"""What Linux's terminal line discipline holds for a reader (``N_TTY_BUF_SIZE``). When it fills, the driver is
+throttled, and a device or USB bridge without flow control then loses bytes: a paced read comes before half of
+it can fill."""
+
+
+class ReadPacer:
+    """When the next read of a port is due: ``gather_s`` after the previous one, or sooner when the last read's
+    byte rate would fill more than half of ``buffer_bytes`` in that time.
+
+    Waking once per ``gather_s`` instead of once per USB packet (pyserial's read loop returns to Python for every
+    arrival) is most of what reading costs at 1 kHz. Arrival stamps stay honest: a read is stamped when it
+    returns, and the newest line in it arrived shortly before, which is what the time base fits.
+    """
+
+    def __init__(self, gather_s: float = GATHER_S, buffer_bytes: int = KERNEL_BUFFER_BYTES,
+                 clock: Callable[[], float] = time.monotonic, sleep: Callable[[float], None] = time.sleep) -> None:
+        self.gather_s = gather_s
+        self.buffer_bytes = buffer_bytes
+        self._clock, self._sleep = clock, sleep
+        self._last: float | None = None
+        self.interval_s = gather_s
+
+    def pause(self) -> None:
+        """Sleep until the next read is due (at once on the first read)."""
+        if self._last is not None:
+            left = self._last + self.interval_s - self._clock()
+            if left > 0:
+                self._sleep(left)
+
+    def took(self, nbytes: int) -> None:
+        """A read has returned ``nbytes``: the next one is due ``interval_s`` from now, shortened to keep up
+        with the rate those bytes came at since the read before; at once after an empty read, which waited
+        for the port's read timeout already."""
+        now = self._clock()
+        if not nbytes:
+            self.interval_s = 0.0  # a silent link: the read's own timeout already waited
+        elif self._last is not None and now > self._last:
+            rate = nbytes / (now - self._last)
+            self.interval_s = min(self.gather_s, self.buffer_bytes / 2 / rate)
+        else:
+            self.interval_s = self.gather_s
+        self._last = now
+
+    def restart(self) -> None:
+        """A port opened afresh: its first read is not held back."""
+        self._last = None
+        self.interval_s = self.gather_s
 
 
 class SerialSource:
@@ -42,6 +95,8 @@ class SerialSource:
         self.url = url
         self.baud = baud
         self._ser: serial.SerialBase | None = None
+        self._pacer = ReadPacer() if sys.platform.startswith("linux") and "://" not in url else None
+        """Reads of a Linux device path are paced; other platforms and URLs read as bytes come."""
 
     @property
     def name(self) -> str:
@@ -63,20 +118,37 @@ class SerialSource:
             raise SourceError(f"{self.url}: not a usable port name or URL ({exc})") from None
         except (serial.SerialException, OSError) as exc:
             raise SourceError(open_failure(self.url, exc)) from None
+        if self._pacer is not None:
+            self._pacer.restart()
 
     def read(self) -> Chunk | None:
         """Whatever bytes have arrived (gathering for up to 0.1 s when none had), stamped on arrival."""
         ser = self._port()
         try:
-            # What is waiting, in one read; when nothing (or, on socket://, an unknown amount) is, gather what
-            # comes within the read timeout instead of returning byte by byte.
-            waiting = ser.in_waiting
-            data = ser.read(waiting if waiting > 1 else MAX_READ)
+            data = self._read_paced(ser) if self._pacer is not None else self._read_as_it_comes(ser)
         except (serial.SerialException, OSError) as exc:
             self._lost()
             raise LinkLost(f"{self.url}: link lost while reading ({_detail(exc)})") from None
         now = time.monotonic()
         return Chunk(bytes(data), now, time.time() - now)
+
+    @staticmethod
+    def _read_as_it_comes(ser: serial.SerialBase) -> bytes:
+        """What is waiting, in one read; when nothing (or, on socket://, an unknown amount) is, gather what
+        comes within the read timeout instead of returning byte by byte."""
+        waiting = ser.in_waiting
+        return ser.read(waiting if waiting > 1 else MAX_READ)
+
+    def _read_paced(self, ser: serial.SerialBase) -> bytes:
+        """Wait until the pacer says, then take everything waiting in one read; when nothing is, wait up to the
+        read timeout for a first byte (a silent link still returns, and an unplug is still noticed)."""
+        self._pacer.pause()
+        waiting = ser.in_waiting
+        data = ser.read(waiting) if waiting else ser.read(1)
+        if not waiting and data and ser.in_waiting:
+            data += ser.read(ser.in_waiting)
+        self._pacer.took(len(data))
+        return data
 
     def write(self, data: bytes) -> None:
         """Send a command line to the device."""

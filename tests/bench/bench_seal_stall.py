@@ -86,11 +86,12 @@ def main() -> None:
           f"{RATE_HZ} frames/s for {args.seconds:g} s, a part sealed every {args.part_minutes:g} min")
     print(f"frames lost by the host: {link.get('lost', '?')} (goal 0)")
     print(f"frames recorded:         {meta.get('rows')} in {len(meta.get('parts', []))} parts")
+    settings = Settings()
+    quiet = max(settings.batch_s, settings.quiet_batch_s)  # record --quiet: nobody watches, so the larger batches
     peak = meta.get("recorder_queue", {}).get("peak_batches")
-    print(f"recorder queue at most:  {peak} batches (the recorder was at most about {peak * 0.1:.1f} s behind)")
-    batch_s = Settings().batch_s
-    print(f"recorder queue headroom: {QUEUE_BATCHES} batches of up to {batch_s:g} s = {QUEUE_BATCHES * batch_s:g} s "
-          "of data before ingest stops reading the port")
+    print(f"recorder queue at most:  {peak} batches (the recorder was at most about {peak * quiet:.1f} s behind)")
+    print(f"recorder queue headroom: {QUEUE_BATCHES} batches of {quiet:g} s = {QUEUE_BATCHES * quiet:g} s of data "
+          f"({QUEUE_BATCHES * settings.batch_s:g} s while a screen watches) before ingest stops reading the port")
     print(done.stdout.strip())
 
 
