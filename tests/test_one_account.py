@@ -7,6 +7,7 @@ missing frames, a restart without a header and a dropout, through a rig whose vo
 
 from __future__ import annotations
 
+import json
 import shutil
 from pathlib import Path
 
@@ -20,6 +21,7 @@ from logger.cal.fit import Polynomial
 from logger.cal.profile import Profile, save_profile
 from logger.core import GAP_S
 from logger.ingest import Pipeline, Settings
+from logger.ingest.outlet import GOING_ON_KINDS, event_key
 from logger.review.summary import summarize
 from logger.rig import load_rig
 from logger.sim.simple import RIG_TOML
@@ -123,3 +125,64 @@ def test_a_zero_made_while_running_is_replayed_by_recal_at_its_sample(tmp_path: 
     recalibrate(run, [rig.channel("out_v").profile])
     pd.testing.assert_frame_equal(pd.read_parquet(run, columns=["out_v", "out_a"]), before)
     assert _figures(run) == pytest.approx(live, rel=1e-12)
+
+
+class _Heard:
+    """An outlet that keeps what it is told (the pipeline calls it on the ingest thread; read after the end)."""
+
+    name = "heard"
+
+    def __init__(self) -> None:
+        self.figures, self.started, self.ended, self.states, self.closed = [], [], [], [], False
+
+    def event_started(self, event):
+        self.started.append(event)
+
+    def event_ended(self, event):
+        self.ended.append(event)
+
+    def seconds(self, figures):
+        self.figures.append(figures)
+
+    def status(self, snapshot):
+        self.states.append(snapshot.state)
+
+    def summary(self):
+        return "heard: all of it"
+
+    def account(self):
+        return {"told": len(self.figures)}
+
+    def close(self):
+        self.closed = True
+
+
+@pytest.mark.parametrize("rate", [10.0, 1000.0])
+def test_an_outlet_hears_the_rollups_seconds_and_each_event_begin_and_end(tmp_path: Path, rate: float) -> None:
+    """What a broker is sent each second is the run's own rollup row for that second (one computation), and
+    every rail event is heard once as it begins and once as it ends (common practice, no source)."""
+    rig = load_rig(_rig_with_profile(tmp_path))
+    source, _ = make_source(_device(rate), Link(read_s=max(0.01, 2 / rate), seed=5))
+    heard = _Heard()
+    pipeline = Pipeline(source, rig, Settings(record_root=tmp_path / "runs"), outlets=[heard])
+    pipeline.start()
+    assert pipeline.wait(120) and pipeline.error is None, pipeline.error
+    (run,) = (tmp_path / "runs").iterdir()
+    rollup = pd.read_parquet(sorted(run.glob("_rollup-*.parquet"))).sort_values("device_s", ignore_index=True)
+    device_s = np.concatenate([f.device_s for f in heard.figures])
+    assert (np.diff(device_s) > 0).all()  # each second told once, in order
+    np.testing.assert_array_equal(device_s, rollup["device_s"].to_numpy())
+    k = heard.figures[0].channels.index("out_v")
+    for stat, column in (("minimum", "out_v_min"), ("mean", "out_v_mean"), ("maximum", "out_v_max")):
+        told = np.concatenate([getattr(f, stat)[:, k] for f in heard.figures])
+        np.testing.assert_allclose(told, rollup[column].to_numpy(), rtol=1e-12, equal_nan=True)
+    joules = np.concatenate([f.joules[:, 0] for f in heard.figures])
+    np.testing.assert_allclose(joules, rollup[f"{heard.figures[0].rails[0]}_w_int"].to_numpy(), rtol=1e-9)
+    dips = [e for e in heard.ended if e.kind in ("brownout", "dropout")]
+    assert len(dips) == 2
+    begun = [event_key(e) for e in heard.started]
+    assert len(begun) == len(set(begun)) and sorted(begun) == sorted(event_key(e) for e in heard.ended
+                                                                      if e.kind in GOING_ON_KINDS)
+    assert {event_key(e) for e in dips} <= set(begun)
+    assert heard.closed and heard.states[-1] == "stopped"
+    assert json.loads((run / "_run.json").read_text())["heard"]["told"] == len(heard.figures)

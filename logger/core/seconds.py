@@ -159,6 +159,19 @@ class Seconds:
         """Every row so far, in order of seconds, rows of the same second combined."""
         return merge_rows(self.rows, len(self.channels) + len(self.pairs), len(self.channels))
 
+    def take_done(self, final: bool = False) -> dict[str, np.ndarray] | None:
+        """The rows of every second before the newest sample's (every row, when the stream has ended: ``final``),
+        combined, and forgotten here: a live feed of whole seconds. None when no second has ended since."""
+        if not self.rows or self.carry is None:
+            return None
+        merged = self.merged()
+        done = merged["key"] < self.carry.device_us // SECOND_US if not final else np.ones(len(merged["key"]), bool)
+        if not done.any():
+            self.rows = [merged]
+            return None
+        self.rows = [{k: v[~done] for k, v in merged.items()}] if not done.all() else []
+        return {k: v[done] for k, v in merged.items()}
+
 
 def merge_rows(rows: list[dict[str, np.ndarray]], int_width: int, width: int) -> dict[str, np.ndarray]:
     """Concatenate batch rows and combine rows of the same second (a second split across batches)."""

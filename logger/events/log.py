@@ -14,10 +14,12 @@ DIPS = ("brownout", "dropout")
 
 
 class EventLog:
-    """Where every event goes; ``sink`` receives each as a table row (the recorder's ``add_event``)."""
+    """Where every event goes; ``sink`` receives each as a table row (the recorder's ``add_event``), and
+    ``listener`` each numbered event (the pipeline's outlets)."""
 
     def __init__(self, keep: int = 500, sink: Callable[[dict[str, Any]], None] | None = None) -> None:
         self.sink = sink
+        self.listener: Callable[[Event], None] | None = None
         self.counts: Counter[str] = Counter()
         self._recent: deque[Event] = deque(maxlen=keep)
         self._next_id = 1
@@ -32,6 +34,8 @@ class EventLog:
         self.counts[event.kind] += 1
         if self.sink is not None:
             self.sink(event.row())
+        if self.listener is not None:
+            self.listener(event)
         return event
 
     def recent(self, count: int = 50) -> tuple[Event, ...]:

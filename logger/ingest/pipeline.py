@@ -19,7 +19,8 @@ import queue
 import threading
 import time
 import traceback
-from dataclasses import dataclass
+from collections.abc import Sequence
+from dataclasses import dataclass, replace
 from pathlib import Path
 from typing import Any
 
@@ -31,6 +32,7 @@ from logger.events.link import LinkWatch
 from logger.events.log import EventLog
 from logger.ingest.account import clock_account, link_counts, link_health
 from logger.ingest.flow import FlowWatch
+from logger.ingest.outlet import GOING_ON_KINDS, Outlet, event_key, second_figures
 from logger.ingest.recorder import QUEUE_BATCHES, Recorder
 from logger.ingest.runs import Runs
 from logger.ingest.state import RateMeter, Ring, Snapshot
@@ -83,16 +85,26 @@ class Settings:
 
 
 class Pipeline:
-    """One run: from the first byte to sealed parts. Start it, watch snapshots, stop it."""
+    """One run: from the first byte to sealed parts. Start it, watch snapshots, stop it.
 
-    def __init__(self, source: Source, rig: Rig, settings: Settings | None = None) -> None:
+    ``outlets`` hear of the run as it goes (:mod:`logger.ingest.outlet`): events as they start and end, each
+    finished second's figures, and the run's state; they are closed when the run has ended.
+    """
+
+    def __init__(self, source: Source, rig: Rig, settings: Settings | None = None,
+                 outlets: Sequence[Outlet] = ()) -> None:
         self.source = source
         self.rig = rig
         self.settings = s = settings or Settings()
         self.decoder = Decoder()
         self.events = EventLog()
+        self.outlets = list(outlets)
+        self.events.listener = self._event_ended if self.outlets else None
+        self._going_on: set[str] = set()
+        """The keys (``event_key``) of events the outlets have heard begin and not yet end."""
         self.stream = SampleStream(rig, self._note, gap_s=s.gap_s, duration_s=s.duration_s,
-                                   live_seconds=s.live_seconds, start_utc=s.start_utc)
+                                   live_seconds=s.live_seconds, start_utc=s.start_utc,
+                                   keep_seconds=bool(self.outlets))
         self.state = "waiting"
         self.message = f"opening {source.name}"
         self.error: str | None = None
@@ -278,6 +290,7 @@ class Pipeline:
                 self._finish()
             finally:
                 self._publish()
+                self._close_outlets()
                 self._done.set()
 
     def _step(self) -> bool:
@@ -366,6 +379,7 @@ class Pipeline:
         self._flow.frames_so_far(self.decoder.counters.frames)
         if self.stream.last_utc_us is not None:
             self._note(self._link.rejects(self.decoder.counters.rejected, self.stream.last_utc_us))
+        self._tell_outlets()
 
     def _on_header(self, header: DeviceHeader) -> None:
         if not self.stream.on_header(header):
@@ -466,6 +480,8 @@ class Pipeline:
             extra["crash"] = self.crash
         if self.notes:
             extra["notes"] = list(self.notes.values())
+        for outlet in self.outlets:
+            extra[outlet.name] = outlet.account()
         return extra
 
     def _watch(self) -> None:
@@ -523,6 +539,7 @@ class Pipeline:
                 "the firmware, or set device.adc_bits and device.vref_mv in the rig file"
             )
         self.stream.finish()
+        self._tell_outlets(final=True)
         extra = self._run_account(self.recorder) if self.recorder is not None else {}
         error = self.runs.finish(self.stop_reason, extra)
         if error and not self.error:
@@ -530,8 +547,48 @@ class Pipeline:
         if self.state != "failed":
             self.state, self.message = "stopped", self.stop_reason
 
+    # -- outlets -----------------------------------------------------------------------------------------
+
+    def _tell_outlets(self, final: bool = False) -> None:
+        """Hand the outlets the seconds that have ended and the events that have begun since the last batch
+        (at the end of the stream, its last second too)."""
+        core = self.processor
+        if not self.outlets or core is None:
+            return
+        figures = second_figures(core.seconds, final)
+        if figures is not None:
+            self._each_outlet("seconds", figures)
+        for event in core.active():
+            key = event_key(event)
+            if key not in self._going_on:
+                self._going_on.add(key)
+                self._each_outlet("event_started", event)
+
+    def _event_ended(self, event: Event) -> None:
+        if event.kind in GOING_ON_KINDS:
+            key = event_key(event)
+            if key in self._going_on:
+                self._going_on.discard(key)
+            else:  # begun and ended within one batch: heard to begin all the same
+                self._each_outlet("event_started", replace(event, end_us=None, device_end_us=None, id=None))
+        self._each_outlet("event_ended", event)
+
+    def _each_outlet(self, method: str, *args: Any) -> None:
+        """Call one method of every outlet; one that fails is dropped with a note, and the run goes on."""
+        for outlet in list(self.outlets):
+            try:
+                getattr(outlet, method)(*args)
+            except Exception as exc:
+                self.outlets.remove(outlet)
+                self.message = self.notes[f"outlet {outlet.name}"] = (
+                    f"{outlet.name} stopped ({type(exc).__name__}: {exc}); the recording goes on without it")
+
+    def _close_outlets(self) -> None:
+        self._each_outlet("close")
+        self.outlets = []
+
     def _publish(self) -> None:
-        """Swap in a new frozen picture of the run for other threads."""
+        """Swap in a new frozen picture of the run for other threads, and show it to the outlets."""
         core = self.processor
         latest = self.ring.latest(1)[1][0] if self.ring is not None and self.ring.written else None
         self._snapshot = Snapshot(
@@ -553,4 +610,7 @@ class Pipeline:
             active=tuple(core.active()) if core else (),
             charge_ah=core.charge_ah if core else (),
             energy_wh=core.energy_wh if core else (),
+            outlets=tuple(line for o in self.outlets if (line := o.summary())),
         )
+        if self.outlets:
+            self._each_outlet("status", self._snapshot.with_recording(self.runs.state(), self.recording))

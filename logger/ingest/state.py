@@ -132,6 +132,8 @@ class Snapshot:
     """Recording now, or about to be from the first header on."""
     last_run: str | None = None
     """The folder of the run sealed last, when recording was stopped and started again."""
+    outlets: tuple[str, ...] = ()
+    """One line per outlet (a broker it publishes to, commands it runs): its state and what it dropped."""
 
     def with_recording(self, recording: RecordingState | None, recording_on: bool) -> Snapshot:
         """The same picture with the recorder's progress as of now (it moves on its own thread)."""

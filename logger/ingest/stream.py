@@ -47,11 +47,13 @@ class SampleStream:
         duration_s: stop after this much device time from the first sample (None: never).
         live_seconds: how much the live rings hold.
         start_utc: the first label when the source gives no arrival times (None: the host's clock then).
+        keep_seconds: keep the core's per-second rows until taken (an outlet publishes them).
     """
 
     def __init__(self, rig: Rig, note: Callable[[list[Event]], None], *, gap_s: float, duration_s: float | None,
-                 live_seconds: float, start_utc: float | None) -> None:
+                 live_seconds: float, start_utc: float | None, keep_seconds: bool = False) -> None:
         self.rig = rig
+        self.keep_seconds = keep_seconds
         self._note = note
         self.gap_s, self.duration_s, self.live_seconds, self.start_utc = gap_s, duration_s, live_seconds, start_utc
         self.header: DeviceHeader | None = None
@@ -98,7 +100,8 @@ class SampleStream:
         first = self.header is None
         if first:
             self.timebase = TimeBase(header, time.time() if self.start_utc is None else self.start_utc)
-            self.processor = Processor(self.rig, Calibrator(self.rig, header), gap_s=self.gap_s)
+            self.processor = Processor(self.rig, Calibrator(self.rig, header), gap_s=self.gap_s,
+                                       keep_rows=self.keep_seconds)
             capacity = max(1024, int(self.live_seconds * header.rate_hz))
             self.ring, self.counts_ring = Ring(capacity, self._width), Ring(capacity, self._width)
         elif _format(header) != _format(self.header):
