@@ -17,7 +17,7 @@ from logger.act.command import split_command
 from logger.act.environ import variable_text
 from logger.act.runner import ActError
 from logger.cli import main
-from logger.events.model import KINDS
+from logger.events.model import KINDS, Event
 from logger.ingest import Pipeline, Settings
 from logger.ingest.state import LinkHealth, Snapshot
 from logger.sim.simple import simple_rig
@@ -229,6 +229,22 @@ def test_a_runner_that_never_heard_of_an_event_closes_at_once() -> None:
     runner.offer("mark", {"id": 1})
     runner.close()
     assert runner.summary() == "on-event: no command run yet" and runner.account()["commands"] == 0
+
+
+def test_each_run_accounts_for_the_commands_of_its_own_time() -> None:
+    """The live screen can stop and start recording: each run's _run.json counts what happened during it."""
+    outlet = CommandOutlet(CommandRunner(_python("pass"), {"mark"}, timeout_s=120.0, close_s=120.0), simple_rig())
+    outlet.event_ended(Event("mark", 1_000_000, detail="first run", id=1))
+    first = outlet.account()
+    wait_until(lambda: outlet.runner.tally().ok == 1, "the first command to finish")
+    for n in (2, 3):
+        outlet.event_ended(Event("mark", n * 1_000_000, detail="second run", id=n))
+    outlet.event_ended(Event("brownout", 4_000_000, 4_100_000, channel="out_v", id=4))  # not asked for
+    second = outlet.account()
+    outlet.close()
+    assert first["commands"] == 1 and first["ok"] + first["unfinished"] == 1
+    assert second["commands"] == 2 and first["ok"] + second["ok"] + second["unfinished"] == 3
+    assert outlet.runner.tally().ok == 3 and outlet.account()["commands"] == 0
 
 
 def test_the_link_panel_shows_each_outlets_line() -> None:

@@ -12,6 +12,8 @@ from logger.ingest.outlet import SecondFigures
 from logger.ingest.state import Snapshot
 from logger.rig import Rig
 
+_COUNTS = ("commands", "ok", "failed", "timed_out", "dropped", "cut_short")
+
 
 def event_fields(event: Event, rig: str, run: str | None, unit: str | None = None) -> dict[str, Any]:
     """An event as the runner takes it: the columns of the run's event table (``start`` and ``end`` as UTC
@@ -34,6 +36,7 @@ class CommandOutlet:
         self._rig = rig.name
         self._units = {ch.name: ch.unit for ch in rig.channels}
         self._folder: str | None = None
+        self._before: dict[str, int] = {}
 
     def event_started(self, event: Event) -> None:
         """Commands run when an event ends, never as it begins."""
@@ -55,7 +58,12 @@ class CommandOutlet:
         return self.runner.summary()
 
     def account(self) -> dict[str, Any]:
-        return self.runner.account()
+        """The runner's account for the run now ending: its counts since the account of the run before (the
+        live screen can record several runs), and the commands still unfinished."""
+        whole = self.runner.account()
+        ours = {key: value - self._before.get(key, 0) if key in _COUNTS else value for key, value in whole.items()}
+        self._before = {key: whole[key] for key in _COUNTS}
+        return ours
 
     def close(self) -> None:
         self.runner.close()
