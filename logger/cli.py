@@ -501,7 +501,7 @@ def _record(source: Source, rig: Rig, args: argparse.Namespace, screen: bool = F
         _wait_for_seal(pipeline)
     code = report(pipeline)
     if acting is not None:
-        print(f"railtap: {acting.runner.summary()}", file=sys.stderr)
+        print(f"railtap: {acting.runner.summary(last=screen)}", file=sys.stderr)  # the log said each problem
     if failure is not None:
         print(f"railtap: {failure}; the run is sealed (please report this)", file=sys.stderr)
         return 1

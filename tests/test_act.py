@@ -5,6 +5,7 @@ from __future__ import annotations
 
 import json
 import sys
+import time
 from pathlib import Path
 
 import pandas as pd
@@ -245,6 +246,60 @@ def test_each_run_accounts_for_the_commands_of_its_own_time() -> None:
     assert first["commands"] == 1 and first["ok"] + first["unfinished"] == 1
     assert second["commands"] == 2 and first["ok"] + second["ok"] + second["unfinished"] == 3
     assert outlet.runner.tally().ok == 3 and outlet.account()["commands"] == 0
+
+
+def test_under_the_live_screen_a_failing_command_shows_in_the_link_panel_and_writes_nothing(
+        tmp_path: Path, capfd) -> None:
+    """The demo bench at 100x: its brownout at 30 s comes 0.3 s in. The command's text would garble the screen,
+    so it goes nowhere; its exit status is shown in the panel."""
+    import asyncio
+
+    from logger.act.command import OnEvent, on_event_outlet
+    from logger.sim.scenario import load_scenario
+    from logger.sources.simulated import SimSource
+    from logger.tui import RailtapApp
+    from logger.tui.status import StatusPanel
+
+    scenario = load_scenario("demo-bench")
+    outlet = on_event_outlet(OnEvent(tuple(_python("import sys; print('out'); sys.exit('err')")),
+                                     frozenset({"brownout"}), 120.0), scenario.rig, screen=True, quiet=False)
+    pipeline = Pipeline(SimSource(scenario.make_device(1), speed=100.0, duration_s=scenario.duration_s),
+                        scenario.rig, Settings(record_root=tmp_path), outlets=[outlet])
+    pipeline.start()
+
+    async def run() -> None:
+        app = RailtapApp(pipeline)
+        async with app.run_test(size=(100, 30)) as pilot:
+            status = app.query_one(StatusPanel)
+            deadline = time.monotonic() + 60.0
+            while "exited with status 1" not in str(status.content):
+                assert time.monotonic() < deadline, str(status.content)
+                await pilot.pause(0.02)
+            assert "on-event: 0 ok, 1 failed; last: brownout #1 on out_v: python" in str(status.content)
+
+    try:
+        asyncio.run(run())
+    finally:
+        pipeline.stop()
+    captured = capfd.readouterr()
+    assert "out" not in captured.out.split() and "err" not in captured.err.split()
+
+
+def test_a_runner_whose_thread_failed_says_so_at_the_next_offer() -> None:
+    """A pipeline drops an outlet that raises, with a note: a broken runner must not fail silently."""
+
+    class Unprintable:
+        def __str__(self) -> str:
+            raise ValueError("no text")
+
+    said, log = _lines()
+    runner = CommandRunner(["true"], {"mark"}, log=log)
+    runner.offer("mark", {"id": 1, "odd": Unprintable()})
+    wait_until(lambda: said, "the runner to say it stopped")
+    assert said == ["on-event stopped: ValueError: no text"]
+    with pytest.raises(RuntimeError, match="on-event stopped: ValueError: no text"):
+        runner.offer("mark", {"id": 2})
+    runner.close()
 
 
 def test_the_link_panel_shows_each_outlets_line() -> None:

@@ -171,16 +171,16 @@ class CommandRunner:
         """What has been done so far (a frozen picture, safe from any thread)."""
         return self._tally
 
-    def summary(self) -> str:
-        """One short line: what ran, failed, timed out, was dropped, and the latest problem."""
+    def summary(self, last: bool = True) -> str:
+        """One short line: what ran, failed, timed out, was dropped, and (``last``) the latest problem."""
         t = self._tally
         if not self.offered:
             return f"{self.name}: no command run yet"
         counts = [f"{t.ok} ok"] + [f"{n} {label}" for n, label in (
             (t.failed, "failed"), (t.timed_out, "timed out"), (t.cut_short, "cut short"), (t.dropped, "dropped"),
             (t.running, "running"), (t.waiting, "waiting")) if n]
-        last = f"; last: {t.last_problem}" if t.last_problem else ""
-        return f"{self.name}: {', '.join(counts)}{last}"
+        problem = f"; last: {t.last_problem}" if last and t.last_problem else ""
+        return f"{self.name}: {', '.join(counts)}{problem}"
 
     def account(self) -> dict[str, Any]:
         """The tally for a run's ``_run.json``: counts and the program's name, never an event's values nor the
@@ -217,8 +217,9 @@ class CommandRunner:
                 self._publish()
             self._end_leftovers()
         except Exception as exc:  # a bug: the caller hears of it at its next offer
-            self._broken = f"{self.name} stopped: {type(exc).__name__}: {exc}"
-            self._problem(self._broken)
+            line = f"stopped: {type(exc).__name__}: {exc}"
+            self._broken = f"{self.name} {line}"  # before the line is said: whoever hears it finds it set
+            self._problem(line)
         finally:
             self._publish()
 
@@ -289,7 +290,7 @@ class CommandRunner:
                           f"({job.process.pid})")
         for job in self._queued:
             self._count("dropped")
-            self._problem(f"{job.what}: not run, the run ended before it could start")
+            self._problem(f"{job.what}: not run, still waiting at the end")
         self._running, self._queued = [], deque()
 
     def _failed(self, job: _Job, why: str) -> None:
