@@ -229,7 +229,7 @@ def test_a_runner_that_never_heard_of_an_event_closes_at_once() -> None:
     runner = CommandRunner(["true"], {"brownout"})
     runner.offer("mark", {"id": 1})
     runner.close()
-    assert runner.summary() == "on-event: no command run yet" and runner.account()["commands"] == 0
+    assert runner.summary() == "on-event: none yet" and runner.account()["commands"] == 0
 
 
 def test_each_run_accounts_for_the_commands_of_its_own_time() -> None:

@@ -175,7 +175,7 @@ class CommandRunner:
         """One short line: what ran, failed, timed out, was dropped, and (``last``) the latest problem."""
         t = self._tally
         if not self.offered:
-            return f"{self.name}: no command run yet"
+            return f"{self.name}: none yet"
         counts = [f"{t.ok} ok"] + [f"{n} {label}" for n, label in (
             (t.failed, "failed"), (t.timed_out, "timed out"), (t.cut_short, "cut short"), (t.dropped, "dropped"),
             (t.running, "running"), (t.waiting, "waiting")) if n]
