@@ -179,6 +179,11 @@ def _record_options(p: argparse.ArgumentParser) -> None:
     p.add_argument("--part-minutes", type=float, default=60.0, help="start a new Parquet part this often")
     p.add_argument("--keep-raw", action="store_true", help="also keep the raw bytes, for replay")
     p.add_argument("--quiet", action="store_true", help="no status lines, only the final summary")
+    p.add_argument("--publish", metavar="URL",
+                   help="also publish to an MQTT broker: mqtt://HOST[:PORT]/PREFIX (mqtts:// for TLS; login from "
+                        "RAILTAP_MQTT_USER and RAILTAP_MQTT_PASSWORD)")
+    p.add_argument("--bench", metavar="NAME", help="this bench's name under the prefix (default: --label, else the "
+                                                    "rig's name)")
 
 
 def _screen_options(p: argparse.ArgumentParser) -> None:
@@ -464,7 +469,7 @@ def _record(source: Source, rig: Rig, args: argparse.Namespace, screen: bool = F
     )
     for warning in rig.warnings():
         print(f"railtap: warning: {warning}", file=sys.stderr)
-    pipeline = Pipeline(source, rig, settings)
+    pipeline = Pipeline(source, rig, settings, outlets=_outlets(args, rig))
     pipeline.start()
     if args.run is cmd_record and not args.quiet:
         print(f"railtap record: {rig.name} from {source.name} into {args.out}/; Ctrl-C stops and seals the run",
@@ -497,6 +502,23 @@ def _record(source: Source, rig: Rig, args: argparse.Namespace, screen: bool = F
         print(f"railtap: {failure}; the run is sealed (please report this)", file=sys.stderr)
         return 1
     return code
+
+
+def _outlets(args: argparse.Namespace, rig: Rig) -> list[Any]:
+    """What hears of the run beyond its screen and folder: a broker (``--publish``)."""
+    outlets: list[Any] = []
+    if args.publish:
+        from logger.publish import AddressError, Publisher, bench_name, parse_broker, slug
+
+        try:
+            broker = parse_broker(args.publish)
+            bench = bench_name(args.bench) if args.bench else slug(args.label or rig.name)
+        except AddressError as exc:
+            raise UsageError(f"--publish: {exc}") from None
+        outlets.append(Publisher(broker, bench, rig.name, tuple(p.rail for p in rig.power_pairs())))
+    elif args.bench:
+        raise UsageError("--bench names this bench on a broker: give --publish mqtt://HOST/PREFIX too")
+    return outlets
 
 
 def _start_time(args: argparse.Namespace) -> dict[str, Any]:
