@@ -93,6 +93,14 @@ def _parser() -> argparse.ArgumentParser:
     _screen_options(demo)
     demo.set_defaults(run=cmd_demo)
 
+    watch = sub.add_parser("watch", help="every bench publishing to an MQTT broker on one screen (or in a browser)")
+    watch.add_argument("url", metavar="URL", help="the broker and prefix the benches publish to: mqtt://HOST/PREFIX")
+    watch.add_argument("--serve", action="store_true", help="serve the screen to web browsers instead")
+    watch.add_argument("--host", default="127.0.0.1",
+                       help="with --serve: the address to listen on (default 127.0.0.1, this machine only)")
+    watch.add_argument("--port", type=int, default=8470, help="with --serve: the port to listen on (default 8470)")
+    watch.set_defaults(run=cmd_watch)
+
     sim = sub.add_parser("sim", help="serve the simulated rig on a pseudo-terminal, or list its scenarios")
     sim.add_argument("--pty", action="store_true", help="serve on a new pseudo-terminal")
     sim.add_argument("--list", action="store_true", help="list the shipped scenarios")
@@ -215,6 +223,26 @@ def cmd_demo(args: argparse.Namespace) -> int:
         print(f"railtap demo: recording the simulated rig {scenario.name!r} ({scenario.description}); "
               "Ctrl-C stops.", file=sys.stderr)
     return _record(source, scenario.rig, args, screen=not args.headless)
+
+
+def cmd_watch(args: argparse.Namespace) -> int:
+    from logger.publish import AddressError, parse_broker
+
+    try:
+        broker = parse_broker(args.url)
+    except AddressError as exc:
+        raise UsageError(str(exc)) from None
+    if args.serve:
+        from logger.watch.serve import serve
+
+        return serve(args.url, args.host, args.port)
+    if args.host != "127.0.0.1" or args.port != 8470:
+        raise UsageError("--host and --port are for --serve")
+    from logger.watch import WatchApp
+    from logger.watch.feed import Feed
+
+    WatchApp(Feed(broker), broker.prefix, broker.url).run()
+    return 0
 
 
 def cmd_sim(args: argparse.Namespace) -> int:

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import os
+import socket
 import ssl
 
 import paho.mqtt.client as mqtt
@@ -10,12 +11,13 @@ import paho.mqtt.client as mqtt
 from logger.publish.address import Broker
 
 
-def make_client(broker: Broker, role: str, will: tuple[str, bytes] | None = None) -> mqtt.Client:
+def make_client(broker: Broker, role: str, will: tuple[str, bytes] | None = None,
+                protocol: int = mqtt.MQTTv311) -> mqtt.Client:
     """A client that has not connected yet. ``role`` names it to the broker (with this process's id, so two
     processes never share an id and knock each other off); ``will`` is a retained QoS 1 message the broker
     publishes if this client vanishes without saying goodbye."""
-    client = mqtt.Client(mqtt.CallbackAPIVersion.VERSION2, client_id=f"railtap-{role}-{os.getpid()}",
-                         protocol=mqtt.MQTTv311, clean_session=True)
+    client = mqtt.Client(mqtt.CallbackAPIVersion.VERSION2, client_id=f"railtap-{role}-{socket.gethostname()}-{os.getpid()}",
+                         protocol=protocol, clean_session=True if protocol != mqtt.MQTTv5 else None)
     if broker.user is not None:
         client.username_pw_set(broker.user, broker.password)
     if broker.tls:
