@@ -16,8 +16,9 @@ def make_client(broker: Broker, role: str, will: tuple[str, bytes] | None = None
     """A client that has not connected yet. ``role`` names it to the broker (with this process's id, so two
     processes never share an id and knock each other off); ``will`` is a retained QoS 1 message the broker
     publishes if this client vanishes without saying goodbye."""
-    client = mqtt.Client(mqtt.CallbackAPIVersion.VERSION2, client_id=f"railtap-{role}-{socket.gethostname()}-{os.getpid()}",
-                         protocol=protocol, clean_session=True if protocol != mqtt.MQTTv5 else None)
+    client_id = f"railtap-{role}-{socket.gethostname()}-{os.getpid()}"
+    client = mqtt.Client(mqtt.CallbackAPIVersion.VERSION2, client_id=client_id, protocol=protocol,
+                         clean_session=True if protocol != mqtt.MQTTv5 else None)
     if broker.user is not None:
         client.username_pw_set(broker.user, broker.password)
     if broker.tls:
