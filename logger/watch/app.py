@@ -24,7 +24,7 @@ from logger.watch.text import STATE_STYLES, channels_text, elapsed, event_text
 POLL_S = 0.2
 STATE_FILTERS = ("all", "attention", "recording", "offline")
 KIND_FILTERS = ("all", "brownout", "dropout", "overvoltage", "overcurrent", "flicker")
-COLUMNS = (("bench", 14), ("state", 12), ("readings: now [last minute]", 44), ("last event", 26), ("today", 6),
+COLUMNS = (("bench", 14), ("state", 12), ("now [last minute]", 32), ("last event", 28), ("today", 7),
            ("elapsed", 9))
 
 
@@ -127,7 +127,7 @@ class WatchApp(App[None]):
             keep = table.cursor_row
             table.clear()
             for r in shown:
-                table.add_row(*self._cells(r), key=r.name)
+                table.add_row(*self._cells(r), key=r.name, height=_height(r))
             self._order, self._shown = names, {r.name: self._cells(r) for r in shown}
             if shown:
                 table.move_cursor(row=min(keep, len(shown) - 1))
@@ -135,6 +135,9 @@ class WatchApp(App[None]):
             for r in shown:
                 cells = self._cells(r)
                 if cells != self._shown.get(r.name):
+                    if _height(r) != table.rows[r.name].height:  # its channels became known: draw it afresh
+                        self._order = []
+                        return self.refresh_rows()
                     for (label, _), old, new in zip(COLUMNS, self._shown[r.name], cells, strict=True):
                         if old != new:
                             table.update_cell(r.name, label, new)
@@ -180,3 +183,8 @@ class WatchApp(App[None]):
 
     def on_data_table_row_selected(self, event: DataTable.RowSelected) -> None:
         self.action_open()
+
+
+def _height(row: Row) -> int:
+    """A bench's lines: one per channel, two at least (the last event takes two)."""
+    return max(2, len(row.channels))
