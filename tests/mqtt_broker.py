@@ -31,14 +31,21 @@ def free_port() -> int:
 class Broker:
     """Mosquitto in a folder of its own; :meth:`stop` and :meth:`start` again keep the same port."""
 
-    def __init__(self, folder: Path) -> None:
+    def __init__(self, folder: Path, users: dict[str, str] | None = None) -> None:
         if MOSQUITTO is None:
             pytest.skip("no mosquitto: apt-get install mosquitto (.ci/run does)")
         self.folder = folder
         folder.mkdir(parents=True, exist_ok=True)
         self.port = free_port()
         self.conf = folder / "mosquitto.conf"
-        self.conf.write_text(f"listener {self.port} 127.0.0.1\nallow_anonymous true\npersistence true\n"
+        login = "allow_anonymous true\n"
+        if users:
+            passwords = folder / "passwords"
+            for user, password in users.items():
+                subprocess.run(["mosquitto_passwd", "-b", *(["-c"] if not passwords.exists() else []), str(passwords),
+                                user, password], check=True, capture_output=True)
+            login = f"allow_anonymous false\npassword_file {passwords}\n"
+        self.conf.write_text(f"listener {self.port} 127.0.0.1\n{login}persistence true\n"
                              f"persistence_location {folder}/\nautosave_interval 1\n"
                              f"log_dest file {folder}/mosquitto.log\nmax_queued_messages 100000\n"
                              f"user {getpass.getuser()}\n")  # as root it would switch to a user who cannot write here

@@ -121,3 +121,30 @@ def test_messages_that_are_not_ours_are_passed_over() -> None:
                            ("lab/b1/second", b'{"v": 1, "utc": "x", "ch": {"a": [1]}}'),
                            ("lab/b1/x/state", b'{"v": 1, "state": "x"}')):
         assert read_message("lab", topic, payload) is None, topic
+
+
+def test_a_login_comes_from_the_environment_and_is_never_written_down(tmp_path: Path) -> None:
+    """A broker that wants a login gets it from RAILTAP_MQTT_USER and RAILTAP_MQTT_PASSWORD_FILE; the password
+    is in neither _run.json nor the link panel's line; a wrong one is said in words (MQTT 3.1.1 s3.2.2.3:
+    CONNACK return code 4 or 5)."""
+    broker = Broker(tmp_path / "broker", users={"bench-7": "pa55-word"})
+    try:
+        secret = tmp_path / "secret"
+        secret.write_text("pa55-word\n")
+        env = {"RAILTAP_MQTT_USER": "bench-7", "RAILTAP_MQTT_PASSWORD_FILE": str(secret)}
+        wrong = Publisher(parse_broker(f"{broker.url}/lab", {"RAILTAP_MQTT_USER": "bench-7",
+                                                             "RAILTAP_MQTT_PASSWORD": "guess"}), "b7", "simple")
+        wait_until(lambda: "refused the login" in (wrong.progress.error or ""), "the refusal")
+        assert "refused the login" in wrong.summary()
+        wrong.close()
+        device = Device(rate_hz=100.0, duration_s=5.0, seed=2)
+        source, _ = make_source(device, Link(read_s=0.02, seed=1))
+        publisher = Publisher(parse_broker(f"{broker.url}/lab", env), "b7", "simple")
+        pipeline = Pipeline(source, simple_rig(), Settings(record_root=tmp_path / "runs"), outlets=[publisher])
+        pipeline.start()
+        assert pipeline.wait(60) and pipeline.error is None, pipeline.error
+        wait_until(lambda: publisher.progress.connects >= 1 and publisher.progress.error is None, "a login")
+        (run,) = (tmp_path / "runs").iterdir()
+        assert "pa55" not in (run / "_run.json").read_text() and "pa55" not in publisher.summary()
+    finally:
+        broker.stop()

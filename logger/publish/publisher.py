@@ -165,6 +165,7 @@ class _Courier:
         """The broker has accepted the connection (messages may go)."""
         self.next_try = 0.0
         self.tries = 0
+        self.leaving = False
         self.p = owner.progress
 
     def run(self) -> None:
@@ -184,6 +185,7 @@ class _Courier:
             if closing_at is not None and (now >= closing_at or self._all_sent()):
                 break
         if self.open:
+            self.leaving = True
             self.client.disconnect()  # a clean goodbye: the broker keeps the last state, not the will
             self.client.loop(timeout=0.1)
         self._share()
@@ -264,8 +266,8 @@ class _Courier:
         self.open = self.connected = False
         self.next_try = max(self.next_try, time.monotonic() + RETRY_S[0])
         if self.p.connected:
-            self.p = replace(self.p, connected=False, away_since=time.monotonic(), error=f"link to the broker lost "
-                                                                                          f"({reason})")
+            error = None if self.leaving else f"link to the broker lost ({reason})"
+            self.p = replace(self.p, connected=False, away_since=time.monotonic(), error=error)
 
     def _on_publish(self, client: mqtt.Client, userdata: Any, mid: int, reason: Any, properties: Any) -> None:
         leaf = self.unacked.pop(mid, None)
