@@ -148,3 +148,27 @@ def test_a_login_comes_from_the_environment_and_is_never_written_down(tmp_path: 
         assert "pa55" not in (run / "_run.json").read_text() and "pa55" not in publisher.summary()
     finally:
         broker.stop()
+
+
+def test_mqtts_checks_the_brokers_certificate_against_the_ca_it_is_given(tmp_path: Path) -> None:
+    """Over TLS the broker's certificate must chain to RAILTAP_MQTT_CA (or the system's CAs): one signed by an
+    unknown CA is refused and said so (RFC 5280 path validation; common practice, no source)."""
+    broker = Broker(tmp_path / "broker", tls=True)
+    listener = Listener(broker, "lab")
+    try:
+        url = f"mqtts://127.0.0.1:{broker.tls_port}/lab"
+        untrusted = Publisher(parse_broker(url, {}), "b-tls", "simple")
+        wait_until(lambda: "RAILTAP_MQTT_CA" in (untrusted.progress.error or ""), "the refusal of an unknown CA")
+        untrusted.close()
+        trusted = Publisher(parse_broker(url, {"RAILTAP_MQTT_CA": str(tmp_path / "broker" / "ca.pem")}), "b-tls",
+                            "simple")
+        device = Device(rate_hz=100.0, duration_s=5.0, seed=2)
+        source, _ = make_source(device, Link(read_s=0.02, seed=1))
+        pipeline = Pipeline(source, simple_rig(), Settings(record_root=tmp_path / "runs"), outlets=[trusted])
+        pipeline.start()
+        assert pipeline.wait(60) and pipeline.error is None, pipeline.error
+        wait_until(lambda: listener.state("lab/b-tls/state") == "stopped", "the state, over TLS")
+        assert len({d["device_s"] for d in listener.of("second")}) >= 5
+    finally:
+        listener.close()
+        broker.stop()

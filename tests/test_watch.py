@@ -87,6 +87,8 @@ def test_benches_needing_attention_come_first() -> None:
     assert ok.channels == (("out_v", 12.2, 11.9, pytest.approx(12.3), "V"),) and ok.today == 2
     assert ok.elapsed_s == 3723.0
     assert [d["kind"] for d in begun] == ["brownout"] and lab.ignored == 1
+    lab.apply(read_message("lab", "lab/b-ok/second", json.dumps(_second(NOW - 1, 12.2)).encode()), NOW)
+    assert len(lab.benches["b-ok"].seconds) == 2  # a figure delivered twice is kept once
     assert lab.apply(read_message("lab", "lab/b-dip/event", json.dumps(_begin(NOW - 0.5)).encode()), NOW) == []
     quiet = lab.rows(NOW + 60)  # nothing heard from b-ok for a minute although it says it records
     assert next(r for r in quiet if r.name == "b-ok").shown_state == "no data"

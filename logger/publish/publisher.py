@@ -27,7 +27,7 @@ from logger.ingest.outlet import SecondFigures
 from logger.ingest.state import Snapshot
 from logger.publish import topics
 from logger.publish.address import Broker
-from logger.publish.client import make_client, refusal
+from logger.publish.client import make_client, refusal, unreachable
 
 KEEPALIVE_S = 5
 """The broker takes a recorder for gone after 1.5 times this without a word, and publishes its will."""
@@ -244,8 +244,7 @@ class _Courier:
         try:
             self.client.reconnect()
         except (OSError, ValueError) as exc:
-            self.p = replace(self.p, error=f"cannot reach {self.owner.broker.host}:{self.owner.broker.port}: "
-                                           f"{getattr(exc, 'strerror', None) or exc}")
+            self.p = replace(self.p, error=unreachable(self.owner.broker, exc))
             self.next_try = now + RETRY_S[min(self.tries, len(RETRY_S) - 1)]
             self.tries += 1
             return
