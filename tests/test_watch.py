@@ -111,20 +111,29 @@ def test_the_lab_screen_filters_opens_a_bench_and_rings() -> None:
     assert app.feed.stopped
 
 
+async def _until(pilot, ready, what: str, deadline_s: float = 30.0) -> None:
+    """Let the app run until ``ready`` (a loaded machine may take a while to redraw)."""
+    deadline = time.monotonic() + deadline_s
+    while not ready():
+        assert time.monotonic() < deadline, f"timed out waiting for {what}"
+        await pilot.pause(0.05)
+
+
 async def _drive(app: WatchApp, rang: list[int]) -> None:
     async with app.run_test(size=(120, 30)) as pilot:
-        await pilot.pause()
         table = app.query_one("#benches", DataTable)
+        await _until(pilot, lambda: table.row_count == 4, "four benches")
         assert [str(table.get_row_at(i)[0]) for i in range(table.row_count)] == ["b-gone", "b-dip", "b-ok", "b-done"]
         assert rang == [1]  # one brownout began
         await pilot.press("s")  # attention only
-        assert table.row_count == 2
+        await _until(pilot, lambda: table.row_count == 2, "the attention filter")
         await pilot.press("s", "s", "s")  # recording, offline, all
-        assert app.state_filter == "all" and table.row_count == 4
+        await _until(pilot, lambda: app.state_filter == "all" and table.row_count == 4, "all benches again")
         table.move_cursor(row=2)
         await pilot.press("enter")
-        await pilot.pause()
-        assert isinstance(app.screen, BenchScreen) and app.screen.bench == "b-ok"
+        await _until(pilot, lambda: isinstance(app.screen, BenchScreen), "the bench's screen")
+        assert app.screen.bench == "b-ok"
         await pilot.press("escape")
+        await _until(pilot, lambda: not isinstance(app.screen, BenchScreen), "the lab again")
         await pilot.press("b")
-        assert app.bell_on is False
+        await _until(pilot, lambda: app.bell_on is False, "the bell off")
