@@ -172,3 +172,27 @@ def test_mqtts_checks_the_brokers_certificate_against_the_ca_it_is_given(tmp_pat
     finally:
         listener.close()
         broker.stop()
+
+
+def test_a_broker_that_never_answers_holds_up_nothing(tmp_path: Path) -> None:
+    """A port that takes the connection and never answers: the run goes at full speed to its end, the figures
+    past the buffer are counted dropped (oldest first), the events wait, and closing gives up after its limit."""
+    import socket
+
+    silent = socket.create_server(("127.0.0.1", 0))  # listens, never accepts: no CONNACK ever comes
+    try:
+        device = Device(rate_hz=100.0, duration_s=60.0, seed=2, script=(Dip(10.0, 2.0, 60.0),))
+        source, _ = make_source(device, Link(read_s=0.02, seed=1))
+        publisher = Publisher(parse_broker(f"mqtt://127.0.0.1:{silent.getsockname()[1]}/lab", {}), "b-x", "simple",
+                              buffer_seconds=10)
+        pipeline = Pipeline(source, simple_rig(), Settings(record_root=tmp_path / "runs"), outlets=[publisher])
+        pipeline.start()
+        assert pipeline.wait(120) and pipeline.error is None, pipeline.error
+        (run,) = (tmp_path / "runs").iterdir()
+        account = json.loads((run / "_run.json").read_text())["publish"]
+        rollup = _rollup(run)
+        assert account["sent"] == {"seconds": 0, "events": 0}
+        assert account["dropped"]["seconds"] == len(rollup) - 10 and account["dropped"]["events"] == 0
+        assert account["waiting_at_end"] >= 10
+    finally:
+        silent.close()

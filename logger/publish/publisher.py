@@ -39,6 +39,8 @@ BUFFER_EVENTS = 10_000
 INBOX = 4096
 IN_FLIGHT = 100
 """Messages sent and not yet acknowledged, at most."""
+SETTLE_S = 2.0
+"""How long the run's account waits for the publishing thread to file what it was handed."""
 CLOSE_S = 3.0
 """At the end of a run, how long to wait for the broker to take what is left."""
 RETRY_S = (0.5, 1.0, 2.0, 5.0)
@@ -115,6 +117,11 @@ class Publisher:
         return f"{self.broker.url}/{self.bench}: {how}, {lost:,} dropped"
 
     def account(self) -> dict[str, Any]:
+        """Sent, dropped and still waiting, once the publishing thread has filed all it was handed (at the end of
+        a run, so the three add up to what the run produced)."""
+        settled = threading.Event()
+        self._hand("settle", settled)
+        settled.wait(SETTLE_S)
         p = self.progress
         return {"broker": self.broker.url, "bench": self.bench, "connects": p.connects,
                 "sent": {"seconds": p.seconds_sent, "events": p.events_sent},
@@ -220,6 +227,9 @@ class _Courier:
         elif what == "state":
             self.snapshot = item
             self.state = self._state_message()
+        elif what == "settle":
+            self._share()
+            item.set()
         return what == "close"
 
     def _count(self, event: Event) -> None:
