@@ -14,6 +14,9 @@ from typing import TYPE_CHECKING, Any
 import pyarrow as pa
 
 from logger import __version__
+from logger.act.command import add_options as add_on_event_options
+from logger.act.command import on_event_from_args, on_event_outlet, split_command
+from logger.act.runner import ActError
 from logger.cal.assess import MODELS
 from logger.cal.capture import DEFAULT_MAX_SD, DEFAULT_SAMPLES
 from logger.cal.session import CalError
@@ -43,13 +46,15 @@ class UsageError(Exception):
 
 def main(argv: list[str] | None = None) -> int:
     parser = _parser()
-    args = parser.parse_args(argv)
-    if not hasattr(args, "run"):
-        parser.print_help()
-        return 2
     try:
+        argv, on_event_command = split_command(sys.argv[1:] if argv is None else argv)
+        args = parser.parse_args(argv)
+        if not hasattr(args, "run"):
+            parser.print_help()
+            return 2
+        args.acting = on_event_from_args(args, on_event_command)
         return args.run(args)
-    except (UsageError, RigError, ScenarioError, SourceError, StoreError, CalError, PlanError) as exc:
+    except (UsageError, RigError, ScenarioError, SourceError, StoreError, CalError, PlanError, ActError) as exc:
         print(f"railtap: {exc}", file=sys.stderr)
         return 2
     except KeyboardInterrupt:
@@ -192,6 +197,7 @@ def _record_options(p: argparse.ArgumentParser) -> None:
                         "RAILTAP_MQTT_USER and RAILTAP_MQTT_PASSWORD)")
     p.add_argument("--bench", metavar="NAME", help="this bench's name under the prefix (default: --label, else the "
                                                     "rig's name)")
+    add_on_event_options(p)
 
 
 def _screen_options(p: argparse.ArgumentParser) -> None:
@@ -481,6 +487,7 @@ def _sim_source(scenario: Scenario, speed: float | None, seed: int, duration_s: 
 
 def _record(source: Source, rig: Rig, args: argparse.Namespace, screen: bool = False) -> int:
     """Record until stopped, showing the live screen (``screen``) or status lines; then seal and report."""
+    acting = on_event_outlet(args.acting, rig, screen, args.quiet) if args.acting is not None else None
     check_writable(args.out)
     _recover_leftovers(args.out)
     # A recorder's Arrow buffers are small and short-lived (its parts are sealed in child processes): the C
@@ -497,7 +504,7 @@ def _record(source: Source, rig: Rig, args: argparse.Namespace, screen: bool = F
     )
     for warning in rig.warnings():
         print(f"railtap: warning: {warning}", file=sys.stderr)
-    pipeline = Pipeline(source, rig, settings, outlets=_outlets(args, rig))
+    pipeline = Pipeline(source, rig, settings, outlets=_outlets(args, rig) + ([acting] if acting is not None else []))
     pipeline.start()
     if args.run is cmd_record and not args.quiet:
         print(f"railtap record: {rig.name} from {source.name} into {args.out}/; Ctrl-C stops and seals the run",
@@ -526,6 +533,8 @@ def _record(source: Source, rig: Rig, args: argparse.Namespace, screen: bool = F
         pipeline.request_stop(pipeline.stop_reason)
         _wait_for_seal(pipeline)
     code = report(pipeline)
+    if acting is not None:
+        print(f"railtap: {acting.runner.summary(last=screen)}", file=sys.stderr)  # the log said each problem
     if failure is not None:
         print(f"railtap: {failure}; the run is sealed (please report this)", file=sys.stderr)
         return 1
