@@ -104,6 +104,7 @@ def _parser() -> argparse.ArgumentParser:
     watch.add_argument("--host", default="127.0.0.1",
                        help="with --serve: the address to listen on (default 127.0.0.1, this machine only)")
     watch.add_argument("--port", type=int, default=8470, help="with --serve: the port to listen on (default 8470)")
+    add_on_event_options(watch)
     watch.set_defaults(run=cmd_watch)
 
     sim = sub.add_parser("sim", help="serve the simulated rig on a pseudo-terminal, or list its scenarios")
@@ -239,15 +240,26 @@ def cmd_watch(args: argparse.Namespace) -> int:
     except AddressError as exc:
         raise UsageError(str(exc)) from None
     if args.serve:
+        if args.acting is not None:
+            raise UsageError("--on-event runs on the watcher of a terminal, not on each browser's: leave it out of "
+                             "--serve and run a watcher with it apart")
         from logger.watch.serve import serve
 
         return serve(args.url, args.host, args.port)
     if args.host != "127.0.0.1" or args.port != 8470:
         raise UsageError("--host and --port are for --serve")
+    from logger.act.runner import CommandRunner
     from logger.watch import WatchApp
     from logger.watch.feed import Feed
 
-    WatchApp(Feed(broker), broker.prefix, broker.url).run()
+    on = args.acting
+    runner = None if on is None else CommandRunner(on.command, on.kinds, timeout_s=on.timeout_s, show_output=False)
+    try:
+        WatchApp(Feed(broker), broker.prefix, broker.url, runner=runner).run()
+    finally:
+        if runner is not None:
+            runner.close()
+            print(f"railtap: {runner.summary()}", file=sys.stderr)
     return 0
 
 

@@ -137,3 +137,34 @@ async def _drive(app: WatchApp, rang: list[int]) -> None:
         await _until(pilot, lambda: not isinstance(app.screen, BenchScreen), "the lab again")
         await pilot.press("b")
         await _until(pilot, lambda: app.bell_on is False, "the bell off")
+
+
+def test_a_watcher_runs_a_command_for_each_event_that_ends(tmp_path) -> None:
+    """--on-event on the watcher: the command gets the same RAILTAP_* fields a recorder gives it, plus the
+    bench it came from, and runs once however often the broker delivers the end (common practice, no source)."""
+    import sys
+
+    from logger.act.runner import CommandRunner
+
+    out = tmp_path / "env.json"
+    runner = CommandRunner([sys.executable, "-c", "import json, os, sys; json.dump({k: v for k, v in os.environ.items()"
+                            " if k.startswith('RAILTAP_')}, open(sys.argv[1], 'w'))", str(out)], {"brownout"},
+                           timeout_s=30, show_output=False)
+    start = NOW - 3
+    end = {**_begin(start), "phase": "end", "id": 7, "end": _utc(start + 0.4), "duration_s": 0.4, "depth_pct": 24.0}
+    app = WatchApp(ListFeed([("lab/b-dip/state", _state("recording", run="runs/r1")), ("lab/b-dip/event", end)]),
+                   "lab", "mqtt://test/lab", runner=runner)
+
+    async def drive() -> None:
+        async with app.run_test(size=(120, 30)) as pilot:
+            await _until(pilot, out.exists, "the command to run")
+
+    asyncio.run(drive())
+    runner.close()
+    from fakes import wait_until
+
+    wait_until(lambda: out.stat().st_size > 0, "the command's file")
+    env = json.loads(out.read_text())
+    assert env["RAILTAP_KIND"] == "brownout" and env["RAILTAP_BENCH"] == "b-dip" and env["RAILTAP_RUN"] == "runs/r1"
+    assert env["RAILTAP_START"] == end["start"] and env["RAILTAP_DURATION_S"] == "0.4" and env["RAILTAP_ID"] == "7"
+    assert runner.tally().ok == 1
