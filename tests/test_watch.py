@@ -44,10 +44,11 @@ class _Heard:
 
 
 class ListFeed:
-    """A feed that hands over what a test puts in it, in order."""
+    """A feed that hands over what a test puts in it, in order, heard as it is taken: the screen judges a bench
+    quiet by the real clock, and a whole suite may run for minutes after this module was imported."""
 
     def __init__(self, messages: list[tuple[str, dict]]) -> None:
-        self.waiting = [_Heard(t, json.dumps(d).encode(), NOW) for t, d in messages]
+        self.waiting = [(t, json.dumps(d).encode()) for t, d in messages]
         self.started = self.stopped = False
 
     def start(self) -> None:
@@ -58,7 +59,7 @@ class ListFeed:
 
     def take(self) -> list[_Heard]:
         out, self.waiting = self.waiting, []
-        return out
+        return [_Heard(t, payload, time.time()) for t, payload in out]
 
 
 LAB = [("lab/b-ok/state", _state("recording")), ("lab/b-ok/second", _second(NOW - 30, 12.0)),
