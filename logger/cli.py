@@ -98,6 +98,15 @@ def _parser() -> argparse.ArgumentParser:
     _screen_options(demo)
     demo.set_defaults(run=cmd_demo)
 
+    watch = sub.add_parser("watch", help="every bench publishing to an MQTT broker on one screen (or in a browser)")
+    watch.add_argument("url", metavar="URL", help="the broker and prefix the benches publish to: mqtt://HOST/PREFIX")
+    watch.add_argument("--serve", action="store_true", help="serve the screen to web browsers instead")
+    watch.add_argument("--host", default="127.0.0.1",
+                       help="with --serve: the address to listen on (default 127.0.0.1, this machine only)")
+    watch.add_argument("--port", type=int, default=8470, help="with --serve: the port to listen on (default 8470)")
+    add_on_event_options(watch)
+    watch.set_defaults(run=cmd_watch)
+
     sim = sub.add_parser("sim", help="serve the simulated rig on a pseudo-terminal, or list its scenarios")
     sim.add_argument("--pty", action="store_true", help="serve on a new pseudo-terminal")
     sim.add_argument("--list", action="store_true", help="list the shipped scenarios")
@@ -184,6 +193,11 @@ def _record_options(p: argparse.ArgumentParser) -> None:
     p.add_argument("--part-minutes", type=float, default=60.0, help="start a new Parquet part this often")
     p.add_argument("--keep-raw", action="store_true", help="also keep the raw bytes, for replay")
     p.add_argument("--quiet", action="store_true", help="no status lines, only the final summary")
+    p.add_argument("--publish", metavar="URL",
+                   help="also publish to an MQTT broker: mqtt://HOST[:PORT]/PREFIX (mqtts:// for TLS; login from "
+                        "RAILTAP_MQTT_USER and RAILTAP_MQTT_PASSWORD)")
+    p.add_argument("--bench", metavar="NAME", help="this bench's name under the prefix (default: --label, else the "
+                                                    "rig's name)")
     add_on_event_options(p)
 
 
@@ -216,6 +230,37 @@ def cmd_demo(args: argparse.Namespace) -> int:
         print(f"railtap demo: recording the simulated rig {scenario.name!r} ({scenario.description}); "
               "Ctrl-C stops.", file=sys.stderr)
     return _record(source, scenario.rig, args, screen=not args.headless)
+
+
+def cmd_watch(args: argparse.Namespace) -> int:
+    from logger.publish import AddressError, parse_broker
+
+    try:
+        broker = parse_broker(args.url)
+    except AddressError as exc:
+        raise UsageError(str(exc)) from None
+    if args.serve:
+        if args.acting is not None:
+            raise UsageError("--on-event runs on the watcher of a terminal, not on each browser's: leave it out of "
+                             "--serve and run a watcher with it apart")
+        from logger.watch.serve import serve
+
+        return serve(args.url, args.host, args.port)
+    if args.host != "127.0.0.1" or args.port != 8470:
+        raise UsageError("--host and --port are for --serve")
+    from logger.act.runner import CommandRunner
+    from logger.watch import WatchApp
+    from logger.watch.feed import Feed
+
+    on = args.acting
+    runner = None if on is None else CommandRunner(on.command, on.kinds, timeout_s=on.timeout_s, show_output=False)
+    try:
+        WatchApp(Feed(broker), broker.prefix, broker.url, runner=runner).run()
+    finally:
+        if runner is not None:
+            runner.close()
+            print(f"railtap: {runner.summary()}", file=sys.stderr)
+    return 0
 
 
 def cmd_sim(args: argparse.Namespace) -> int:
@@ -471,7 +516,7 @@ def _record(source: Source, rig: Rig, args: argparse.Namespace, screen: bool = F
     )
     for warning in rig.warnings():
         print(f"railtap: warning: {warning}", file=sys.stderr)
-    pipeline = Pipeline(source, rig, settings, outlets=[acting] if acting is not None else [])
+    pipeline = Pipeline(source, rig, settings, outlets=_outlets(args, rig) + ([acting] if acting is not None else []))
     pipeline.start()
     if args.run is cmd_record and not args.quiet:
         print(f"railtap record: {rig.name} from {source.name} into {args.out}/; Ctrl-C stops and seals the run",
@@ -506,6 +551,23 @@ def _record(source: Source, rig: Rig, args: argparse.Namespace, screen: bool = F
         print(f"railtap: {failure}; the run is sealed (please report this)", file=sys.stderr)
         return 1
     return code
+
+
+def _outlets(args: argparse.Namespace, rig: Rig) -> list[Any]:
+    """What hears of the run beyond its screen and folder: a broker (``--publish``)."""
+    outlets: list[Any] = []
+    if args.publish:
+        from logger.publish import AddressError, Publisher, bench_name, parse_broker, slug
+
+        try:
+            broker = parse_broker(args.publish)
+            bench = bench_name(args.bench) if args.bench else slug(args.label or rig.name)
+        except AddressError as exc:
+            raise UsageError(f"--publish: {exc}") from None
+        outlets.append(Publisher(broker, bench, rig.name, tuple(p.rail for p in rig.power_pairs())))
+    elif args.bench:
+        raise UsageError("--bench names this bench on a broker: give --publish mqtt://HOST/PREFIX too")
+    return outlets
 
 
 def _start_time(args: argparse.Namespace) -> dict[str, Any]:

@@ -69,6 +69,7 @@ def status_line(snap: Snapshot) -> str:
         parts.append(f"{snap.recording.rows} rows, {snap.recording.bytes_on_disk / 1e6:.1f} MB")
     if snap.active:
         parts.append("NOW: " + ", ".join(f"{e.kind} on {e.channel}" for e in snap.active))
+    parts.extend(snap.outlets)
     if snap.state != "running":
         parts.append(snap.message)
     return " | ".join(parts)

@@ -301,6 +301,40 @@ def test_new_run_names_folders_and_never_reuses_one(tmp_path: Path) -> None:
     second.close("done")
 
 
+def _start_together(root: Path, count: int) -> list[RunWriter | StoreError]:
+    """``count`` runs started at once from as many threads, all with one label."""
+    import threading
+
+    barrier = threading.Barrier(count)
+    made: list[RunWriter | StoreError] = []
+
+    def start() -> None:
+        barrier.wait()
+        try:
+            made.append(new_run(root, "bench", SCHEMA, {}))
+        except StoreError as exc:
+            made.append(exc)
+
+    threads = [threading.Thread(target=start) for _ in range(count)]
+    for t in threads:
+        t.start()
+    for t in threads:
+        t.join()
+    return made
+
+
+def test_recorders_starting_together_into_one_folder_never_share_a_run(tmp_path: Path) -> None:
+    """Benches of a lab writing to one shared folder of runs may start in the same second with the same label:
+    each gets a folder of its own (before, one of two could see the other's folder fill and fail)."""
+    for round_ in range(4):
+        made = _start_together(tmp_path / f"lab-{round_}", 8)
+        writers = [m for m in made if isinstance(m, RunWriter)]
+        for w in writers:
+            w.close("done")
+        assert len(writers) == 8, next(m for m in made if isinstance(m, StoreError))
+        assert len({w.folder for w in writers}) == 8
+
+
 def test_empty_run_still_reads(tmp_path: Path) -> None:
     final = RunWriter(tmp_path / "run", SCHEMA, {}).close("nothing came")
     assert final["rows"] == 0 and final["events"] == 0

@@ -612,6 +612,7 @@ class Pipeline:
             active=tuple(core.active()) if core else (),
             charge_ah=core.charge_ah if core else (),
             energy_wh=core.energy_wh if core else (),
+            elapsed_s=None if self.stream.first_us is None else (self.stream.last_us - self.stream.first_us) / 1e6,
             outlets=tuple(line for o in self.outlets if (line := o.summary())),
         )
         if self.outlets:

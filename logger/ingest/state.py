@@ -132,6 +132,8 @@ class Snapshot:
     """Recording now, or about to be from the first header on."""
     last_run: str | None = None
     """The folder of the run sealed last, when recording was stopped and started again."""
+    elapsed_s: float | None = None
+    """Device time from the first sample to the newest (None before the first)."""
     outlets: tuple[str, ...] = ()
     """One line per outlet (a broker it publishes to, commands it runs): its state and what it dropped."""
 

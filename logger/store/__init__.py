@@ -59,7 +59,16 @@ def new_run(root: Path, label: str, schema: pa.Schema, metadata: dict[str, Any],
     base = run_folder_name(start, label)
     folder = Path(root) / base
     n = 1
-    while folder.exists():
-        n += 1
-        folder = Path(root) / f"{base}-{n}"
+    while True:
+        # Made, not looked for: of recorders starting in the same second into one folder of runs (a lab's
+        # benches sharing a disk), only one can make each name, so no two ever share a run folder.
+        try:
+            folder.mkdir(parents=True)
+        except FileExistsError:
+            n += 1
+            folder = Path(root) / f"{base}-{n}"
+            continue
+        except OSError:
+            pass  # the writer names what is wrong with the folder, in one line
+        break
     return RunWriter(folder, schema, {"start_utc": start, **metadata}, **options)

@@ -15,7 +15,8 @@ STATE_STYLES = {"running": "bold green", "waiting": "bold yellow", "reconnecting
 
 class StatusPanel(Static):
     """Source, frame rate, lost and rejected frames, resets, reconnects, clock drift, state and message; then
-    the run folder, rows, size on disk and elapsed time; then a line from each outlet."""
+    the run folder, rows, size on disk and elapsed time; then a line per outlet (a broker, commands run on
+    events) with what it dropped."""
 
     DEFAULT_CSS = """
     StatusPanel {
@@ -64,8 +65,8 @@ def status_text(snap: Snapshot, width: int = 0) -> Text:
         text.append(" (w starts)\n", "dim")
         if snap.last_run:
             text.append(f"last: {_folder_name(snap.last_run, width - 6)}\n", "dim")
-    for line in snap.outlets:  # what hears of the run besides the screen: a command run on events, a broker
-        text.append(f"{line}\n", "dim")
+    for line in snap.outlets:
+        text.append(f"{line}\n", "bold yellow" if "dropped" in line and not line.endswith(" 0 dropped") else "dim")
     text.append(snap.message, "italic")
     return text
 
