@@ -14,6 +14,9 @@ from typing import TYPE_CHECKING, Any
 import pyarrow as pa
 
 from logger import __version__
+from logger.act.command import add_options as add_on_event_options
+from logger.act.command import on_event_from_args, on_event_outlet, split_command
+from logger.act.runner import ActError
 from logger.cal.assess import MODELS
 from logger.cal.capture import DEFAULT_MAX_SD, DEFAULT_SAMPLES
 from logger.cal.session import CalError
@@ -43,13 +46,15 @@ class UsageError(Exception):
 
 def main(argv: list[str] | None = None) -> int:
     parser = _parser()
-    args = parser.parse_args(argv)
-    if not hasattr(args, "run"):
-        parser.print_help()
-        return 2
     try:
+        argv, on_event_command = split_command(sys.argv[1:] if argv is None else argv)
+        args = parser.parse_args(argv)
+        if not hasattr(args, "run"):
+            parser.print_help()
+            return 2
+        args.acting = on_event_from_args(args, on_event_command)
         return args.run(args)
-    except (UsageError, RigError, ScenarioError, SourceError, StoreError, CalError, PlanError) as exc:
+    except (UsageError, RigError, ScenarioError, SourceError, StoreError, CalError, PlanError, ActError) as exc:
         print(f"railtap: {exc}", file=sys.stderr)
         return 2
     except KeyboardInterrupt:
@@ -99,6 +104,7 @@ def _parser() -> argparse.ArgumentParser:
     watch.add_argument("--host", default="127.0.0.1",
                        help="with --serve: the address to listen on (default 127.0.0.1, this machine only)")
     watch.add_argument("--port", type=int, default=8470, help="with --serve: the port to listen on (default 8470)")
+    add_on_event_options(watch)
     watch.set_defaults(run=cmd_watch)
 
     sim = sub.add_parser("sim", help="serve the simulated rig on a pseudo-terminal, or list its scenarios")
@@ -192,6 +198,7 @@ def _record_options(p: argparse.ArgumentParser) -> None:
                         "RAILTAP_MQTT_USER and RAILTAP_MQTT_PASSWORD)")
     p.add_argument("--bench", metavar="NAME", help="this bench's name under the prefix (default: --label, else the "
                                                     "rig's name)")
+    add_on_event_options(p)
 
 
 def _screen_options(p: argparse.ArgumentParser) -> None:
@@ -233,15 +240,26 @@ def cmd_watch(args: argparse.Namespace) -> int:
     except AddressError as exc:
         raise UsageError(str(exc)) from None
     if args.serve:
+        if args.acting is not None:
+            raise UsageError("--on-event runs on the watcher of a terminal, not on each browser's: leave it out of "
+                             "--serve and run a watcher with it apart")
         from logger.watch.serve import serve
 
         return serve(args.url, args.host, args.port)
     if args.host != "127.0.0.1" or args.port != 8470:
         raise UsageError("--host and --port are for --serve")
+    from logger.act.runner import CommandRunner
     from logger.watch import WatchApp
     from logger.watch.feed import Feed
 
-    WatchApp(Feed(broker), broker.prefix, broker.url).run()
+    on = args.acting
+    runner = None if on is None else CommandRunner(on.command, on.kinds, timeout_s=on.timeout_s, show_output=False)
+    try:
+        WatchApp(Feed(broker), broker.prefix, broker.url, runner=runner).run()
+    finally:
+        if runner is not None:
+            runner.close()
+            print(f"railtap: {runner.summary()}", file=sys.stderr)
     return 0
 
 
@@ -481,6 +499,7 @@ def _sim_source(scenario: Scenario, speed: float | None, seed: int, duration_s: 
 
 def _record(source: Source, rig: Rig, args: argparse.Namespace, screen: bool = False) -> int:
     """Record until stopped, showing the live screen (``screen``) or status lines; then seal and report."""
+    acting = on_event_outlet(args.acting, rig, screen, args.quiet) if args.acting is not None else None
     check_writable(args.out)
     _recover_leftovers(args.out)
     # A recorder's Arrow buffers are small and short-lived (its parts are sealed in child processes): the C
@@ -497,7 +516,7 @@ def _record(source: Source, rig: Rig, args: argparse.Namespace, screen: bool = F
     )
     for warning in rig.warnings():
         print(f"railtap: warning: {warning}", file=sys.stderr)
-    pipeline = Pipeline(source, rig, settings, outlets=_outlets(args, rig))
+    pipeline = Pipeline(source, rig, settings, outlets=_outlets(args, rig) + ([acting] if acting is not None else []))
     pipeline.start()
     if args.run is cmd_record and not args.quiet:
         print(f"railtap record: {rig.name} from {source.name} into {args.out}/; Ctrl-C stops and seals the run",
@@ -526,6 +545,8 @@ def _record(source: Source, rig: Rig, args: argparse.Namespace, screen: bool = F
         pipeline.request_stop(pipeline.stop_reason)
         _wait_for_seal(pipeline)
     code = report(pipeline)
+    if acting is not None:
+        print(f"railtap: {acting.runner.summary(last=screen)}", file=sys.stderr)  # the log said each problem
     if failure is not None:
         print(f"railtap: {failure}; the run is sealed (please report this)", file=sys.stderr)
         return 1

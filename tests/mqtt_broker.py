@@ -31,14 +31,23 @@ def free_port() -> int:
 class Broker:
     """Mosquitto in a folder of its own; :meth:`stop` and :meth:`start` again keep the same port."""
 
-    def __init__(self, folder: Path) -> None:
+    def __init__(self, folder: Path, users: dict[str, str] | None = None, tls: bool = False) -> None:
         if MOSQUITTO is None:
             pytest.skip("no mosquitto: apt-get install mosquitto (.ci/run does)")
         self.folder = folder
         folder.mkdir(parents=True, exist_ok=True)
         self.port = free_port()
         self.conf = folder / "mosquitto.conf"
-        self.conf.write_text(f"listener {self.port} 127.0.0.1\nallow_anonymous true\npersistence true\n"
+        login = "allow_anonymous true\n"
+        if users:
+            passwords = folder / "passwords"
+            for user, password in users.items():
+                subprocess.run(["mosquitto_passwd", "-b", *(["-c"] if not passwords.exists() else []), str(passwords),
+                                user, password], check=True, capture_output=True)
+            login = f"allow_anonymous false\npassword_file {passwords}\n"
+        self.tls_port = free_port() if tls else None
+        secure = _tls_listener(folder, self.tls_port) if tls else ""
+        self.conf.write_text(f"listener {self.port} 127.0.0.1\n{secure}{login}persistence true\n"
                              f"persistence_location {folder}/\nautosave_interval 1\n"
                              f"log_dest file {folder}/mosquitto.log\nmax_queued_messages 100000\n"
                              f"user {getpass.getuser()}\n")  # as root it would switch to a user who cannot write here
@@ -104,6 +113,24 @@ class Listener:
     def close(self) -> None:
         self.client.loop_stop()
         self.client.disconnect()
+
+
+def _tls_listener(folder: Path, port: int) -> str:
+    """A CA and a server certificate for 127.0.0.1 made with openssl, and a listener that uses them."""
+    if shutil.which("openssl") is None:
+        pytest.skip("no openssl: apt-get install openssl")
+
+    def run(*args: str) -> None:
+        subprocess.run(["openssl", *args], check=True, capture_output=True, cwd=folder)
+
+    run("req", "-x509", "-newkey", "rsa:2048", "-nodes", "-keyout", "ca.key", "-out", "ca.pem", "-days", "2",
+        "-subj", "/CN=railtap test CA")
+    run("req", "-newkey", "rsa:2048", "-nodes", "-keyout", "server.key", "-out", "server.csr", "-subj", "/CN=127.0.0.1")
+    (folder / "san.ext").write_text("subjectAltName=IP:127.0.0.1\n")
+    run("x509", "-req", "-in", "server.csr", "-CA", "ca.pem", "-CAkey", "ca.key", "-CAcreateserial", "-out",
+        "server.pem", "-days", "2", "-extfile", "san.ext")
+    return (f"listener {port} 127.0.0.1\ncafile {folder}/ca.pem\ncertfile {folder}/server.pem\n"
+            f"keyfile {folder}/server.key\n")
 
 
 def _session(expiry_s: int):

@@ -121,3 +121,78 @@ def test_messages_that_are_not_ours_are_passed_over() -> None:
                            ("lab/b1/second", b'{"v": 1, "utc": "x", "ch": {"a": [1]}}'),
                            ("lab/b1/x/state", b'{"v": 1, "state": "x"}')):
         assert read_message("lab", topic, payload) is None, topic
+
+
+def test_a_login_comes_from_the_environment_and_is_never_written_down(tmp_path: Path) -> None:
+    """A broker that wants a login gets it from RAILTAP_MQTT_USER and RAILTAP_MQTT_PASSWORD_FILE; the password
+    is in neither _run.json nor the link panel's line; a wrong one is said in words (MQTT 3.1.1 s3.2.2.3:
+    CONNACK return code 4 or 5)."""
+    broker = Broker(tmp_path / "broker", users={"bench-7": "pa55-word"})
+    try:
+        secret = tmp_path / "secret"
+        secret.write_text("pa55-word\n")
+        env = {"RAILTAP_MQTT_USER": "bench-7", "RAILTAP_MQTT_PASSWORD_FILE": str(secret)}
+        wrong = Publisher(parse_broker(f"{broker.url}/lab", {"RAILTAP_MQTT_USER": "bench-7",
+                                                             "RAILTAP_MQTT_PASSWORD": "guess"}), "b7", "simple")
+        wait_until(lambda: "refused the login" in (wrong.progress.error or ""), "the refusal")
+        assert "refused the login" in wrong.summary()
+        wrong.close()
+        device = Device(rate_hz=100.0, duration_s=5.0, seed=2)
+        source, _ = make_source(device, Link(read_s=0.02, seed=1))
+        publisher = Publisher(parse_broker(f"{broker.url}/lab", env), "b7", "simple")
+        pipeline = Pipeline(source, simple_rig(), Settings(record_root=tmp_path / "runs"), outlets=[publisher])
+        pipeline.start()
+        assert pipeline.wait(60) and pipeline.error is None, pipeline.error
+        wait_until(lambda: publisher.progress.connects >= 1 and publisher.progress.error is None, "a login")
+        (run,) = (tmp_path / "runs").iterdir()
+        assert "pa55" not in (run / "_run.json").read_text() and "pa55" not in publisher.summary()
+    finally:
+        broker.stop()
+
+
+def test_mqtts_checks_the_brokers_certificate_against_the_ca_it_is_given(tmp_path: Path) -> None:
+    """Over TLS the broker's certificate must chain to RAILTAP_MQTT_CA (or the system's CAs): one signed by an
+    unknown CA is refused and said so (RFC 5280 path validation; common practice, no source)."""
+    broker = Broker(tmp_path / "broker", tls=True)
+    listener = Listener(broker, "lab")
+    try:
+        url = f"mqtts://127.0.0.1:{broker.tls_port}/lab"
+        untrusted = Publisher(parse_broker(url, {}), "b-tls", "simple")
+        wait_until(lambda: "RAILTAP_MQTT_CA" in (untrusted.progress.error or ""), "the refusal of an unknown CA")
+        untrusted.close()
+        trusted = Publisher(parse_broker(url, {"RAILTAP_MQTT_CA": str(tmp_path / "broker" / "ca.pem")}), "b-tls",
+                            "simple")
+        device = Device(rate_hz=100.0, duration_s=5.0, seed=2)
+        source, _ = make_source(device, Link(read_s=0.02, seed=1))
+        pipeline = Pipeline(source, simple_rig(), Settings(record_root=tmp_path / "runs"), outlets=[trusted])
+        pipeline.start()
+        assert pipeline.wait(60) and pipeline.error is None, pipeline.error
+        wait_until(lambda: listener.state("lab/b-tls/state") == "stopped", "the state, over TLS")
+        assert len({d["device_s"] for d in listener.of("second")}) >= 5
+    finally:
+        listener.close()
+        broker.stop()
+
+
+def test_a_broker_that_never_answers_holds_up_nothing(tmp_path: Path) -> None:
+    """A port that takes the connection and never answers: the run goes at full speed to its end, the figures
+    past the buffer are counted dropped (oldest first), the events wait, and closing gives up after its limit."""
+    import socket
+
+    silent = socket.create_server(("127.0.0.1", 0))  # listens, never accepts: no CONNACK ever comes
+    try:
+        device = Device(rate_hz=100.0, duration_s=60.0, seed=2, script=(Dip(10.0, 2.0, 60.0),))
+        source, _ = make_source(device, Link(read_s=0.02, seed=1))
+        publisher = Publisher(parse_broker(f"mqtt://127.0.0.1:{silent.getsockname()[1]}/lab", {}), "b-x", "simple",
+                              buffer_seconds=10)
+        pipeline = Pipeline(source, simple_rig(), Settings(record_root=tmp_path / "runs"), outlets=[publisher])
+        pipeline.start()
+        assert pipeline.wait(120) and pipeline.error is None, pipeline.error
+        (run,) = (tmp_path / "runs").iterdir()
+        account = json.loads((run / "_run.json").read_text())["publish"]
+        rollup = _rollup(run)
+        assert account["sent"] == {"seconds": 0, "events": 0}
+        assert account["dropped"]["seconds"] == len(rollup) - 10 and account["dropped"]["events"] == 0
+        assert account["waiting_at_end"] >= 10
+    finally:
+        silent.close()

@@ -88,6 +88,8 @@ def test_benches_needing_attention_come_first() -> None:
     assert ok.channels == (("out_v", 12.2, 11.9, pytest.approx(12.3), "V"),) and ok.today == 2
     assert ok.elapsed_s == 3723.0
     assert [d["kind"] for d in begun] == ["brownout"] and lab.ignored == 1
+    lab.apply(read_message("lab", "lab/b-ok/second", json.dumps(_second(NOW - 1, 12.2)).encode()), NOW)
+    assert len(lab.benches["b-ok"].seconds) == 2  # a figure delivered twice is kept once
     assert lab.apply(read_message("lab", "lab/b-dip/event", json.dumps(_begin(NOW - 0.5)).encode()), NOW) == []
     quiet = lab.rows(NOW + 60)  # nothing heard from b-ok for a minute although it says it records
     assert next(r for r in quiet if r.name == "b-ok").shown_state == "no data"
@@ -110,20 +112,60 @@ def test_the_lab_screen_filters_opens_a_bench_and_rings() -> None:
     assert app.feed.stopped
 
 
+async def _until(pilot, ready, what: str, deadline_s: float = 30.0) -> None:
+    """Let the app run until ``ready`` (a loaded machine may take a while to redraw)."""
+    deadline = time.monotonic() + deadline_s
+    while not ready():
+        assert time.monotonic() < deadline, f"timed out waiting for {what}"
+        await pilot.pause(0.05)
+
+
 async def _drive(app: WatchApp, rang: list[int]) -> None:
     async with app.run_test(size=(120, 30)) as pilot:
-        await pilot.pause()
         table = app.query_one("#benches", DataTable)
+        await _until(pilot, lambda: table.row_count == 4, "four benches")
         assert [str(table.get_row_at(i)[0]) for i in range(table.row_count)] == ["b-gone", "b-dip", "b-ok", "b-done"]
         assert rang == [1]  # one brownout began
         await pilot.press("s")  # attention only
-        assert table.row_count == 2
+        await _until(pilot, lambda: table.row_count == 2, "the attention filter")
         await pilot.press("s", "s", "s")  # recording, offline, all
-        assert app.state_filter == "all" and table.row_count == 4
+        await _until(pilot, lambda: app.state_filter == "all" and table.row_count == 4, "all benches again")
         table.move_cursor(row=2)
         await pilot.press("enter")
-        await pilot.pause()
-        assert isinstance(app.screen, BenchScreen) and app.screen.bench == "b-ok"
+        await _until(pilot, lambda: isinstance(app.screen, BenchScreen), "the bench's screen")
+        assert app.screen.bench == "b-ok"
         await pilot.press("escape")
+        await _until(pilot, lambda: not isinstance(app.screen, BenchScreen), "the lab again")
         await pilot.press("b")
-        assert app.bell_on is False
+        await _until(pilot, lambda: app.bell_on is False, "the bell off")
+
+
+def test_a_watcher_runs_a_command_for_each_event_that_ends(tmp_path) -> None:
+    """--on-event on the watcher: the command gets the same RAILTAP_* fields a recorder gives it, plus the
+    bench it came from, and runs once however often the broker delivers the end (common practice, no source)."""
+    import sys
+
+    from logger.act.runner import CommandRunner
+
+    out = tmp_path / "env.json"
+    runner = CommandRunner([sys.executable, "-c", "import json, os, sys; json.dump({k: v for k, v in os.environ.items()"
+                            " if k.startswith('RAILTAP_')}, open(sys.argv[1], 'w'))", str(out)], {"brownout"},
+                           timeout_s=30, show_output=False)
+    start = NOW - 3
+    end = {**_begin(start), "phase": "end", "id": 7, "end": _utc(start + 0.4), "duration_s": 0.4, "depth_pct": 24.0}
+    app = WatchApp(ListFeed([("lab/b-dip/state", _state("recording", run="runs/r1")), ("lab/b-dip/event", end)]),
+                   "lab", "mqtt://test/lab", runner=runner)
+
+    async def drive() -> None:
+        async with app.run_test(size=(120, 30)) as pilot:
+            await _until(pilot, out.exists, "the command to run")
+
+    asyncio.run(drive())
+    runner.close()
+    from fakes import wait_until
+
+    wait_until(lambda: out.stat().st_size > 0, "the command's file")
+    env = json.loads(out.read_text())
+    assert env["RAILTAP_KIND"] == "brownout" and env["RAILTAP_BENCH"] == "b-dip" and env["RAILTAP_RUN"] == "runs/r1"
+    assert env["RAILTAP_START"] == end["start"] and env["RAILTAP_DURATION_S"] == "0.4" and env["RAILTAP_ID"] == "7"
+    assert runner.tally().ok == 1

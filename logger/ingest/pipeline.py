@@ -454,6 +454,8 @@ class Pipeline:
         for chunk in self._pending_raw:
             recorder.add_raw(chunk)
         self._pending_raw = []
+        if self.outlets:  # they hear of the run's folder before any of its events
+            self._publish()
 
     def _switch_recording(self, on: bool) -> None:
         """Start or stop recording, between reads: a stopped run is sealed on a thread of its own, so ingest

@@ -35,3 +35,11 @@ def refusal(reason: object) -> str:
         return (f"the broker refused the login ({reason}): check RAILTAP_MQTT_USER and RAILTAP_MQTT_PASSWORD "
                 "(or RAILTAP_MQTT_PASSWORD_FILE)")
     return f"the broker refused the connection ({reason})"
+
+
+def unreachable(broker: Broker, exc: Exception) -> str:
+    """Why a connection to the broker failed, in words a user can act on."""
+    if isinstance(exc, ssl.SSLCertVerificationError):
+        return (f"the certificate of {broker.host}:{broker.port} is not trusted ({exc.verify_message}): set "
+                "RAILTAP_MQTT_CA to the CA that signed it")
+    return f"cannot reach {broker.host}:{broker.port}: {getattr(exc, 'strerror', None) or exc}"

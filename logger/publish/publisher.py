@@ -27,7 +27,7 @@ from logger.ingest.outlet import SecondFigures
 from logger.ingest.state import Snapshot
 from logger.publish import topics
 from logger.publish.address import Broker
-from logger.publish.client import make_client, refusal
+from logger.publish.client import make_client, refusal, unreachable
 
 KEEPALIVE_S = 5
 """The broker takes a recorder for gone after 1.5 times this without a word, and publishes its will."""
@@ -39,6 +39,8 @@ BUFFER_EVENTS = 10_000
 INBOX = 4096
 IN_FLIGHT = 100
 """Messages sent and not yet acknowledged, at most."""
+SETTLE_S = 2.0
+"""How long the run's account waits for the publishing thread to file what it was handed."""
 CLOSE_S = 3.0
 """At the end of a run, how long to wait for the broker to take what is left."""
 RETRY_S = (0.5, 1.0, 2.0, 5.0)
@@ -115,6 +117,11 @@ class Publisher:
         return f"{self.broker.url}/{self.bench}: {how}, {lost:,} dropped"
 
     def account(self) -> dict[str, Any]:
+        """Sent, dropped and still waiting, once the publishing thread has filed all it was handed (at the end of
+        a run, so the three add up to what the run produced)."""
+        settled = threading.Event()
+        self._hand("settle", settled)
+        settled.wait(SETTLE_S)
         p = self.progress
         return {"broker": self.broker.url, "bench": self.bench, "connects": p.connects,
                 "sent": {"seconds": p.seconds_sent, "events": p.events_sent},
@@ -165,6 +172,7 @@ class _Courier:
         """The broker has accepted the connection (messages may go)."""
         self.next_try = 0.0
         self.tries = 0
+        self.leaving = False
         self.p = owner.progress
 
     def run(self) -> None:
@@ -184,6 +192,7 @@ class _Courier:
             if closing_at is not None and (now >= closing_at or self._all_sent()):
                 break
         if self.open:
+            self.leaving = True
             self.client.disconnect()  # a clean goodbye: the broker keeps the last state, not the will
             self.client.loop(timeout=0.1)
         self._share()
@@ -218,6 +227,9 @@ class _Courier:
         elif what == "state":
             self.snapshot = item
             self.state = self._state_message()
+        elif what == "settle":
+            self._share()
+            item.set()
         return what == "close"
 
     def _count(self, event: Event) -> None:
@@ -242,8 +254,7 @@ class _Courier:
         try:
             self.client.reconnect()
         except (OSError, ValueError) as exc:
-            self.p = replace(self.p, error=f"cannot reach {self.owner.broker.host}:{self.owner.broker.port}: "
-                                           f"{getattr(exc, 'strerror', None) or exc}")
+            self.p = replace(self.p, error=unreachable(self.owner.broker, exc))
             self.next_try = now + RETRY_S[min(self.tries, len(RETRY_S) - 1)]
             self.tries += 1
             return
@@ -264,8 +275,8 @@ class _Courier:
         self.open = self.connected = False
         self.next_try = max(self.next_try, time.monotonic() + RETRY_S[0])
         if self.p.connected:
-            self.p = replace(self.p, connected=False, away_since=time.monotonic(), error=f"link to the broker lost "
-                                                                                          f"({reason})")
+            error = None if self.leaving else f"link to the broker lost ({reason})"
+            self.p = replace(self.p, connected=False, away_since=time.monotonic(), error=error)
 
     def _on_publish(self, client: mqtt.Client, userdata: Any, mid: int, reason: Any, properties: Any) -> None:
         leaf = self.unacked.pop(mid, None)

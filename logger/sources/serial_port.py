@@ -1,11 +1,15 @@
 """A serial port as a byte source, by pyserial URL: a device path, ``socket://``, ``rfc2217://``, ``loop://``.
 
-Reads take whatever has arrived in one call (what ``in_waiting`` reports, or, when that is nothing or, as on
-``socket://``, only says "something", whatever comes within the 0.1 s read timeout), never a line at a time:
-framing is the decoder's job. On Linux a device path is read at a steady pace (:class:`ReadPacer`): the kernel
-gathers the bytes between two reads, so a 1 kHz stream costs about ten wake-ups a second, not one per USB
-packet. Every port failure after opening becomes :class:`LinkLost`, so the pipeline has one path for "the
-cable came out"; failing to open becomes a :class:`SourceError` whose one line says what to do.
+Reads take whatever has arrived in one call (what ``in_waiting`` reports, or, when that is nothing, whatever
+comes within the 0.1 s read timeout), never a line at a time: framing is the decoder's job. On Linux a device
+path is read at a steady pace (:class:`ReadPacer`): the kernel gathers the bytes between two reads, so a 1 kHz
+stream costs about ten wake-ups a second, not one per USB packet. A ``socket://`` port is paced the same way on
+every platform (the socket's buffer gathers, and TCP holds the sender back when it is full), and each read takes
+what one receive call finds: pyserial's gathering read drops what it gathered when the peer closes during it.
+
+Each transport is opened with only the settings it has (:func:`port_settings`). Every port failure after opening
+becomes :class:`LinkLost`, so the pipeline has one path for "the cable came out" and "the server went away";
+failing to open becomes a :class:`SourceError` whose one line names the port and says what to do.
 """
 
 from __future__ import annotations
@@ -13,10 +17,12 @@ from __future__ import annotations
 import contextlib
 import errno
 import os
+import select
 import sys
 import time
 from collections.abc import Callable
 from pathlib import Path
+from urllib.parse import urlsplit
 
 import serial
 import serial.tools.list_ports
@@ -26,6 +32,8 @@ from logger.sources.base import Chunk, LinkLost, SourceError
 READ_TIMEOUT_S = 0.1
 WRITE_TIMEOUT_S = 1.0
 """A port that cannot take a command line in this long is stuck (flow control, hung driver): link lost."""
+REMOTE_SCHEMES = ("socket", "rfc2217")
+"""The URL schemes that reach a serial port over TCP, written ``scheme://host:port``."""
 
 _BUSY = {errno.EBUSY, errno.EAGAIN, errno.EWOULDBLOCK}
 
@@ -88,15 +96,23 @@ class SerialSource:
 
     Args:
         url: a device path (``/dev/ttyACM0``, ``COM5``) or a pyserial URL (``socket://host:7000``).
-        baud: line speed; USB CDC devices ignore it, UART bridges need it to match the firmware.
+        baud: line speed; USB CDC devices ignore it, UART bridges need it to match the firmware (an RFC 2217
+            server sets its port to it; a plain ``socket://`` bridge cannot be told).
     """
 
     def __init__(self, url: str, baud: int = 1_000_000) -> None:
         self.url = url
         self.baud = baud
         self._ser: serial.SerialBase | None = None
-        self._pacer = ReadPacer() if sys.platform.startswith("linux") and "://" not in url else None
-        """Reads of a Linux device path are paced; other platforms and URLs read as bytes come."""
+        # A Linux device path and a socket are read at a steady pace; other platforms and URLs as bytes come.
+        # A socket's pace is shortened only to keep each read within one receive call's MAX_READ.
+        self._pacer: ReadPacer | None = None
+        self._read: Callable[[serial.SerialBase], bytes] = self._read_as_it_comes
+        scheme = _scheme(url)
+        if scheme == "socket":
+            self._pacer, self._read = ReadPacer(buffer_bytes=2 * MAX_READ), self._read_socket
+        elif not scheme and sys.platform.startswith("linux"):
+            self._pacer, self._read = ReadPacer(), self._read_paced
 
     @property
     def name(self) -> str:
@@ -106,16 +122,14 @@ class SerialSource:
     def open(self) -> None:
         """Open the port (closing any earlier handle first); raises :class:`SourceError`."""
         self.close()
+        check_url(self.url)
         try:
-            # A device path is opened exclusively, so a second recorder on the same port is refused at once
-            # instead of splitting the stream with the first (pyserial's ``exclusive``: an advisory lock on POSIX).
-            local = "://" not in self.url
-            self._ser = serial.serial_for_url(
-                self.url, baudrate=self.baud, timeout=READ_TIMEOUT_S, write_timeout=WRITE_TIMEOUT_S,
-                **({"exclusive": True} if local and os.name == "posix" else {}),
-            )
+            self._ser = serial.serial_for_url(self.url, baudrate=self.baud, **port_settings(self.url))
+        except NotImplementedError as exc:
+            raise SourceError(f"{self.url}: this kind of port cannot do what railtap asks of it ({_detail(exc)}); "
+                              "please report it, and meanwhile try another way to reach the port") from None
         except ValueError as exc:
-            raise SourceError(f"{self.url}: not a usable port name or URL ({exc})") from None
+            raise SourceError(f"{self.url}: not a usable port name or URL ({_detail(exc)})") from None
         except (serial.SerialException, OSError) as exc:
             raise SourceError(open_failure(self.url, exc)) from None
         if self._pacer is not None:
@@ -125,7 +139,7 @@ class SerialSource:
         """Whatever bytes have arrived (gathering for up to 0.1 s when none had), stamped on arrival."""
         ser = self._port()
         try:
-            data = self._read_paced(ser) if self._pacer is not None else self._read_as_it_comes(ser)
+            data = self._read(ser)
         except (serial.SerialException, OSError) as exc:
             self._lost()
             raise LinkLost(f"{self.url}: link lost while reading ({_detail(exc)})") from None
@@ -134,8 +148,8 @@ class SerialSource:
 
     @staticmethod
     def _read_as_it_comes(ser: serial.SerialBase) -> bytes:
-        """What is waiting, in one read; when nothing (or, on socket://, an unknown amount) is, gather what
-        comes within the read timeout instead of returning byte by byte."""
+        """What is waiting, in one read; when nothing (or one byte) is, gather what comes within the read
+        timeout instead of returning byte by byte."""
         waiting = ser.in_waiting
         return ser.read(waiting if waiting > 1 else MAX_READ)
 
@@ -147,6 +161,16 @@ class SerialSource:
         data = ser.read(waiting) if waiting else ser.read(1)
         if not waiting and data and ser.in_waiting:
             data += ser.read(ser.in_waiting)
+        self._pacer.took(len(data))
+        return data
+
+    def _read_socket(self, ser: serial.SerialBase) -> bytes:
+        """Wait until the pacer says, then up to the read timeout for the socket to have something, and take
+        what one receive call finds (the port is non-blocking). The end of the stream is something too: the
+        read then raises, with nothing gathered in it to lose."""
+        self._pacer.pause()
+        readable, _, _ = select.select([ser], [], [], READ_TIMEOUT_S)  # pyserial's socket port has fileno()
+        data = ser.read(MAX_READ) if readable else b""
         self._pacer.took(len(data))
         return data
 
@@ -175,8 +199,50 @@ class SerialSource:
         self.close()
 
 
+def port_settings(url: str) -> dict[str, object]:
+    """The pyserial settings ``url`` is opened with besides its baud rate, each only where its transport has it.
+
+    Every port gets the read timeout, except ``socket://``, which is read without blocking once the socket has
+    something (:meth:`SerialSource._read_socket`). A write timeout ends a command line stuck behind flow
+    control; pyserial's RFC 2217 client refuses one (``NotImplementedError``), and its socket's own timeout
+    of a few seconds ends a stuck write there instead. A device path on POSIX is opened exclusively, so a
+    second recorder on the same port is refused at once instead of splitting the stream with the first
+    (pyserial's ``exclusive``: an advisory lock).
+    """
+    scheme = _scheme(url)
+    settings: dict[str, object] = {"timeout": 0 if scheme == "socket" else READ_TIMEOUT_S}
+    if scheme != "rfc2217":
+        settings["write_timeout"] = WRITE_TIMEOUT_S
+    if not scheme and os.name == "posix":
+        settings["exclusive"] = True
+    return settings
+
+
+def check_url(url: str) -> None:
+    """Raise :class:`SourceError` when a remote port's URL lacks its host or a usable TCP port number; pyserial
+    says so only in terms of its own code."""
+    scheme = _scheme(url)
+    if scheme not in REMOTE_SCHEMES:
+        return
+    form = f"write it {scheme}://HOST:PORT, e.g. {scheme}://192.168.1.20:4000"
+    parts = urlsplit(url)
+    try:
+        port = parts.port
+    except ValueError:
+        raise SourceError(f"{url}: the TCP port is not a number from 0 to 65535; {form}") from None
+    if not parts.hostname or port is None:
+        raise SourceError(f"{url}: a remote port needs a host and a TCP port; {form}")
+
+
+def _scheme(url: str) -> str:
+    """``socket`` for ``socket://host:7000``; empty for a device path."""
+    return url.split("://", 1)[0].lower() if "://" in url else ""
+
+
 def open_failure(url: str, exc: BaseException) -> str:
     """One line saying why ``url`` would not open and what to do about it."""
+    if _scheme(url) in REMOTE_SCHEMES:
+        return remote_failure(url, exc)
     code = getattr(exc, "errno", None)
     text = str(exc).lower()
     if code == errno.ENOENT or "filenotfounderror" in text or "cannot find the file" in text:
@@ -192,9 +258,39 @@ def open_failure(url: str, exc: BaseException) -> str:
             f"{url}: permission denied; add yourself to the group that owns the device "
             "(e.g. `sudo usermod -aG dialout $USER`), then log out and in again"
         )
-    if url.startswith(("socket://", "rfc2217://")):
-        return f"{url}: cannot connect ({_detail(exc)}); check the host, the port and that the server runs"
     return f"{url}: cannot open port ({_detail(exc)})"
+
+
+def remote_failure(url: str, exc: BaseException) -> str:
+    """One line saying why the remote port at ``url`` would not open and what to do. pyserial keeps only the
+    text of the socket's error, so the cause is read from it (Linux, macOS and Windows wordings)."""
+    detail = _detail(exc)
+    prefix = f"could not open port {url}: "
+    if detail.lower().startswith(prefix.lower()):
+        detail = detail[len(prefix):]
+    text = detail.lower()
+    if "refused" in text:
+        return (f"{url}: nothing answers on that port (connection refused); start the serial server there, "
+                "or check the host and port")
+    if any(words in text for words in ("name or service not known", "nodename nor servname", "getaddrinfo",
+                                       "name resolution", "no address associated")):
+        return f"{url}: no such host ({detail}); check the host name or use its IP address"
+    if "timed out" in text or "unreachable" in text:
+        return f"{url}: the host does not answer ({detail}); check that it is up and on this network"
+    if any(words in text for words in ("broken pipe", "reset by peer", "forcibly closed")):
+        return (f"{url}: the server closed the connection as it opened ({detail}); it may be serving another "
+                "client already: close that one, or look at the server's log")
+    if "does not seem to support rfc2217" in text:
+        return (f"{url}: the server there did not take up RFC 2217; if it passes raw bytes, use "
+                f"socket://{urlsplit(url).netloc}; if it is only slow, give it longer with ?timeout=10")
+    if "timeout while waiting for option" in text:
+        return (f"{url}: the server was slow to set up the port ({detail}); try again, or give it longer with "
+                "?timeout=10 on the URL")
+    if "does not accept parameter change" in text:
+        return f"{url}: the server refused the port's settings; check --baud (or device.baud in the rig file)"
+    if "expected a string in the form" in text:
+        return f"{url}: not a usable URL ({detail})"
+    return f"{url}: cannot connect ({detail}); check the host, the port and that the server runs"
 
 
 def port_holders(path: str) -> list[str]:

@@ -8,7 +8,6 @@ the :class:`~logger.watch.model.Lab`: it drains the feed five times a second.
 from __future__ import annotations
 
 import time
-from collections.abc import Callable
 from typing import Any, ClassVar, Protocol
 
 from rich.text import Text
@@ -16,15 +15,16 @@ from textual.app import App, ComposeResult
 from textual.binding import Binding, BindingType
 from textual.widgets import DataTable, Footer, Static
 
+from logger.act.runner import CommandRunner
 from logger.publish.topics import read_message
 from logger.watch.detail import BenchScreen
-from logger.watch.model import ALERT_KINDS, Lab, Row
+from logger.watch.model import ALERT_KINDS, Bench, Lab, Row
 from logger.watch.text import STATE_STYLES, channels_text, elapsed, event_text
 
 POLL_S = 0.2
 STATE_FILTERS = ("all", "attention", "recording", "offline")
 KIND_FILTERS = ("all", "brownout", "dropout", "overvoltage", "overcurrent", "flicker")
-COLUMNS = (("bench", 14), ("state", 12), ("readings: now [last minute]", 44), ("last event", 26), ("today", 6),
+COLUMNS = (("bench", 14), ("state", 12), ("now [last minute]", 32), ("last event", 28), ("today", 7),
            ("elapsed", 9))
 
 
@@ -42,7 +42,8 @@ class FeedLike(Protocol):
 
 
 class WatchApp(App[None]):
-    """Every bench publishing under ``prefix``, from ``feed``; ``on_end`` hears each event that ends."""
+    """Every bench publishing under ``prefix``, from ``feed``; ``runner`` (``--on-event``) is offered each
+    event that ends, with the bench it came from."""
 
     TITLE = "railtap watch"
     ENABLE_COMMAND_PALETTE = False
@@ -59,10 +60,9 @@ class WatchApp(App[None]):
         Binding("q", "quit", "quit"),
     ]
 
-    def __init__(self, feed: FeedLike, prefix: str, where: str,
-                 on_end: Callable[[str, dict[str, Any]], None] | None = None) -> None:
+    def __init__(self, feed: FeedLike, prefix: str, where: str, runner: CommandRunner | None = None) -> None:
         super().__init__()
-        self.feed, self.prefix, self.where, self.on_end = feed, prefix, where, on_end
+        self.feed, self.prefix, self.where, self.runner = feed, prefix, where, runner
         self.lab = Lab()
         self.bell_on = True
         self.state_filter = STATE_FILTERS[0]
@@ -100,8 +100,8 @@ class WatchApp(App[None]):
             begun = self.lab.apply(message, heard.at)
             if self.bell_on and any(d.get("kind") in ALERT_KINDS for d in begun):
                 self.bell()
-            if message is not None and message.leaf == "event" and message.doc["phase"] == "end" and self.on_end:
-                self.on_end(message.bench, message.doc)
+            if message is not None and message.leaf == "event" and message.doc["phase"] == "end" and self.runner:
+                self.runner.offer(message.doc["kind"], event_fields(self.lab.benches[message.bench], message.doc))
         self.refresh_rows()
         if isinstance(self.screen, BenchScreen):
             self.screen.refresh_from(self.lab, self.kind_filter)
@@ -127,7 +127,7 @@ class WatchApp(App[None]):
             keep = table.cursor_row
             table.clear()
             for r in shown:
-                table.add_row(*self._cells(r), key=r.name)
+                table.add_row(*self._cells(r), key=r.name, height=_height(r))
             self._order, self._shown = names, {r.name: self._cells(r) for r in shown}
             if shown:
                 table.move_cursor(row=min(keep, len(shown) - 1))
@@ -135,6 +135,9 @@ class WatchApp(App[None]):
             for r in shown:
                 cells = self._cells(r)
                 if cells != self._shown.get(r.name):
+                    if _height(r) != table.rows[r.name].height:  # its channels became known: draw it afresh
+                        self._order = []
+                        return self.refresh_rows()
                     for (label, _), old, new in zip(COLUMNS, self._shown[r.name], cells, strict=True):
                         if old != new:
                             table.update_cell(r.name, label, new)
@@ -146,7 +149,8 @@ class WatchApp(App[None]):
             f"  |  {self.link_text}"))
         self.query_one("#lab-foot", Static).update(
             f"filter: state {self.state_filter}, kind {self.kind_filter}  |  bell {'on' if self.bell_on else 'off'}"
-            + (f"  |  {self.lab.ignored} foreign messages passed over" if self.lab.ignored else ""))
+            + (f"  |  {self.lab.ignored} foreign messages passed over" if self.lab.ignored else "")
+            + (f"  |  {self.runner.summary()}" if self.runner is not None else ""))
 
     @staticmethod
     def _cells(r: Row) -> tuple[Any, ...]:
@@ -180,3 +184,16 @@ class WatchApp(App[None]):
 
     def on_data_table_row_selected(self, event: DataTable.RowSelected) -> None:
         self.action_open()
+
+
+def event_fields(bench: Bench, doc: dict[str, Any]) -> dict[str, Any]:
+    """An ended event from the broker as ``--on-event`` commands see it: the same fields a recorder gives
+    them (``RAILTAP_START`` ...), with the bench's name, rig and run."""
+    fields = {k: v for k, v in doc.items() if k not in ("v", "phase")}
+    fields.update(bench=bench.name, rig=bench.state.get("rig"), run=bench.state.get("run"))
+    return fields
+
+
+def _height(row: Row) -> int:
+    """A bench's lines: one per channel, two at least (the last event takes two)."""
+    return max(2, len(row.channels))

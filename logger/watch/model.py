@@ -89,6 +89,8 @@ class Lab:
                 bench.going_on.clear()
         elif message.leaf == SECOND:
             t = _utc_s(doc.get("utc"))
+            if bench.seconds and t <= bench.seconds[-1][0]:
+                return []  # a repeat (QoS 1 may deliver twice), or out of order after a reconnect
             bench.seconds.append((t, doc["ch"]))
             bench.heard_at = now
             self.lags_s.append(now - t - 1.0)  # the second ends about 1 s after its first sample

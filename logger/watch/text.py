@@ -16,12 +16,12 @@ STATE_STYLES = {"offline": "bold magenta", "failed": "bold red", "disconnected":
 
 
 def channels_text(row: Row) -> Text:
-    """Each channel's latest value and, in brackets, its range over the last minute."""
+    """Each channel on a line of its own: its latest value and, in brackets, its range over the last minute."""
     text = Text(no_wrap=True, overflow="ellipsis")
     for k, (name, now, low, high, unit) in enumerate(row.channels):
         if k:
-            text.append("  ")
-        text.append(f"{name} ", "dim")
+            text.append("\n")
+        text.append(f"{name:<8.8} ", "dim")
         text.append(f"{_value(now)}{unit}", "bold")
         if low is not None and high is not None:
             text.append(f" [{_value(low)}-{_value(high)}]", "dim")
@@ -39,7 +39,7 @@ def event_text(doc: dict[str, Any] | None) -> Text:
     when = _local(doc.get("start"))
     lasted = duration_text(doc.get("duration_s")) if doc.get("phase") == "end" else "going on"
     style = "bold red" if doc.get("kind") == "dropout" else "bold dark_orange" if doc.get("kind") == "brownout" else ""
-    return Text.assemble(f"{when} ", (str(doc.get("kind", "?")), style), f" {doc.get('channel') or ''} {lasted}")
+    return Text.assemble(f"{when} ", (str(doc.get("kind", "?")), style), f"\n{doc.get('channel') or 'link'}, {lasted}")
 
 
 def _local(utc: Any) -> str:

@@ -6,7 +6,9 @@ time from ``/proc/PID/stat`` (every thread) over ``--seconds`` of wall clock, an
 ``/proc/PID/task``. Linux only.
 
 Run with ``.venv/bin/python tests/bench/bench_record_cpu.py [--seconds 120] [--runs 3] [--scenario demo-bench]
-[--tty]`` (``--tty``: status lines to a terminal, every 2 s, rather than to a log every 10 s).
+[--tty] [--over rfc2217|socket]`` (``--tty``: status lines to a terminal, every 2 s, rather than to a log every
+10 s; ``--over``: the pty served over TCP on loopback by ``tests/remote_serial.py``, in a process of its own, and
+recorded through that URL).
 """
 
 from __future__ import annotations
@@ -51,6 +53,13 @@ def serve(scenario: str, rig: Path, seed: int) -> tuple[subprocess.Popen[str], s
     return server, line.split(" on ", 1)[1].split(";", 1)[0].split()[0]
 
 
+def serve_over(kind: str, path: str) -> tuple[subprocess.Popen[str], str]:
+    """Serve the pty at ``path`` over TCP on loopback (``rfc2217`` or ``socket``); returns the server and its URL."""
+    server = subprocess.Popen([sys.executable, str(Path(__file__).resolve().parents[1] / "remote_serial.py"), kind,
+                               "0", path], stdout=subprocess.PIPE, text=True)
+    return server, server.stdout.readline().split()[-1]
+
+
 def terminal() -> tuple[int, int]:
     """A pseudo-terminal whose output is read and dropped, to stand in for a person's terminal (status lines
     come every 2 s on a terminal, every 10 s otherwise)."""
@@ -67,15 +76,18 @@ def terminal() -> tuple[int, int]:
     return master, slave
 
 
-def one_run(scenario: str, seconds: float, settle_s: float, quiet: bool, seed: int, tty: bool
+def one_run(scenario: str, seconds: float, settle_s: float, quiet: bool, seed: int, tty: bool, over: str | None
             ) -> tuple[float, dict[str, float]]:
     """Share of one core taken by one ``railtap record`` over ``seconds``, and each thread's share."""
     with tempfile.TemporaryDirectory() as tmp:
         rig = Path(tmp) / "rig.toml"
         server, path = serve(scenario, rig, seed)
+        bridge = None
         try:
             while not rig.exists():
                 time.sleep(0.05)
+            if over is not None:
+                bridge, path = serve_over(over, path)
             args = [sys.executable, "-m", "logger", "record", "--port", path, "--rig", str(rig), "--out",
                     str(Path(tmp) / "runs"), *(["--quiet"] if quiet else [])]
             master, slave = terminal() if tty else (None, subprocess.DEVNULL)
@@ -93,8 +105,10 @@ def one_run(scenario: str, seconds: float, settle_s: float, quiet: bool, seed: i
                     os.close(slave)
                     os.close(master)
         finally:
-            server.terminate()
-            server.wait(10)
+            for process in (bridge, server):
+                if process is not None:
+                    process.terminate()
+                    process.wait(10)
     wall = t1 - t0
     threads = {k: (threads1[k] - threads0.get(k, 0.0)) / wall for k in threads1}
     return (c1 - c0) / wall, threads
@@ -108,11 +122,13 @@ def main() -> None:
     parser.add_argument("--scenario", default="demo-bench")
     parser.add_argument("--quiet", action="store_true", help="record with --quiet (no status lines)")
     parser.add_argument("--tty", action="store_true", help="give the recorder a terminal for its status lines")
+    parser.add_argument("--over", choices=("rfc2217", "socket"), help="record the pty through a server on loopback")
     args = parser.parse_args()
     shares = []
     for k in range(args.runs):
         load = os.getloadavg()
-        share, threads = one_run(args.scenario, args.seconds, args.settle, args.quiet, seed=3 + k, tty=args.tty)
+        share, threads = one_run(args.scenario, args.seconds, args.settle, args.quiet, seed=3 + k, tty=args.tty,
+                                 over=args.over)
         shares.append(share)
         busy = ", ".join(f"{name} {s:.2%}" for name, s in sorted(threads.items(), key=lambda kv: -kv[1]) if s > 0.0005)
         print(f"run {k + 1}: {share:.2%} of one core over {args.seconds:g} s (load before "
