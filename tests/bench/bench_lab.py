@@ -7,18 +7,21 @@ are fifty real :class:`~logger.publish.Publisher` outlets in one process, fed at
 recorder would hand them: the per-second figures and the events of a demo-bench run recorded at the start (its
 rollups and event table, each bench at its own point in the run, so their events do not come together), and a
 recording state. The watcher is ``WatchApp`` with a real ``Feed``, in a process of its own on a 160x60
-pseudo-terminal (it draws as it would for a person). Printed: latency from device time to the watcher's model
-(``Lab.lags_s``: each figure from the end of its second, each event from its start), p50 and p99; the watcher's
-CPU share of one core over the window (all its threads, from its own process time) and peak memory; the broker's
-PUBLISH messages per second in and out (its ``$SYS/broker/publish/messages/*`` counters) and its own CPU.
+pseudo-terminal (it draws as it would for a person; its output is read and dropped). Printed: latency from
+device time to the watcher's model (``Lab.lags_s``: each figure from the end of its second, each event from its
+start), p50 and p99; the watcher's CPU share of one core over the window (all its threads, from its own process
+time) and peak memory; the broker's PUBLISH messages per second in and out (its
+``$SYS/broker/publish/messages/*`` counters) and its own CPU.
 
-A real recorder's figures start later than these: it hands a second over at its next batch (every 0.5 s while
+A real recorder's messages leave later than these: it hands a second over at its next batch (every 0.5 s while
 nobody watches it), and an event when its detector has seen it; the second part measures that too.
 
 **A recorder.** Two ``railtap record --port PTY`` processes side by side for the same window, each fed 1 kHz
 by its own ``railtap sim --pty`` (as ``bench_record_cpu.py`` does), one with ``--publish``: the CPU share of
-each, the difference, and the share of the publishing thread itself; and the latency of that recorder's own
-messages to a ``Lab`` model in this process.
+each, the difference, and the share of the publishing thread itself (threads are named for the kernel by a
+bench-only shim, ``NAME_THREADS``). Beside them a third, ``railtap record --sim --speed 1 --publish``, whose
+messages give a real recorder's latency to a ``Lab`` model in this process; the publishing pty recorder's is
+printed too.
 
 Goals: p99 under 1 s, the watcher under 20 % of a core, publishing adding under 0.5 % of a core.
 
@@ -60,7 +63,8 @@ from logger.ingest.state import LinkHealth, RecordingState, Snapshot
 RAILTAP = [sys.executable, "-m", "logger"]
 GOAL_P99_S, GOAL_WATCHER, GOAL_PUBLISH = 1.0, 0.20, 0.005
 SCREEN = (60, 160)
-"""The watcher's terminal, rows and columns: tall enough for fifty benches on one screen."""
+"""The watcher's terminal, rows and columns: a large window on a laptop (with a line per channel, about twenty
+demo benches show at once; the others are a scroll away, and the watcher takes in their messages all the same)."""
 NAME_THREADS = """
 import ctypes, threading
 _libc, _run = ctypes.CDLL(None), threading.Thread.run
