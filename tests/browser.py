@@ -26,7 +26,7 @@ CHROMIUM = next((p for p in (shutil.which("chromium"), shutil.which("chromium-br
                  if p and Path(p).exists()), None)
 FLAGS = ("--headless", "--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run",
          "--disable-background-networking", "--disable-component-update", "--disable-sync",
-         "--disable-default-apps", "--mute-audio")
+         "--disable-default-apps", "--mute-audio", "--disable-dev-shm-usage")
 
 
 class Chromium:

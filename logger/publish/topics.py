@@ -6,7 +6,7 @@ Under a prefix (``railtap`` unless the URL names another), each bench has three 
                          ``disconnected``, ``stopped``, ``failed``), its channels, run, device time elapsed,
                          link and event counts;
                          the broker replaces it with ``{"state": "offline"}`` when the recorder vanishes.
-``PREFIX/BENCH/second``  QoS 0: one message per second of the device clock: each channel's min, mean, max
+``PREFIX/BENCH/second``  QoS 1: one message per second of the device clock: each channel's min, mean, max
                          and standard deviation within it, and each rail's energy in joules.
 ``PREFIX/BENCH/event``   QoS 1: an event as it begins (``phase: begin``) and when it ends (``phase: end``); the
                          two share a ``key``.
