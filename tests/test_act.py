@@ -306,7 +306,10 @@ def test_the_link_panel_shows_each_outlets_line() -> None:
     link = LinkHealth("sim", True, 0, 0.0, 0, 0, 0, 0, 0, None)
     snap = Snapshot("running", "ok", (), (), None, None, None, link, None,
                     outlets=("on-event: 2 ok, 1 failed; last: brownout #3 on out_v: x exited with status 3",))
-    assert "on-event: 2 ok, 1 failed" in status_text(snap).plain
+    text = status_text(snap)
+    assert "on-event: 2 ok, 1 failed" in text.plain
+    line = text.plain.index("on-event")
+    assert any(span.start <= line < span.end and "yellow" in str(span.style) for span in text.spans)  # stands out
 
 
 def test_the_inherited_environment_is_taken_when_the_runner_is_made(monkeypatch: pytest.MonkeyPatch,

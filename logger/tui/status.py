@@ -66,9 +66,16 @@ def status_text(snap: Snapshot, width: int = 0) -> Text:
         if snap.last_run:
             text.append(f"last: {_folder_name(snap.last_run, width - 6)}\n", "dim")
     for line in snap.outlets:
-        text.append(f"{line}\n", "bold yellow" if "dropped" in line and not line.endswith(" 0 dropped") else "dim")
+        text.append(f"{line}\n", "bold yellow" if _needs_a_look(line) else "dim")
     text.append(snap.message, "italic")
     return text
+
+
+def _needs_a_look(outlet_line: str) -> bool:
+    """An outlet's line that counts something lost or failed (a broker's ``0 dropped`` is all well)."""
+    if outlet_line.endswith(" 0 dropped"):
+        return False
+    return any(word in outlet_line for word in ("dropped", "failed", "timed out", "cut short"))
 
 
 def _folder_name(folder: str | None, width: int) -> str:
