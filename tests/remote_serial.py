@@ -5,7 +5,8 @@ Two kinds of server: one speaking RFC 2217 (telnet with the COM port option, dri
 ``serial.rfc2217.PortManager``), which ``rfc2217://`` URLs open, and a plain bridge passing bytes both ways,
 which ``socket://`` URLs open. Either serves one client at a time, on 127.0.0.1, on a free port that
 :meth:`RemoteSerialServer.start` keeps when started again after :meth:`RemoteSerialServer.stop` (a server
-restarted in place). The serial port is opened while the server runs and closed when it stops.
+restarted in place). The serial port is opened while the server runs and closed when it stops; while no client
+is connected, what it sends is dropped.
 """
 
 from __future__ import annotations
@@ -112,10 +113,13 @@ class RemoteSerialServer:
         self._listener = self._serial = None
 
     def _serve(self) -> None:
-        """Accept one client at a time until stopped."""
+        """Accept one client at a time until stopped. While none is connected, what the port sends goes nowhere
+        (read and dropped), so a client that connects gets the device's bytes from then on, not a backlog."""
         while not self._stop.is_set():
-            ready, _, _ = select.select([self._listener], [], [], POLL_S)
-            if ready:
+            ready, _, _ = select.select([self._listener, self._serial], [], [], POLL_S)
+            if self._serial in ready:
+                self._serial.read(self._serial.in_waiting)
+            if self._listener in ready:
                 sock, _ = self._listener.accept()
                 self.connections += 1
                 self.sent = 0

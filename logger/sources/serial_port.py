@@ -36,6 +36,9 @@ REMOTE_SCHEMES = ("socket", "rfc2217")
 """The URL schemes that reach a serial port over TCP, written ``scheme://host:port``."""
 
 _BUSY = {errno.EBUSY, errno.EAGAIN, errno.EWOULDBLOCK}
+_CONNECTION_ENDED = ("socket disconnected", "reader thread died", "reset by peer", "forcibly closed", "broken pipe")
+"""pyserial's words for a TCP connection the far end closed (``socket://``, ``rfc2217://``), and the operating
+systems' for one it reset (Linux and macOS, Windows) or that can no longer be written."""
 
 
 MAX_READ = 65536
@@ -141,8 +144,7 @@ class SerialSource:
         try:
             data = self._read(ser)
         except (serial.SerialException, OSError) as exc:
-            self._lost()
-            raise LinkLost(f"{self.url}: link lost while reading ({_detail(exc)})") from None
+            raise self._lost("reading", exc) from None
         now = time.monotonic()
         return Chunk(bytes(data), now, time.time() - now)
 
@@ -180,8 +182,7 @@ class SerialSource:
         try:
             ser.write(data)
         except (serial.SerialException, OSError) as exc:
-            self._lost()
-            raise LinkLost(f"{self.url}: link lost while writing ({_detail(exc)})") from None
+            raise self._lost("writing", exc) from None
 
     def close(self) -> None:
         """Release the port; safe to call twice."""
@@ -195,8 +196,14 @@ class SerialSource:
             raise LinkLost(f"{self.url}: port is not open")
         return self._ser
 
-    def _lost(self) -> None:
+    def _lost(self, doing: str, exc: BaseException) -> LinkLost:
+        """Close the port and say why it was lost: for a remote port whose connection ended (closed or reset
+        by the far end), in those words rather than pyserial's."""
         self.close()
+        detail = _detail(exc)
+        if _scheme(self.url) in REMOTE_SCHEMES and any(words in detail.lower() for words in _CONNECTION_ENDED):
+            return LinkLost(f"{self.url}: the connection to the server ended")
+        return LinkLost(f"{self.url}: link lost while {doing} ({detail})")
 
 
 def port_settings(url: str) -> dict[str, object]:
