@@ -86,8 +86,6 @@ def test_a_lab_of_three_benches_on_one_watcher(lab) -> None:
                 return [e for e in b.events if e.get("kind") == "brownout"] if b else []
 
             await _until(pilot, lambda: all(brownouts(b) for b in BENCHES), "a brownout on every bench")
-            lags = sorted(app.lab.lags_s)
-            figures["lag_max_s"] = lags[-1]  # at 4x speed the labels run ahead of the wall clock: the max says more
             rows = [r.name for r in app.lab.rows(time.time())]
             assert set(rows) == set(BENCHES)
             app.save_screenshot("lab-120x30.svg", str(folder))
