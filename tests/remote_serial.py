@@ -13,10 +13,12 @@ from __future__ import annotations
 
 import contextlib
 import queue
+import random
 import select
 import socket
 import threading
 from collections.abc import Callable, Iterator
+from pathlib import Path
 
 import serial
 import serial.rfc2217
@@ -47,6 +49,36 @@ class PtyPort(serial.Serial):
         pass
 
 
+def _listen(port: int) -> socket.socket:
+    """A listening socket on 127.0.0.1:``port``."""
+    listener = socket.socket(socket.AF_INET, socket.SOCK_STREAM)
+    # The connections of a stopped server linger in TIME_WAIT on this port; a restart may listen anyway.
+    listener.setsockopt(socket.SOL_SOCKET, socket.SO_REUSEADDR, 1)
+    try:
+        listener.bind(("127.0.0.1", port))
+        listener.listen(1)
+    except OSError:
+        listener.close()
+        raise
+    return listener
+
+
+def _listen_outside_ephemeral_ports() -> socket.socket:
+    """Listen on a free port below the range the system hands out to outgoing connections (Linux's
+    ``ip_local_port_range``). A client retrying a port in that range while nothing listens on it can be given
+    that very port as its own and connect to itself (TCP's simultaneous open), and would then hold the port a
+    restarted server needs. Elsewhere, any free port."""
+    try:
+        low = int(Path("/proc/sys/net/ipv4/ip_local_port_range").read_text().split()[0])
+    except (OSError, ValueError, IndexError):
+        return _listen(0)
+    below = range(10_000, low)
+    for port in random.sample(below, min(200, len(below))):
+        with contextlib.suppress(OSError):
+            return _listen(port)
+    return _listen(0)
+
+
 class _Connection:
     """A client's socket with the one thread-safe ``write`` both the port manager and the pump call."""
 
@@ -65,7 +97,7 @@ class RemoteSerialServer:
     Args:
         device_path: the port to serve (a pty's slave path).
         rfc2217: speak RFC 2217 (for ``rfc2217://``); else pass bytes as they are (for ``socket://``).
-        port: the TCP port; 0 takes a free one, kept for later starts.
+        port: the TCP port; 0 takes a free one (outside the ephemeral range), kept for later starts.
     """
 
     def __init__(self, device_path: str, rfc2217: bool, port: int = 0) -> None:
@@ -88,13 +120,8 @@ class RemoteSerialServer:
 
     def start(self) -> RemoteSerialServer:
         """Open the serial port and listen (on the same TCP port as before, when started again)."""
-        listener = socket.socket(socket.AF_INET, socket.SOCK_STREAM)
-        # The connections of a stopped server linger in TIME_WAIT on this port; a restart may listen anyway.
-        listener.setsockopt(socket.SOL_SOCKET, socket.SO_REUSEADDR, 1)
-        listener.bind(("127.0.0.1", self.port))
-        listener.listen(1)
-        self.port = listener.getsockname()[1]
-        self._listener = listener
+        self._listener = _listen(self.port) if self.port else _listen_outside_ephemeral_ports()
+        self.port = self._listener.getsockname()[1]
         self._serial = PtyPort(self.device_path, baudrate=1_000_000, timeout=POLL_S)
         self._stop.clear()
         self._thread = threading.Thread(target=self._serve, name="remote-serial-server", daemon=True)
