@@ -22,6 +22,9 @@ from logger.watch.model import ALERT_KINDS, Bench, Lab, Row
 from logger.watch.text import STATE_STYLES, channels_text, elapsed, event_text
 
 POLL_S = 0.2
+DRAW_S = 1.0
+"""The table is drawn again at most this often (figures come once a second), and at once when an event begins
+or a bench's state changes: redrawing fifty rows five times a second was most of a watcher's CPU."""
 STATE_FILTERS = ("all", "attention", "recording", "offline")
 KIND_FILTERS = ("all", "brownout", "dropout", "overvoltage", "overcurrent", "flicker")
 COLUMNS = (("bench", 14), ("state", 12), ("now [last minute]", 32), ("last event", 28), ("today", 7),
@@ -69,13 +72,15 @@ class WatchApp(App[None]):
         self.kind_filter = KIND_FILTERS[0]
         self.link_text = f"connecting to {where}"
         self._order: list[str] = []
+        self._drawn_at = -DRAW_S
+        self._words: dict[str, str] = {}
         self._shown: dict[str, tuple[Any, ...]] = {}
 
     def compose(self) -> ComposeResult:
         yield Static(id="lab-head")
         table = DataTable(id="benches", cursor_type="row", zebra_stripes=True)
         for label, width in COLUMNS:
-            table.add_column(label, width=width, key=label)
+            table.add_column(Text(label), width=width, key=label)
         yield table
         yield Static(id="lab-foot")
         yield Footer()
@@ -91,20 +96,24 @@ class WatchApp(App[None]):
     # -- taking messages -------------------------------------------------------------------------------
 
     def poll(self) -> None:
-        """Apply what has arrived, ring for new dips, and redraw what changed."""
+        """Apply what has arrived, ring for new dips, and redraw what changed (see ``DRAW_S``)."""
+        urgent = False
         for heard in self.feed.take():
             if heard.topic is None:
                 self.link_text = heard.text
                 continue
             message = read_message(self.prefix, heard.topic, heard.payload)
             begun = self.lab.apply(message, heard.at)
+            urgent |= bool(begun) or (message is not None and message.leaf == "state"
+                                      and self.lab.benches[message.bench].word != self._words.get(message.bench))
             if self.bell_on and any(d.get("kind") in ALERT_KINDS for d in begun):
                 self.bell()
             if message is not None and message.leaf == "event" and message.doc["phase"] == "end" and self.runner:
                 self.runner.offer(message.doc["kind"], event_fields(self.lab.benches[message.bench], message.doc))
-        self.refresh_rows()
-        if isinstance(self.screen, BenchScreen):
-            self.screen.refresh_from(self.lab, self.kind_filter)
+        if urgent or time.monotonic() - self._drawn_at >= DRAW_S:
+            self.refresh_rows()
+            if isinstance(self.screen, BenchScreen):
+                self.screen.refresh_from(self.lab, self.kind_filter)
 
     # -- drawing -----------------------------------------------------------------------------------------
 
@@ -119,6 +128,8 @@ class WatchApp(App[None]):
         return rows
 
     def refresh_rows(self) -> None:
+        self._drawn_at = time.monotonic()
+        self._words = {name: b.word for name, b in self.lab.benches.items()}
         rows = self.lab.rows(time.time())
         shown = self.visible(rows)
         table = self.query_one("#benches", DataTable)
