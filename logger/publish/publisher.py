@@ -11,8 +11,11 @@ counted sent, counted dropped, or still waiting: the account adds up.
 
 from __future__ import annotations
 
+import contextlib
 import math
+import os
 import queue
+import select
 import threading
 import time
 from collections import Counter, deque
@@ -39,6 +42,9 @@ BUFFER_EVENTS = 10_000
 INBOX = 4096
 IN_FLIGHT = 100
 """Messages sent and not yet acknowledged, at most."""
+IDLE_S = 1.0
+"""With nothing to do, the publishing thread wakes this often to keep the connection alive (pings every
+``KEEPALIVE_S``) or to try the broker again."""
 SETTLE_S = 2.0
 """How long the run's account waits for the publishing thread to file what it was handed."""
 CLOSE_S = 3.0
@@ -79,6 +85,9 @@ class Publisher:
         self.broker, self.bench, self.rig, self.rails = broker, bench, rig, rails
         self.progress = Progress(away_since=time.monotonic())
         self._inbox: queue.Queue[tuple[str, Any]] = queue.Queue(maxsize=INBOX)
+        self._wake_r, self._wake_w = os.pipe()
+        os.set_blocking(self._wake_r, False)
+        os.set_blocking(self._wake_w, False)
         # The ingest thread's own: when the state was last handed over, and what the full queue dropped.
         self._handed_state: tuple[str, bool, float] = ("", False, -math.inf)
         self._handoff_dropped = Counter[str]()
@@ -133,13 +142,21 @@ class Publisher:
     def close(self) -> None:
         """Send the last state and what waits, for up to ``CLOSE_S``, and disconnect cleanly (no will)."""
         self._inbox.put(("close", None))
+        with contextlib.suppress(BlockingIOError):
+            os.write(self._wake_w, b"!")
         self._thread.join(CLOSE_S + 2.0)
+        if not self._thread.is_alive():
+            os.close(self._wake_r)
+            os.close(self._wake_w)
 
     def _hand(self, what: str, item: Any) -> None:
         try:
             self._inbox.put_nowait((what, item))
         except queue.Full:
             self._handoff_dropped[what] += 1
+            return
+        with contextlib.suppress(BlockingIOError):  # a full pipe is already waking the publishing thread
+            os.write(self._wake_w, b"!")
 
 
 class _Courier:
@@ -179,18 +196,17 @@ class _Courier:
         self.client.connect_async(self.owner.broker.host, self.owner.broker.port, KEEPALIVE_S)
         closing_at: float | None = None
         while True:
-            if self._take(block=not self.open) and closing_at is None:
+            if self._take() and closing_at is None:
                 closing_at = time.monotonic() + CLOSE_S
             now = time.monotonic()
             if not self.open and now >= self.next_try:
                 self._connect(now)
             if self.connected:
                 self._send()
-            if self.open:
-                self.client.loop(timeout=0.05)
             self._share()
             if closing_at is not None and (now >= closing_at or self._all_sent()):
                 break
+            self._wait(0.05 if closing_at is not None else IDLE_S if self.open else self.next_try - now)
         if self.open:
             self.leaving = True
             self.client.disconnect()  # a clean goodbye: the broker keeps the last state, not the will
@@ -199,11 +215,36 @@ class _Courier:
 
     # -- taking from the ingest thread -------------------------------------------------------------------
 
-    def _take(self, block: bool) -> bool:
+    def _wait(self, timeout: float) -> None:
+        """Sleep until the broker's socket has something, the ingest thread hands something over (a byte on the
+        wake-up pipe), or ``timeout``; then let the client read, write and keep the connection alive. Waking
+        only then, not twenty times a second, is most of what publishing costs a quiet recorder."""
+        sock = self.client.socket() if self.open else None
+        pending = sock is not None and hasattr(sock, "pending") and sock.pending() > 0  # TLS bytes already read
+        readable = [self.owner._wake_r, *([sock] if sock is not None else [])]
+        writable = [sock] if sock is not None and self.client.want_write() else []
+        try:
+            ready, able, _ = select.select(readable, writable, [], 0.0 if pending else max(0.0, min(timeout, IDLE_S)))
+        except (OSError, ValueError, TypeError):  # the socket closed under us: the client notices below
+            ready, able = [], []
+        if self.owner._wake_r in ready:
+            with contextlib.suppress(BlockingIOError):
+                os.read(self.owner._wake_r, 4096)
+        if sock is not None:
+            if sock in ready or pending:
+                self.client.loop_read()
+            if self.client.socket() is not None and sock in able:
+                self.client.loop_write()
+            if self.client.socket() is not None:
+                self.client.loop_misc()
+            elif self.open:  # the client closed its socket (a read error, a missed ping): the link is lost
+                self._on_disconnect(self.client, None, None, "connection lost", None)
+
+    def _take(self) -> bool:
         """Move what the ingest thread handed over into the buffers; True once it has said the run is over."""
         closing = False
         try:
-            item = self.owner._inbox.get(timeout=0.2) if block else self.owner._inbox.get_nowait()
+            item = self.owner._inbox.get_nowait()
             while True:
                 closing |= self._file(*item)
                 item = self.owner._inbox.get_nowait()
