@@ -23,8 +23,9 @@ from logger.watch.text import STATE_STYLES, channels_text, elapsed, event_text
 
 POLL_S = 0.2
 DRAW_S = 1.0
-"""The table is drawn again at most this often (figures come once a second), and at once when an event begins
-or a bench's state changes: redrawing fifty rows five times a second was most of a watcher's CPU."""
+"""The table is drawn again this often (figures come once a second), and sooner, after ``URGENT_S``, when an
+event begins or a bench's state changes: redrawing fifty rows five times a second was most of a watcher's CPU."""
+URGENT_S = 0.5
 STATE_FILTERS = ("all", "attention", "recording", "offline")
 KIND_FILTERS = ("all", "brownout", "dropout", "overvoltage", "overcurrent", "flicker")
 COLUMNS = (("bench", 14), ("state", 12), ("now [last minute]", 32), ("last event", 28), ("today", 7),
@@ -73,6 +74,7 @@ class WatchApp(App[None]):
         self.link_text = f"connecting to {where}"
         self._order: list[str] = []
         self._drawn_at = -DRAW_S
+        self._urgent = False
         self._words: dict[str, str] = {}
         self._shown: dict[str, tuple[Any, ...]] = {}
 
@@ -97,20 +99,20 @@ class WatchApp(App[None]):
 
     def poll(self) -> None:
         """Apply what has arrived, ring for new dips, and redraw what changed (see ``DRAW_S``)."""
-        urgent = False
         for heard in self.feed.take():
             if heard.topic is None:
                 self.link_text = heard.text
                 continue
             message = read_message(self.prefix, heard.topic, heard.payload)
             begun = self.lab.apply(message, heard.at)
-            urgent |= bool(begun) or (message is not None and message.leaf == "state"
+            self._urgent |= bool(begun) or (message is not None and message.leaf == "state"
                                       and self.lab.benches[message.bench].word != self._words.get(message.bench))
             if self.bell_on and any(d.get("kind") in ALERT_KINDS for d in begun):
                 self.bell()
             if message is not None and message.leaf == "event" and message.doc["phase"] == "end" and self.runner:
                 self.runner.offer(message.doc["kind"], event_fields(self.lab.benches[message.bench], message.doc))
-        if urgent or time.monotonic() - self._drawn_at >= DRAW_S:
+        since = time.monotonic() - self._drawn_at
+        if since >= DRAW_S or (self._urgent and since >= URGENT_S):
             self.refresh_rows()
             if isinstance(self.screen, BenchScreen):
                 self.screen.refresh_from(self.lab, self.kind_filter)
@@ -128,7 +130,7 @@ class WatchApp(App[None]):
         return rows
 
     def refresh_rows(self) -> None:
-        self._drawn_at = time.monotonic()
+        self._drawn_at, self._urgent = time.monotonic(), False
         self._words = {name: b.word for name, b in self.lab.benches.items()}
         rows = self.lab.rows(time.time())
         shown = self.visible(rows)
