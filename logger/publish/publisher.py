@@ -85,6 +85,7 @@ class Publisher:
         self.broker, self.bench, self.rig, self.rails = broker, bench, rig, rails
         self.progress = Progress(away_since=time.monotonic())
         self._inbox: queue.Queue[tuple[str, Any]] = queue.Queue(maxsize=INBOX)
+        self._closed = False
         self._wake_r, self._wake_w = os.pipe()
         os.set_blocking(self._wake_r, False)
         os.set_blocking(self._wake_w, False)
@@ -128,9 +129,10 @@ class Publisher:
     def account(self) -> dict[str, Any]:
         """Sent, dropped and still waiting, once the publishing thread has filed all it was handed (at the end of
         a run, so the three add up to what the run produced)."""
-        settled = threading.Event()
-        self._hand("settle", settled)
-        settled.wait(SETTLE_S)
+        if self._thread.is_alive():
+            settled = threading.Event()
+            self._hand("settle", settled)
+            settled.wait(SETTLE_S)
         p = self.progress
         return {"broker": self.broker.url, "bench": self.bench, "connects": p.connects,
                 "sent": {"seconds": p.seconds_sent, "events": p.events_sent},
@@ -141,15 +143,20 @@ class Publisher:
 
     def close(self) -> None:
         """Send the last state and what waits, for up to ``CLOSE_S``, and disconnect cleanly (no will)."""
+        if self._closed:
+            return
         self._inbox.put(("close", None))
         with contextlib.suppress(BlockingIOError):
             os.write(self._wake_w, b"!")
+        self._closed = True
         self._thread.join(CLOSE_S + 2.0)
         if not self._thread.is_alive():
             os.close(self._wake_r)
             os.close(self._wake_w)
 
     def _hand(self, what: str, item: Any) -> None:
+        if self._closed:
+            return
         try:
             self._inbox.put_nowait((what, item))
         except queue.Full:
