@@ -169,3 +169,10 @@ def test_a_watcher_runs_a_command_for_each_event_that_ends(tmp_path) -> None:
     assert env["RAILTAP_KIND"] == "brownout" and env["RAILTAP_BENCH"] == "b-dip" and env["RAILTAP_RUN"] == "runs/r1"
     assert env["RAILTAP_START"] == end["start"] and env["RAILTAP_DURATION_S"] == "0.4" and env["RAILTAP_ID"] == "7"
     assert runner.tally().ok == 1
+
+
+def test_a_bench_gone_offline_keeps_what_was_known_of_it() -> None:
+    lab, _ = _lab([("lab/b/state", _state("recording")), ("lab/b/second", _second(NOW - 1, 12.0)),
+                   ("lab/b/state", {"v": 1, "state": "offline"})])
+    (row,) = lab.rows(NOW)
+    assert row.shown_state == "offline" and row.today == 2 and row.channels[0][4] == "V"

@@ -84,7 +84,8 @@ class Lab:
         bench = self.benches.setdefault(message.bench, Bench(message.bench))
         doc = message.doc
         if message.leaf == STATE:
-            bench.state = doc
+            # The broker's "offline" (the recorder's last will) says only that: what was known of the bench stays.
+            bench.state = {**bench.state, **doc} if doc.get("state") == "offline" else doc
             if doc.get("state") in ("offline", "stopped", "failed"):
                 bench.going_on.clear()
         elif message.leaf == SECOND:
