@@ -24,7 +24,7 @@ import serial
 import serial.rfc2217
 
 from logger.sim.device import SimDevice
-from logger.sources.pty_server import PtyStats, serve_on_pty
+from logger.sources.pty_server import serve_on_pty
 
 POLL_S = 0.05
 """How often the server's threads look whether they are asked to stop."""
@@ -145,7 +145,10 @@ class RemoteSerialServer:
         while not self._stop.is_set():
             ready, _, _ = select.select([self._listener, self._serial], [], [], POLL_S)
             if self._serial in ready:
-                self._serial.read(self._serial.in_waiting)
+                try:
+                    self._serial.read(self._serial.in_waiting or 1)
+                except OSError:  # the device side of the pty is gone: nothing left to serve
+                    return
             if self._listener in ready:
                 sock, _ = self._listener.accept()
                 self.connections += 1
@@ -193,11 +196,11 @@ class RemoteSerialServer:
 
 
 TAP_BUFFER_BYTES = 8192
-"""What the served rig holds back for a port nobody reads before dropping it, of the order of a tap's transmit
-buffer (the simulator's default holds two seconds at 1 kHz, for benches whose reader is slow to wake). Held
-back, it comes in one burst when a client connects, and pyserial's RFC 2217 client parses a burst byte by byte
-before it reaches the answers to its own opening requests, each of which it awaits for 3 s by default (the
-URL's ``?timeout=``): on a loaded machine a large burst can outlast that."""
+"""What the served rig holds back for a port nobody reads (a stopped server) before dropping it, of the order of
+a tap's transmit buffer; the simulator's default holds two seconds at 1 kHz, for benches whose reader is slow to
+wake. Held back, it would come in one burst when a client connects, and pyserial's RFC 2217 client parses a
+burst byte by byte before it reaches the answers to its own opening requests, each of which it awaits for 3 s by
+default (the URL's ``?timeout=``): on a loaded machine a large burst can outlast that."""
 
 
 @contextlib.contextmanager
@@ -206,12 +209,8 @@ def rig_on_pty(device: Callable[[], SimDevice], speed: float = 1.0) -> Iterator[
     runs; yields the pty's path."""
     stop = threading.Event()
     ready: queue.Queue[str] = queue.Queue()
-    result: list[PtyStats] = []
-
-    def serve() -> None:
-        result.append(serve_on_pty(device, speed, stop, ready.put, backlog_limit=TAP_BUFFER_BYTES))
-
-    server = threading.Thread(target=serve, name="pty-rig", daemon=True)
+    server = threading.Thread(target=serve_on_pty, args=(device, speed, stop, ready.put),
+                              kwargs={"backlog_limit": TAP_BUFFER_BYTES}, name="pty-rig", daemon=True)
     server.start()
     try:
         yield ready.get(timeout=30)
